@@ -1,0 +1,64 @@
+"""Command-line interface: click commands only (parse, call, print, write).
+
+Each command lives in its own module in this package and registers itself on ``main``.
+Bad input surfaces as :class:`lapbalance.errors.InputError`: one line on stderr, exit
+status 2, no traceback (``--debug`` shows it).
+"""
+
+from __future__ import annotations
+
+import sys
+import warnings
+
+import click
+
+from lapbalance import __version__
+from lapbalance.errors import InputError, PhysicsWarning
+
+
+class _Group(click.Group):
+    """A click group that turns InputError into one line and exit status 2."""
+
+    def invoke(self, ctx):
+        debug = ctx.params.get("debug", False)
+        try:
+            return super().invoke(ctx)
+        except InputError as e:
+            if debug:
+                raise
+            click.echo(f"lapbalance: {e.one_line()}", err=True)
+            sys.exit(2)
+        except KeyboardInterrupt:
+            click.echo("lapbalance: interrupted; no partial output was written", err=True)
+            sys.exit(130)
+
+
+def _show_warning(message, category, filename, lineno, file=None, line=None):
+    prefix = "warning" if issubclass(category, PhysicsWarning) else category.__name__
+    click.echo(f"lapbalance: {prefix}: {message}", err=True)
+
+
+@click.group(cls=_Group, context_settings={"help_option_names": ["-h", "--help"]})
+@click.version_option(__version__, "--version", prog_name="lapbalance")
+@click.option("--debug", is_flag=True, help="Show Python tracebacks for errors.")
+def main(debug: bool) -> None:
+    """lapbalance: quasi-static lap balance simulator.
+
+    Runs a car over a track and keeps the aerodynamic load split apart from the load
+    transfer caused by forces at the ground; flags corners where lifting off moves the
+    balance toward oversteer. Results are quasi-static estimates: confirm them with
+    qualified engineers and track testing, within the rules and the law.
+    """
+    warnings.showwarning = _show_warning
+
+
+# Command modules register themselves on ``main`` when imported.
+from lapbalance.cli import car_cmd  # noqa: E402,F401
+
+for _mod in ("track_cmd", "lap_cmd", "demo_cmd", "tunnel_cmd", "compare_cmd", "check_cmd",
+             "report_cmd"):
+    try:
+        __import__(f"lapbalance.cli.{_mod}")
+    except ModuleNotFoundError as _e:  # a command module not written yet
+        if _e.name != f"lapbalance.cli.{_mod}":
+            raise
