@@ -564,6 +564,27 @@ def load_car(path: str | Path, overrides=None) -> Car:
     return build_car(flat, {}, str(path), path.parent)
 
 
+def car_from_dict(raw: dict, source: str = "<dict>", folder: str | Path = ".",
+                  overrides=None) -> Car:
+    """Build a car from a nested mapping shaped like a car file (same validation).
+
+    Parameters
+    ----------
+    raw : dict
+        {"name": ..., "chassis": {...}, "aero": {...}, "tyres": {"front": {...}, ...}, ...}
+    source : str
+        Name used in error messages.
+    folder : str or Path
+        Folder that relative paths (aero map) are resolved against.
+    overrides : list of str or dict, optional
+        As for :func:`load_car`.
+    """
+    flat = _flatten(raw, source)
+    flat.pop(("", "base"), None)
+    apply_overrides(flat, {}, overrides)
+    return build_car(flat, {}, source, Path(folder))
+
+
 # --------------------------------------------------------------------------------------------
 # Validation and building
 # --------------------------------------------------------------------------------------------

@@ -1,0 +1,124 @@
+"""`lapbalance lap`: run a car around a track and print/write the results."""
+
+from __future__ import annotations
+
+import click
+
+from lapbalance.car import load_car
+from lapbalance.cli import main
+from lapbalance.cli.common import echo_json, force_option, json_option, set_option, table
+from lapbalance.liftoff import flagged, verdict_counts
+
+
+def track_options(f):
+    f = click.option("--step-m", type=float, default=1.0, show_default=True,
+                     help="Resampling step along the track [m].")(f)
+    f = click.option("--closed/--open", "closed", default=None,
+                     help="Force a closed lap or an open run (default: from the file).")(f)
+    f = click.option("--start-speed-kph", type=float, default=None,
+                     help="Open tracks: speed at the start [km/h] (default 0, standing).")(f)
+    return f
+
+
+def load_inputs(car_file, track_file, overrides, step_m, closed):
+    from lapbalance.track import load_track
+
+    if step_m <= 0 or step_m > 50:
+        from lapbalance.errors import InputError
+
+        raise InputError(f"= {step_m} must be between 0 and 50 m", "--step-m")
+    car = load_car(car_file, overrides)
+    track = load_track(track_file, step_m=step_m, closed=closed)
+    return car, track
+
+
+def format_lap(result, liftoff_only: bool = False) -> str:
+    """Human-readable lap summary (text)."""
+    s = result.summary()
+    lines = []
+    if not liftoff_only:
+        lines.append(f"{s['car']} on {s['track']} ({s['length_m']:.0f} m, "
+                     f"{'closed lap' if s['closed'] else 'open run'})")
+        lines.append(f"lap time {s['lap_time_s']:.3f} s   top {s['top_speed_kph']:.1f} km/h   "
+                     f"min {s['min_speed_kph']:.1f} km/h   mean {s['mean_speed_kph']:.1f} km/h")
+        bal_cg, bal_g = s["aero_balance_front_cg"], s["aero_balance_front_ground"]
+        if bal_cg is not None:
+            lines.append(f"aero balance (front share) {bal_cg * 100:.1f} % on track "
+                         f"(CG convention); {bal_g * 100:.1f} % as wheel-restrained scales "
+                         "read it")
+        lines.append("sectors: " + "   ".join(f"S{x['sector']} {x['time_s']:.3f} s"
+                                              for x in s["sectors"]))
+        lines.append("")
+        rows = []
+        for c in result.corners:
+            rows.append([c["id"], c["direction"], f"{c['apex_m']:.0f}",
+                         f"{c['min_radius_m']:.0f}", f"{c['min_speed_kph']:.1f}",
+                         c["limiting_axle"], f"{c['balance_index_at_min']:+.3f}",
+                         c.get("liftoff_verdict", ""),
+                         _num(c.get("liftoff_max_shift"), "+.3f"),
+                         _num(c.get("liftoff_max_usage_rear"), ".3f")])
+        if rows:
+            lines.append(table(rows, ["corner", "dir", "apex m", "radius m", "min km/h",
+                                      "limit", "balance", "lift-off", "shift", "rear off"]))
+            lines.append("balance = usage_rear - usage_front at the slowest point "
+                         "(> 0 oversteer-leaning); shift = largest balance change on "
+                         "lift-off; rear off = highest rear usage after lift-off")
+            lines.append("")
+    flags = flagged(result.corners)
+    counts = verdict_counts(result.corners)
+    lines.append("lift-off check: " + ", ".join(f"{v} {n}" for v, n in counts.items() if n))
+    if flags:
+        rows = []
+        for c in flags:
+            w = c["liftoff_worst_rear"]
+            rows.append([c["id"], c["liftoff_verdict"].upper(), f"{w['distance_m']:.0f}",
+                         f"{w['speed_kph']:.0f}", f"{w['usage_rear_on']:.3f}",
+                         f"{w['usage_rear_off']:.3f}", f"{w['coast_usage_rear']:.3f}",
+                         f"{w['front_load_shift_n']:+.0f}", c["liftoff_reason"]])
+        lines.append(table(rows, ["corner", "verdict", "at m", "km/h", "rear on",
+                                  "rear off", "rear coast", "front +N", "why"]))
+        lines.append("rear on/off/coast = rear usage on throttle, after lift-off with engine "
+                     "braking, and coasting without it")
+    else:
+        lines.append("no corner flagged")
+    return "\n".join(lines)
+
+
+def _num(x, fmt):
+    return "" if x is None else format(x, fmt)
+
+
+@main.command("lap")
+@click.argument("car_file", type=click.Path(dir_okay=False))
+@click.argument("track_file", type=click.Path(dir_okay=False))
+@click.option("--out", "out_dir", type=click.Path(file_okay=False),
+              help="Write channels.csv, corners.csv and summary.json here.")
+@set_option
+@json_option
+@force_option
+@track_options
+@click.option("--liftoff-only", is_flag=True, help="Print only the lift-off check.")
+@click.option("--plots", is_flag=True, help="Also write PNG figures into --out.")
+def lap_command(car_file, track_file, out_dir, overrides, as_json, force, step_m, closed,
+                start_speed_kph, liftoff_only, plots):
+    """Run CAR_FILE around TRACK_FILE; print lap time, sectors, corners and lift-off flags."""
+    from lapbalance.export import write_lap_folder
+    from lapbalance.lap import simulate_lap
+
+    car, track = load_inputs(car_file, track_file, overrides, step_m, closed)
+    result = simulate_lap(car, track, start_speed_kph=start_speed_kph)
+    if out_dir:
+        extra = {}
+        if plots:
+            from lapbalance import plots as _plots
+
+            extra = _plots.lap_figures_png(result)
+        write_lap_folder(result, out_dir, force=force, extra=extra)
+    elif plots:
+        raise click.UsageError("--plots needs --out DIR")
+    if as_json:
+        echo_json(result.summary())
+        return
+    click.echo(format_lap(result, liftoff_only))
+    if out_dir:
+        click.echo(f"\nwrote {out_dir}/channels.csv, corners.csv, summary.json")

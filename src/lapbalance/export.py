@@ -1,0 +1,81 @@
+"""Serialise lap results to CSV/JSON text and write result folders atomically."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import numpy as np
+
+from lapbalance.lap import LIMIT_NAMES, LapResult
+from lapbalance.outputs import columns_csv_text, csv_text, staged_dir
+
+#: Per-corner CSV columns (flat; the two worst lift-off steps are prefixed).
+CORNER_COLUMNS = (
+    "id", "direction", "entry_m", "apex_m", "exit_m", "min_radius_m", "min_speed_kph",
+    "min_speed_at_m", "limiting_axle", "balance_index_at_min", "usage_front_at_min",
+    "usage_rear_at_min", "aero_balance_front_at_min", "liftoff_verdict", "liftoff_reason",
+    "liftoff_max_shift", "liftoff_max_usage_rear", "coast_max_shift", "overrun_share",
+)
+_STEP_FIELDS = ("distance_m", "speed_kph", "balance_shift", "front_load_shift_n",
+                "usage_front_on", "usage_rear_on", "usage_front_off", "usage_rear_off",
+                "coast_balance_shift", "coast_usage_rear")
+
+
+def channels_csv(result: LapResult) -> str:
+    """All channels as CSV text, one row per step (``limit`` as names)."""
+    cols = {}
+    for k, v in result.channels.items():
+        if k == "limit":
+            cols[k] = [LIMIT_NAMES[int(c)] for c in v]
+        elif k in ("gear", "corner_id", "wheel_lift_front", "wheel_lift_rear",
+                   "floor_contact", "aero_map_outside", "liftoff_checked"):
+            cols[k] = [str(int(x)) for x in v]
+        else:
+            cols[k] = np.asarray(v, float)
+    return columns_csv_text(cols, "{:.6g}")
+
+
+def _fmt(v):
+    if v is None:
+        return ""
+    if isinstance(v, float):
+        return "" if v != v else f"{v:.6g}"
+    return str(v)
+
+
+def corners_csv(result: LapResult) -> str:
+    """The corner table as CSV text."""
+    header = list(CORNER_COLUMNS)
+    for pre in ("worst_shift", "worst_rear"):
+        header += [f"{pre}_{f}" for f in _STEP_FIELDS]
+    rows = []
+    for c in result.corners:
+        row = [_fmt(c.get(k)) for k in CORNER_COLUMNS]
+        for pre in ("liftoff_worst_shift", "liftoff_worst_rear"):
+            rec = c.get(pre) or {}
+            row += [_fmt(rec.get(f)) for f in _STEP_FIELDS]
+        rows.append(row)
+    return csv_text(header, rows)
+
+
+def summary_json(result: LapResult) -> str:
+    """The lap summary as JSON text."""
+    return json.dumps(result.summary(), indent=2, allow_nan=False) + "\n"
+
+
+def write_lap_folder(result: LapResult, out_dir: str | Path, force: bool = False,
+                     extra: dict[str, bytes] | None = None) -> Path:
+    """Write channels.csv, corners.csv, summary.json (and ``extra`` files) into ``out_dir``.
+
+    The folder is filled in a temporary sibling and swapped in only when complete.
+    """
+    out_dir = Path(out_dir)
+    with staged_dir(out_dir, force=force) as tmp:
+        (tmp / "channels.csv").write_text(channels_csv(result), encoding="utf-8")
+        (tmp / "corners.csv").write_text(corners_csv(result), encoding="utf-8")
+        (tmp / "summary.json").write_text(summary_json(result), encoding="utf-8")
+        for name, data in (extra or {}).items():
+            (tmp / name).parent.mkdir(parents=True, exist_ok=True)
+            (tmp / name).write_bytes(data)
+    return out_dir

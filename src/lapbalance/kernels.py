@@ -1,0 +1,607 @@
+"""Numba kernels of the quasi-static lap solver (float arrays in, float arrays out).
+
+No Python objects, no I/O. The car arrives as a flat parameter vector ``p`` (indices ``P_*``
+below, filled by :func:`lapbalance.lap.car_parameters`), the gearbox and torque curve as
+arrays, the aero map (if any) as a refined grid for clamped bilinear lookup. Physics comes from
+:mod:`lapbalance.loads` and :mod:`lapbalance.tyre` (numba scalar functions).
+
+The control variable of the longitudinal search is one signed force ``F`` at the wheels:
+``F >= 0`` is drive (split by the torque split), ``F < 0`` is brake force ``-F`` (split by the
+brake bias; engine overrun is folded into the brakes while braking). Lift-off evaluation uses
+the explicit (drive, brake) pair instead, with negative drive = engine overrun on the driven
+axle(s).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from numba import njit, prange
+
+from lapbalance.loads import axle_loads, road_accelerations
+from lapbalance.tyre import axle_capacity, usage
+
+G = 9.80665
+
+# ---- parameter vector indices -------------------------------------------------------------
+P_MASS = 0
+P_L = 1
+P_A = 2  # front axle to CG
+P_B = 3  # CG to rear axle
+P_H = 4
+P_TF = 5
+P_TR = 6
+P_ZF = 7
+P_ZR = 8
+P_KF = 9
+P_CLAF = 10  # front downforce area, CG convention [m2]
+P_CLAR = 11
+P_CDA = 12
+P_RHO = 13
+P_CRR = 14
+P_MUXF = 15
+P_KXF = 16
+P_MUYF = 17
+P_KYF = 18
+P_FZ0F = 19
+P_MUXR = 20
+P_KXR = 21
+P_MUYR = 22
+P_KYR = 23
+P_FZ0R = 24
+P_DRIVEF = 25  # front share of drive force
+P_BIASF = 26
+P_ETA = 27
+P_RW = 28
+P_FINAL = 29
+P_SHIFT = 30
+P_REVLIM = 31
+P_POWERMODE = 32
+P_POWER = 33
+P_FTMAX = 34
+P_OVERRUN = 35
+P_USEMAP = 36
+P_HEAVEF = 37  # N/m
+P_HEAVER = 38
+P_RHF0 = 39  # m
+P_RHR0 = 40
+P_NPARAM = 41
+
+# ---- state output indices -----------------------------------------------------------------
+O_AX = 0
+O_AY = 1
+O_DRAG = 2
+O_DOWNF = 3
+O_AEROF = 4
+O_AEROR = 5
+O_STATF = 6
+O_STATR = 7
+O_GT = 8
+O_LATF = 9
+O_LATR = 10
+O_FZF = 11
+O_FZR = 12
+O_FZFO = 13
+O_FZFI = 14
+O_FZRO = 15
+O_FZRI = 16
+O_FXF = 17
+O_FXR = 18
+O_FYF = 19
+O_FYR = 20
+O_CAPXF = 21
+O_CAPYF = 22
+O_CAPXR = 23
+O_CAPYR = 24
+O_UF = 25
+O_UR = 26
+O_LIFTF = 27
+O_LIFTR = 28
+O_RHF = 29
+O_RHR = 30
+O_RR = 31
+O_X = 32
+O_CLAF = 33
+O_CLAR = 34
+O_CDA = 35
+O_STATUS = 36
+O_MAPOUT = 37
+NOUT = 38
+
+# ---- limit codes ----------------------------------------------------------------------------
+LIM_NONE = 0
+LIM_FRONT = 1
+LIM_REAR = 2
+LIM_ENGINE = 3
+LIM_REV = 4
+LIM_SPEEDCAP = 5
+
+BIG = 1e9
+V_MIN = 0.5  # lowest speed searched for a corner limit [m/s]
+
+
+@njit(cache=True)
+def _bracket_index(grid, x):
+    n = grid.shape[0]
+    if x <= grid[0]:
+        return 0, 0.0
+    if x >= grid[n - 1]:
+        return n - 2, 1.0
+    lo = 0
+    hi = n - 1
+    while hi - lo > 1:
+        mid = (lo + hi) // 2
+        if grid[mid] <= x:
+            lo = mid
+        else:
+            hi = mid
+    return lo, (x - grid[lo]) / (grid[lo + 1] - grid[lo])
+
+
+@njit(cache=True)
+def map_lookup(mx, my, mt, k, x, y):
+    """Clamped bilinear lookup of table ``mt[k]`` on grid (mx, my) at (x, y)."""
+    i, tx = _bracket_index(mx, x)
+    j, ty = _bracket_index(my, y)
+    t = mt[k]
+    return ((1 - tx) * (1 - ty) * t[i, j] + tx * (1 - ty) * t[i + 1, j]
+            + (1 - tx) * ty * t[i, j + 1] + tx * ty * t[i + 1, j + 1])
+
+
+@njit(cache=True)
+def _state_once(v, kappa, grade, bank, f_drive, f_brake, p, claf, clar, cda, out):
+    m = p[P_MASS]
+    L = p[P_L]
+    a = p[P_A]
+    b = p[P_B]
+    h = p[P_H]
+    q = 0.5 * p[P_RHO] * v * v
+    drag = q * cda
+    aero_f = q * claf
+    aero_r = q * clar
+    a_c, a_y, g_n = road_accelerations(v, kappa, grade, bank)
+    rr = p[P_CRR] * (m * g_n + aero_f + aero_r)
+    x = f_drive - f_brake - rr
+    res = axle_loads(m, g_n, a, b, L, h, p[P_TF], p[P_TR], p[P_ZF], p[P_ZR], p[P_KF], a_y,
+                     aero_f, aero_r, x)
+    out[O_AX] = (x - drag - m * G * math.sin(grade)) / m
+    out[O_AY] = a_y
+    out[O_DRAG] = drag
+    out[O_DOWNF] = aero_f + aero_r
+    out[O_AEROF] = aero_f
+    out[O_AEROR] = aero_r
+    out[O_STATF] = res[0]
+    out[O_STATR] = res[1]
+    out[O_GT] = res[4]
+    out[O_LATF] = res[5]
+    out[O_LATR] = res[6]
+    fzf = res[7]
+    fzr = res[8]
+    out[O_FZF] = fzf
+    out[O_FZR] = fzr
+    out[O_FZFO] = res[9]
+    out[O_FZFI] = res[10]
+    out[O_FZRO] = res[11]
+    out[O_FZRI] = res[12]
+    out[O_LIFTF] = res[13]
+    out[O_LIFTR] = res[14]
+    status = res[15]
+    out[O_RR] = rr
+    out[O_X] = x
+    out[O_CLAF] = claf
+    out[O_CLAR] = clar
+    out[O_CDA] = cda
+    sf = p[P_DRIVEF]
+    bf = p[P_BIASF]
+    crr = p[P_CRR]
+    fxf = sf * f_drive - bf * f_brake - crr * fzf
+    fxr = (1.0 - sf) * f_drive - (1.0 - bf) * f_brake - crr * fzr
+    fyf = m * a_y * b / L
+    fyr = m * a_y * a / L
+    out[O_FXF] = fxf
+    out[O_FXR] = fxr
+    out[O_FYF] = fyf
+    out[O_FYR] = fyr
+    if status != 0:
+        out[O_CAPXF] = 0.0
+        out[O_CAPYF] = 0.0
+        out[O_CAPXR] = 0.0
+        out[O_CAPYR] = 0.0
+        out[O_UF] = BIG
+        out[O_UR] = BIG
+        out[O_STATUS] = status
+        return status
+    cxf = axle_capacity(res[9], res[10], p[P_MUXF], p[P_KXF], p[P_FZ0F])
+    cyf = axle_capacity(res[9], res[10], p[P_MUYF], p[P_KYF], p[P_FZ0F])
+    cxr = axle_capacity(res[11], res[12], p[P_MUXR], p[P_KXR], p[P_FZ0R])
+    cyr = axle_capacity(res[11], res[12], p[P_MUYR], p[P_KYR], p[P_FZ0R])
+    out[O_CAPXF] = cxf
+    out[O_CAPYF] = cyf
+    out[O_CAPXR] = cxr
+    out[O_CAPYR] = cyr
+    out[O_UF] = usage(fxf, fyf, cxf, cyf)
+    out[O_UR] = usage(fxr, fyr, cxr, cyr)
+    out[O_STATUS] = 0.0
+    return 0
+
+
+@njit(cache=True)
+def state(v, kappa, grade, bank, f_drive, f_brake, p, mx, my, mt, out):
+    """Evaluate the car at speed v [m/s] on a step (curvature [1/m], grade, bank [rad]) with
+    drive force f_drive [N] (negative = engine overrun) and brake force f_brake >= 0 [N].
+
+    Fills ``out`` (indices ``O_*``) and returns a status code (0 = feasible loads). With an
+    aero map, ride heights and aero areas are iterated to a fixed point.
+    """
+    if p[P_USEMAP] == 0.0:
+        st = _state_once(v, kappa, grade, bank, f_drive, f_brake, p, p[P_CLAF], p[P_CLAR],
+                         p[P_CDA], out)
+        out[O_RHF] = p[P_RHF0]
+        out[O_RHR] = p[P_RHR0]
+        out[O_MAPOUT] = 0.0
+        return st
+    m = p[P_MASS]
+    fz_ref_f = m * G * p[P_B] / p[P_L]
+    fz_ref_r = m * G * p[P_A] / p[P_L]
+    rhf = p[P_RHF0]
+    rhr = p[P_RHR0]
+    st = 0
+    for _ in range(40):
+        claf = map_lookup(mx, my, mt, 0, rhf, rhr)
+        clar = map_lookup(mx, my, mt, 1, rhf, rhr)
+        cda = map_lookup(mx, my, mt, 2, rhf, rhr)
+        st = _state_once(v, kappa, grade, bank, f_drive, f_brake, p, claf, clar, cda, out)
+        new_f = p[P_RHF0] - (out[O_FZF] - fz_ref_f) / p[P_HEAVEF]
+        new_r = p[P_RHR0] - (out[O_FZR] - fz_ref_r) / p[P_HEAVER]
+        df = new_f - rhf
+        dr = new_r - rhr
+        rhf += 0.7 * df
+        rhr += 0.7 * dr
+        if abs(df) < 1e-6 and abs(dr) < 1e-6:
+            break
+    out[O_RHF] = rhf
+    out[O_RHR] = rhr
+    outside = 0.0
+    if rhf < mx[0] or rhf > mx[mx.shape[0] - 1] or rhr < my[0] or rhr > my[my.shape[0] - 1]:
+        outside = 1.0
+    out[O_MAPOUT] = outside
+    return st
+
+
+@njit(cache=True)
+def state_control(v, kappa, grade, bank, F, p, mx, my, mt, out):
+    """:func:`state` with one signed control force F [N] (>= 0 drive, < 0 brake)."""
+    if F >= 0.0:
+        return state(v, kappa, grade, bank, F, 0.0, p, mx, my, mt, out)
+    return state(v, kappa, grade, bank, 0.0, -F, p, mx, my, mt, out)
+
+
+@njit(cache=True)
+def max_usage(out):
+    u = out[O_UF]
+    if out[O_UR] > u:
+        u = out[O_UR]
+    return u
+
+
+@njit(cache=True)
+def control_for_ax(v, kappa, grade, bank, ax, p, mx, my, mt, out):
+    """Signed control force [N] that gives longitudinal acceleration ``ax`` [m/s²].
+
+    Leaves ``out`` holding the state at that force.
+    """
+    m = p[P_MASS]
+    F = 0.0
+    state_control(v, kappa, grade, bank, F, p, mx, my, mt, out)
+    for _ in range(6):
+        err = ax - out[O_AX]
+        if abs(err) < 1e-10:
+            break
+        F += m * err
+        state_control(v, kappa, grade, bank, F, p, mx, my, mt, out)
+    return F
+
+
+@njit(cache=True)
+def gear_and_rpm(v, p, gears):
+    """Gear index (0 = first) and engine speed [rpm] at speed v [m/s]: the lowest gear whose
+    engine speed does not exceed the shift point, else top gear."""
+    w = v / p[P_RW] * p[P_FINAL] * 60.0 / (2.0 * math.pi)
+    n = gears.shape[0]
+    for g in range(n):
+        rpm = w * gears[g]
+        if rpm <= p[P_SHIFT]:
+            return g, rpm
+    return n - 1, w * gears[n - 1]
+
+
+@njit(cache=True)
+def engine_force(v, p, gears, trpm, tnm):
+    """Largest drive force the powertrain gives at v [m/s], at the wheels [N]."""
+    g, rpm = gear_and_rpm(v, p, gears)
+    if rpm > p[P_REVLIM] * (1.0 + 1e-9):
+        return 0.0
+    if p[P_POWERMODE] != 0.0:
+        if v <= 0.0:
+            return p[P_FTMAX]
+        f = p[P_POWER] * p[P_ETA] / v
+        return f if f < p[P_FTMAX] else p[P_FTMAX]
+    r = rpm
+    if r < trpm[0]:
+        r = trpm[0]
+    torque = np.interp(r, trpm, tnm)
+    return torque * gears[g] * p[P_FINAL] * p[P_ETA] / p[P_RW]
+
+
+@njit(cache=True)
+def overrun_force(v, p, gears):
+    """Engine-braking force at the wheels [N] (positive, retarding) in the current gear."""
+    g, rpm = gear_and_rpm(v, p, gears)
+    return p[P_OVERRUN] * gears[g] * p[P_FINAL] / p[P_RW]
+
+
+@njit(cache=True)
+def steady_control(v, kappa, grade, bank, p, mx, my, mt, out):
+    """Control force [N] holding speed (a_x = 0); ``out`` holds that state."""
+    return control_for_ax(v, kappa, grade, bank, 0.0, p, mx, my, mt, out)
+
+
+@njit(cache=True)
+def feasible_steady(v, kappa, grade, bank, p, mx, my, mt, out):
+    steady_control(v, kappa, grade, bank, p, mx, my, mt, out)
+    return out[O_STATUS] == 0.0 and max_usage(out) <= 1.0
+
+
+@njit(cache=True)
+def _feasible_at(v, kappa, grade, bank, F, p, mx, my, mt, out):
+    st = state_control(v, kappa, grade, bank, F, p, mx, my, mt, out)
+    return st == 0 and max_usage(out) <= 1.0
+
+
+@njit(cache=True)
+def largest_feasible_control(v, kappa, grade, bank, f_ok, f_bad, p, mx, my, mt, out, tol):
+    """Bisect between a feasible control ``f_ok`` and an infeasible ``f_bad`` [N]; return the
+    feasible end of the final bracket (works for f_bad above or below f_ok)."""
+    lo = f_ok
+    hi = f_bad
+    while abs(hi - lo) > tol:
+        mid = 0.5 * (lo + hi)
+        if _feasible_at(v, kappa, grade, bank, mid, p, mx, my, mt, out):
+            lo = mid
+        else:
+            hi = mid
+    return lo
+
+
+@njit(cache=True)
+def corner_limit(kappa, grade, bank, guess, vcap, p, mx, my, mt, out, tol):
+    """Highest steady speed [m/s] below the first infeasible one (both axles u <= 1).
+
+    Starts from ``guess`` (a neighbour's limit), brackets, checks a few lower speeds for an
+    infeasible band (usage need not be monotonic in speed), then bisects to ``tol`` [m/s].
+    Returns ``vcap`` when every speed up to it is feasible, and 0 when even V_MIN is not.
+    """
+    if feasible_steady(vcap, kappa, grade, bank, p, mx, my, mt, out):
+        ok = True
+        for f in (0.2, 0.4, 0.6, 0.8):
+            if not feasible_steady(vcap * f, kappa, grade, bank, p, mx, my, mt, out):
+                ok = False
+                break
+        if ok:
+            return vcap
+        guess = 0.0
+    lo = 0.0
+    hi = vcap
+    found = False
+    if guess > V_MIN and guess < vcap:
+        if feasible_steady(guess, kappa, grade, bank, p, mx, my, mt, out):
+            lo = guess
+            hi = guess * 1.05
+            while hi < vcap and feasible_steady(hi, kappa, grade, bank, p, mx, my, mt, out):
+                lo = hi
+                hi = hi * 1.05
+            if hi > vcap:
+                hi = vcap
+        else:
+            hi = guess
+            lo = guess / 1.05
+            while lo > V_MIN and not feasible_steady(lo, kappa, grade, bank, p, mx, my, mt,
+                                                     out):
+                hi = lo
+                lo = lo / 1.05
+        found = lo > V_MIN
+        if found:
+            for f in (0.3, 0.6):
+                if not feasible_steady(lo * f, kappa, grade, bank, p, mx, my, mt, out):
+                    found = False
+                    break
+    if not found:
+        # full scan from the bottom
+        if not feasible_steady(V_MIN, kappa, grade, bank, p, mx, my, mt, out):
+            return 0.0
+        lo = V_MIN
+        hi = V_MIN * 1.15
+        while hi < vcap and feasible_steady(hi, kappa, grade, bank, p, mx, my, mt, out):
+            lo = hi
+            hi = hi * 1.15
+        if hi > vcap:
+            hi = vcap
+    while hi - lo > tol:
+        mid = 0.5 * (lo + hi)
+        if feasible_steady(mid, kappa, grade, bank, p, mx, my, mt, out):
+            lo = mid
+        else:
+            hi = mid
+    return lo
+
+
+@njit(cache=True, parallel=True)
+def corner_limits(kappa, grade, bank, vcap, p, mx, my, mt, tol, nchunks):
+    """Corner-speed limit [m/s] at every step; chunks run in parallel, each warm-started."""
+    n = kappa.shape[0]
+    vlim = np.empty(n)
+    size = (n + nchunks - 1) // nchunks
+    for c in prange(nchunks):
+        out = np.empty(NOUT)
+        guess = 0.0
+        start = c * size
+        stop = min(n, start + size)
+        for i in range(start, stop):
+            vl = corner_limit(kappa[i], grade[i], bank[i], guess, vcap, p, mx, my, mt, out, tol)
+            vlim[i] = vl
+            guess = vl
+    return vlim
+
+
+@njit(cache=True)
+def max_accel_control(v, kappa, grade, bank, p, gears, trpm, tnm, mx, my, mt, out, ftol):
+    """Largest drive control [N] at v that the powertrain gives and both axles carry."""
+    feng = engine_force(v, p, gears, trpm, tnm)
+    if _feasible_at(v, kappa, grade, bank, feng, p, mx, my, mt, out):
+        return feng
+    fs = steady_control(v, kappa, grade, bank, p, mx, my, mt, out)
+    if not (out[O_STATUS] == 0.0 and max_usage(out) <= 1.0):
+        return fs  # should not happen below the corner limit
+    return largest_feasible_control(v, kappa, grade, bank, fs, feng, p, mx, my, mt, out, ftol)
+
+
+@njit(cache=True)
+def max_decel_control(v, kappa, grade, bank, p, mx, my, mt, out, ftol):
+    """Smallest control [N] at v that both axles carry (most braking; positive when even
+    coasting would saturate an axle and a little throttle is needed)."""
+    fs = steady_control(v, kappa, grade, bank, p, mx, my, mt, out)
+    if not (out[O_STATUS] == 0.0 and max_usage(out) <= 1.0):
+        return fs
+    m = p[P_MASS]
+    f_lo = -4.0 * m * G - out[O_DOWNF] * 3.0
+    if _feasible_at(v, kappa, grade, bank, f_lo, p, mx, my, mt, out):
+        return f_lo
+    return largest_feasible_control(v, kappa, grade, bank, fs, f_lo, p, mx, my, mt, out, ftol)
+
+
+@njit(cache=True)
+def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, tnm, mx, my,
+                 mt, ftol):
+    """Forward (acceleration) and backward (braking) passes; returns the speed trace [m/s].
+
+    ``v_start`` is the speed at step 0 (NaN = the corner limit there); ``v_end`` the speed at
+    the last step (NaN = free).
+    """
+    n = kappa.shape[0]
+    out = np.empty(NOUT)
+    vf = np.empty(n)
+    vf[0] = vlim[0] if math.isnan(v_start) else min(v_start, vlim[0])
+    for i in range(n - 1):
+        vi = vf[i]
+        F = max_accel_control(vi, kappa[i], grade[i], bank[i], p, gears, trpm, tnm, mx, my,
+                              mt, out, ftol)
+        state_control(vi, kappa[i], grade[i], bank[i], F, p, mx, my, mt, out)
+        v2 = vi * vi + 2.0 * out[O_AX] * ds
+        vn = math.sqrt(v2) if v2 > 0.0 else 0.0
+        vf[i + 1] = vn if vn < vlim[i + 1] else vlim[i + 1]
+    vb = np.empty(n)
+    vb[n - 1] = vlim[n - 1] if math.isnan(v_end) else min(v_end, vlim[n - 1])
+    for i in range(n - 2, -1, -1):
+        vnext = vb[i + 1]
+        if vnext >= vlim[i] or vnext >= vf[i]:
+            # not braking into step i+1 from here: the limit (or the forward trace) rules
+            vb[i] = vlim[i]
+            continue
+        # implicit step: the deceleration is evaluated at this step's own speed, so the
+        # force the final pass reports here is the one that produced the trace
+        vp = vnext
+        for _ in range(4):
+            ve = vp if vp < vlim[i] else vlim[i]
+            F = max_decel_control(ve, kappa[i], grade[i], bank[i], p, mx, my, mt, out, ftol)
+            state_control(ve, kappa[i], grade[i], bank[i], F, p, mx, my, mt, out)
+            v2 = vnext * vnext - 2.0 * out[O_AX] * ds
+            vnew = math.sqrt(v2) if v2 > 0.0 else 0.0
+            done = abs(vnew - vp) < 1e-5
+            vp = vnew
+            if done or vp >= vlim[i]:
+                break
+        vb[i] = vp if vp < vlim[i] else vlim[i]
+    v = np.empty(n)
+    for i in range(n):
+        v[i] = vf[i] if vf[i] < vb[i] else vb[i]
+    return v
+
+
+NCH = 40  # channels written by final_pass per step
+
+
+@njit(cache=True, parallel=True)
+def final_pass(v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm, tnm, mx, my, mt,
+               ftol, ay_liftoff):
+    """Per-step force balance consistent with the speed trace, all load parts, usages,
+    limiting constraint, and the lift-off / coasting re-evaluation.
+
+    Returns (res, ctrl) where ``res[i, :NOUT]`` is the state (``O_*``) and the extra columns
+    are listed in :mod:`lapbalance.lap` (gear, rpm, engine force, limit code, lift-off...).
+    """
+    n = v.shape[0]
+    res = np.zeros((n, NOUT + NCH))
+    for i in prange(n):
+        out = np.empty(NOUT)
+        tmp = np.empty(NOUT)
+        vi = v[i]
+        if i < n - 1:
+            a_req = (v[i + 1] ** 2 - vi * vi) / (2.0 * ds)
+        elif not math.isnan(closed_tail):
+            a_req = (closed_tail ** 2 - vi * vi) / (2.0 * ds)
+        else:
+            a_req = (vi * vi - v[i - 1] ** 2) / (2.0 * ds) if n > 1 else 0.0
+        F = control_for_ax(vi, kappa[i], grade[i], bank[i], a_req, p, mx, my, mt, out)
+        feng = engine_force(vi, p, gears, trpm, tnm)
+        if F > feng:
+            F = feng
+        if not _feasible_at(vi, kappa[i], grade[i], bank[i], F, p, mx, my, mt, out):
+            fs = steady_control(vi, kappa[i], grade[i], bank[i], p, mx, my, mt, tmp)
+            if tmp[O_STATUS] == 0.0 and max_usage(tmp) <= 1.0:
+                F = largest_feasible_control(vi, kappa[i], grade[i], bank[i], fs, F, p, mx, my,
+                                             mt, tmp, ftol)
+            state_control(vi, kappa[i], grade[i], bank[i], F, p, mx, my, mt, out)
+        for k in range(NOUT):
+            res[i, k] = out[k]
+        g, rpm = gear_and_rpm(vi, p, gears)
+        c = NOUT
+        res[i, c + 0] = g + 1
+        res[i, c + 1] = rpm
+        res[i, c + 2] = F if F > 0.0 else 0.0  # drive force
+        res[i, c + 3] = -F if F < 0.0 else 0.0  # brake force
+        res[i, c + 4] = feng
+        lim = LIM_NONE
+        uf = out[O_UF]
+        ur = out[O_UR]
+        if uf >= 0.998 or ur >= 0.998:
+            lim = LIM_FRONT if uf >= ur else LIM_REAR
+        elif F > 0.0 and F >= feng * (1.0 - 1e-6):
+            lim = LIM_REV if rpm >= p[P_REVLIM] * (1.0 - 1e-3) else LIM_ENGINE
+        elif vi >= vcap * (1.0 - 1e-6):
+            lim = LIM_SPEEDCAP
+        res[i, c + 5] = lim
+        # lift-off: same speed and curvature, drive replaced by engine overrun
+        holds = F > 0.0 and abs(out[O_AY]) >= ay_liftoff
+        res[i, c + 6] = 1.0 if holds else 0.0
+        fo = overrun_force(vi, p, gears)
+        res[i, c + 7] = fo
+        if holds:
+            b_on = ur - uf
+            state(vi, kappa[i], grade[i], bank[i], -fo, 0.0, p, mx, my, mt, tmp)
+            res[i, c + 8] = (tmp[O_UR] - tmp[O_UF]) - b_on  # dB
+            res[i, c + 9] = tmp[O_FZF] - out[O_FZF]  # front-load shift
+            res[i, c + 10] = tmp[O_UF]
+            res[i, c + 11] = tmp[O_UR]
+            res[i, c + 12] = tmp[O_AX]
+            res[i, c + 13] = tmp[O_STATUS]
+            state(vi, kappa[i], grade[i], bank[i], 0.0, 0.0, p, mx, my, mt, tmp)
+            res[i, c + 14] = (tmp[O_UR] - tmp[O_UF]) - b_on
+            res[i, c + 15] = tmp[O_FZF] - out[O_FZF]
+            res[i, c + 16] = tmp[O_UF]
+            res[i, c + 17] = tmp[O_UR]
+            res[i, c + 18] = tmp[O_AX]
+        else:
+            for k in range(8, 19):
+                res[i, c + k] = math.nan
+    return res

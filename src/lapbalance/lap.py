@@ -1,0 +1,581 @@
+"""The lap solver: car and track in, :class:`LapResult` out.
+
+validate -> build float arrays -> call the numba kernels (:mod:`lapbalance.kernels`) -> wrap.
+Method (DESIGN.md): corner-speed limit per step (steady speed, both axles u <= 1), forward pass
+with the largest drive force the powertrain gives and both axles carry, backward pass with the
+fixed brake bias, speed = minimum of the three; closed laps start at the slowest point so the
+lap closes on itself. Each step's a_x comes from the force balance applied there.
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from lapbalance import kernels as _k
+from lapbalance.car import Car
+from lapbalance.errors import InfeasibleError, InputError, PhysicsWarning
+from lapbalance.kernels import corner_limits as _corner_limits_kernel
+from lapbalance.kernels import final_pass as _final_pass_kernel
+from lapbalance.kernels import speed_passes as _speed_passes_kernel
+from lapbalance.units import G0
+
+#: Names of the ``limit`` channel codes.
+LIMIT_NAMES = {
+    _k.LIM_NONE: "none",
+    _k.LIM_FRONT: "front",
+    _k.LIM_REAR: "rear",
+    _k.LIM_ENGINE: "engine",
+    _k.LIM_REV: "rev-limit",
+    _k.LIM_SPEEDCAP: "top-speed",
+}
+
+#: Default lateral-acceleration threshold for the lift-off check [m/s²]: ISO 9816 starts its
+#: power-off-in-a-turn runs from a steady turn at about 4 m/s² (REFERENCES.md §6b).
+LIFTOFF_AY_THRESHOLD = 4.0
+
+#: Speed tolerance of the corner-limit search [m/s] and force tolerance of the
+#: longitudinal searches [N] (DESIGN.md: stop at a tolerance that matters).
+SPEED_TOL = 1e-3
+FORCE_TOL = 0.5
+
+# Unit and meaning of every channel (name -> (unit, description)); DEVELOPERS.md glossary.
+CHANNELS: dict[str, tuple[str, str]] = {
+    "distance_m": ("m", "distance from the start line"),
+    "time_s": ("s", "elapsed time"),
+    "x_m": ("m", "position east"),
+    "y_m": ("m", "position north"),
+    "z_m": ("m", "elevation"),
+    "curvature_1pm": ("1/m", "path curvature, left positive"),
+    "grade_rad": ("rad", "road grade, uphill positive"),
+    "bank_rad": ("rad", "banking, left side lower positive"),
+    "corner_id": ("-", "corner number (0 = not in a corner)"),
+    "speed_mps": ("m/s", "speed"),
+    "speed_kph": ("km/h", "speed"),
+    "speed_limit_mps": ("m/s", "steady corner-speed limit at this step"),
+    "ax_mps2": ("m/s²", "longitudinal acceleration from the applied force balance"),
+    "ay_mps2": ("m/s²", "lateral acceleration the tyres supply (road plane, left positive)"),
+    "gear": ("-", "gear (1 = first)"),
+    "rpm": ("rpm", "engine speed"),
+    "drive_force_n": ("N", "drive force at the wheels"),
+    "brake_force_n": ("N", "brake force at the wheels"),
+    "engine_force_n": ("N", "largest drive force the powertrain gives at this speed"),
+    "rolling_resistance_n": ("N", "rolling resistance, all tyres"),
+    "drag_n": ("N", "aerodynamic drag"),
+    "downforce_n": ("N", "aerodynamic downforce (negative = lift)"),
+    "static_front_n": ("N", "weight on the front axle (normal component)"),
+    "static_rear_n": ("N", "weight on the rear axle (normal component)"),
+    "aero_front_n": ("N", "aero load on the front axle, CG convention"),
+    "aero_rear_n": ("N", "aero load on the rear axle, CG convention"),
+    "ground_transfer_n": ("N", "load moved to the rear by the ground forces, X·h/L"),
+    "lat_transfer_front_n": ("N", "lateral load transfer, front axle"),
+    "lat_transfer_rear_n": ("N", "lateral load transfer, rear axle"),
+    "fz_front_n": ("N", "front axle load"),
+    "fz_rear_n": ("N", "rear axle load"),
+    "fz_front_outer_n": ("N", "front outer-wheel load"),
+    "fz_front_inner_n": ("N", "front inner-wheel load"),
+    "fz_rear_outer_n": ("N", "rear outer-wheel load"),
+    "fz_rear_inner_n": ("N", "rear inner-wheel load"),
+    "wheel_lift_front": ("-", "1 when the front inner wheel lifts"),
+    "wheel_lift_rear": ("-", "1 when the rear inner wheel lifts"),
+    "fx_front_n": ("N", "front axle longitudinal demand"),
+    "fx_rear_n": ("N", "rear axle longitudinal demand"),
+    "fy_front_n": ("N", "front axle lateral demand"),
+    "fy_rear_n": ("N", "rear axle lateral demand"),
+    "usage_front": ("-", "front axle grip usage (friction ellipse)"),
+    "usage_rear": ("-", "rear axle grip usage"),
+    "balance_index": ("-", "usage_rear - usage_front (> 0 oversteer-leaning)"),
+    "aero_balance_front": ("-", "front share of downforce, CG convention"),
+    "aero_balance_front_ground": ("-", "front share as wheel-restrained scales read it"),
+    "ride_height_front_mm": ("mm", "front ride height"),
+    "ride_height_rear_mm": ("mm", "rear ride height"),
+    "floor_contact": ("-", "1 where a ride height reaches zero"),
+    "aero_map_outside": ("-", "1 where ride heights leave the aero map (extrapolated)"),
+    "limit": ("-", "limiting constraint code (see LIMIT_NAMES)"),
+    "liftoff_checked": ("-", "1 where the lift-off check applies (cornering on throttle)"),
+    "overrun_force_n": ("N", "engine-braking force at the wheels in the current gear"),
+    "liftoff_balance_shift": ("-", "balance index change on lift-off, B_off - B_on"),
+    "liftoff_front_load_shift_n": ("N", "front axle load change on lift-off"),
+    "liftoff_usage_front": ("-", "front usage after lift-off"),
+    "liftoff_usage_rear": ("-", "rear usage after lift-off"),
+    "liftoff_ax_mps2": ("m/s²", "longitudinal acceleration after lift-off"),
+    "coast_balance_shift": ("-", "balance index change when coasting (no engine braking)"),
+    "coast_front_load_shift_n": ("N", "front axle load change when coasting"),
+    "coast_usage_front": ("-", "front usage when coasting"),
+    "coast_usage_rear": ("-", "rear usage when coasting"),
+}
+
+
+@dataclass(frozen=True)
+class LapResult:
+    """Result of :func:`simulate_lap`.
+
+    Attributes
+    ----------
+    car, track : the inputs.
+    lap_time_s : float
+        Lap (or run) time. [s]
+    channels : dict of str -> numpy array
+        One value per track step; names carry their units (see :data:`CHANNELS`).
+    corners : list of dict
+        Per-corner table (see :func:`corner_table`), with lift-off fields once assessed.
+    sectors : list of dict
+        Sector start/end distance [m] and time [s].
+    """
+
+    car: Car
+    track: Any
+    lap_time_s: float
+    channels: dict[str, np.ndarray]
+    corners: list[dict] = field(default_factory=list)
+    sectors: list[dict] = field(default_factory=list)
+    settings: dict = field(default_factory=dict)
+
+    def limit_names(self) -> list[str]:
+        """The ``limit`` channel as names."""
+        return [LIMIT_NAMES[int(c)] for c in self.channels["limit"]]
+
+    def summary(self) -> dict:
+        """Plain-JSON summary (lap time, speeds, sectors, corners, settings)."""
+        ch = self.channels
+        v = ch["speed_mps"]
+        return {
+            "car": self.car.name,
+            "track": getattr(self.track, "name", ""),
+            "closed": bool(self.track.closed),
+            "length_m": float(self.track.length_m),
+            "lap_time_s": float(self.lap_time_s),
+            "top_speed_kph": float(v.max() * 3.6),
+            "min_speed_kph": float(v.min() * 3.6),
+            "mean_speed_kph": float(self.track.length_m / self.lap_time_s * 3.6),
+            "aero_balance_front_cg": _nan_none(self.car.aero.balance_cg),
+            "aero_balance_front_ground": _nan_none(self.car.aero.balance_ground(
+                self.car.chassis.cg_height, self.car.chassis.wheelbase)),
+            "air_density_kg_m3": float(self.car.air.density),
+            "sectors": self.sectors,
+            "corners": [{k: _jsonable(v) for k, v in c.items()} for c in self.corners],
+            "settings": {k: _jsonable(v) for k, v in self.settings.items()},
+            "caution": CAUTION,
+        }
+
+
+CAUTION = ("Quasi-static estimate: confirm every setup change with qualified engineers and "
+           "track testing, within the rules of the sanctioning body and local law.")
+
+
+def _nan_none(x):
+    x = float(x)
+    return None if not math.isfinite(x) else x
+
+
+def _jsonable(v):
+    if isinstance(v, np.generic):
+        v = v.item()
+    if isinstance(v, float):
+        return None if not math.isfinite(v) else v
+    return v
+
+
+def car_parameters(car: Car) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray,
+                                       np.ndarray, np.ndarray, np.ndarray]:
+    """Flatten a car into the kernel arrays (p, gears, torque rpm, torque Nm, map x, y, t)."""
+    ch, ae, ty, pt, su = car.chassis, car.aero, car.tyres, car.powertrain, car.suspension
+    p = np.zeros(_k.P_NPARAM)
+    p[_k.P_MASS] = ch.mass
+    p[_k.P_L] = ch.wheelbase
+    p[_k.P_A] = ch.a
+    p[_k.P_B] = ch.b
+    p[_k.P_H] = ch.cg_height
+    p[_k.P_TF] = ch.track_front
+    p[_k.P_TR] = ch.track_rear
+    p[_k.P_ZF] = su.roll_centre_front
+    p[_k.P_ZR] = su.roll_centre_rear
+    p[_k.P_KF] = su.roll_stiffness_front_share
+    p[_k.P_CLAF] = ae.front_area_cg
+    p[_k.P_CLAR] = ae.rear_area_cg
+    p[_k.P_CDA] = ae.drag_area
+    p[_k.P_RHO] = car.air.density
+    p[_k.P_CRR] = ty.rolling_resistance
+    for base, t in ((_k.P_MUXF, ty.front), (_k.P_MUXR, ty.rear)):
+        p[base + 0] = t.mu_longitudinal
+        p[base + 1] = t.k_longitudinal
+        p[base + 2] = t.mu_lateral
+        p[base + 3] = t.k_lateral
+        p[base + 4] = t.reference_load
+    p[_k.P_DRIVEF] = pt.front_drive_share
+    p[_k.P_BIASF] = car.brakes.bias_front
+    p[_k.P_ETA] = pt.efficiency
+    p[_k.P_RW] = pt.wheel_radius
+    p[_k.P_FINAL] = pt.final_drive
+    p[_k.P_SHIFT] = pt.shift_rpm
+    p[_k.P_REVLIM] = pt.rev_limit_rpm
+    p[_k.P_POWERMODE] = 1.0 if pt.mode == "power" else 0.0
+    p[_k.P_POWER] = pt.power
+    p[_k.P_FTMAX] = pt.max_tractive_force
+    p[_k.P_OVERRUN] = pt.overrun_torque
+    rh_f = su.static_ride_height_front
+    rh_r = su.static_ride_height_rear
+    p[_k.P_RHF0] = rh_f if rh_f is not None else math.nan
+    p[_k.P_RHR0] = rh_r if rh_r is not None else math.nan
+    p[_k.P_HEAVEF] = su.heave_rate_front
+    p[_k.P_HEAVER] = su.heave_rate_rear
+    amap = ae.aero_map
+    if amap is not None:
+        p[_k.P_USEMAP] = 1.0
+        mx = np.ascontiguousarray(amap.fine_rh_front_m, dtype=float)
+        my = np.ascontiguousarray(amap.fine_rh_rear_m, dtype=float)
+        mt = np.ascontiguousarray(np.stack([amap.fine_front_area_cg, amap.fine_rear_area_cg,
+                                            amap.fine_drag_area]), dtype=float)
+    else:
+        mx = np.zeros(2)
+        my = np.zeros(2)
+        mt = np.zeros((3, 2, 2))
+    gears = np.asarray(pt.gear_ratios, dtype=float)
+    trpm = np.asarray(pt.torque_curve_rpm or (0.0, 1.0), dtype=float)
+    tnm = np.asarray(pt.torque_curve_nm or (0.0, 0.0), dtype=float)
+    return p, gears, trpm, tnm, mx, my, mt
+
+
+def speed_cap(car: Car) -> float:
+    """Highest speed the car can reach [m/s]: the rev limiter in top gear."""
+    return car.powertrain.top_speed_rev_limited()
+
+
+def simulate_lap(car: Car, track, *, start_speed_kph: float | None = None,
+                 liftoff_ay_threshold: float = LIFTOFF_AY_THRESHOLD,
+                 assess_liftoff: bool = True) -> LapResult:
+    """Run ``car`` over ``track`` with the quasi-static solver.
+
+    Parameters
+    ----------
+    car : Car
+        The car (see :func:`lapbalance.load_car`).
+    track : Track
+        The track (see :func:`lapbalance.load_track`).
+    start_speed_kph : float, optional
+        Open tracks only: speed at the start line [km/h]; 0 (default) is a standing start.
+        Closed tracks always start at their slowest point so the lap closes on itself.
+    liftoff_ay_threshold : float
+        Lateral acceleration above which a step counts as cornering for the lift-off check.
+        [m/s²]
+    assess_liftoff : bool
+        Group lift-off results per corner (:mod:`lapbalance.liftoff`).
+
+    Returns
+    -------
+    LapResult
+    """
+    p, gears, trpm, tnm, mx, my, mt = car_parameters(car)
+    n = len(track.distance_m)
+    if n < 3:
+        raise InputError("track has fewer than 3 points after resampling", track.source)
+    ds = float(track.step_m)
+    kappa = np.ascontiguousarray(track.curvature_1pm, dtype=float)
+    grade = np.ascontiguousarray(track.grade_rad, dtype=float)
+    bank = np.ascontiguousarray(track.bank_rad, dtype=float)
+    for name, arr in (("curvature", kappa), ("grade", grade), ("bank", bank)):
+        if not np.all(np.isfinite(arr)):
+            raise InputError(f"track {name} has non-finite values", track.source)
+    vcap = speed_cap(car)
+    nchunks = 8 if n > 400 else 1
+    vlim = _corner_limits_kernel(kappa, grade, bank, vcap, p, mx, my, mt, SPEED_TOL, nchunks)
+    bad = np.flatnonzero(vlim <= 0.0)
+    if bad.size:
+        i = int(bad[0])
+        raise InfeasibleError(
+            f"the car cannot hold the track at {track.distance_m[i]:.0f} m even at "
+            f"{_k.V_MIN:g} m/s (radius {_radius(kappa[i])}, grade "
+            f"{math.degrees(grade[i]):.1f}°): grip too low or the car unloads an axle there; "
+            "raise tyres peak_friction or check the track and car", car.source or "car")
+    if track.closed:
+        start = int(np.argmin(vlim))
+        order = np.concatenate([np.arange(start, n), np.arange(0, start)])
+        ext = np.concatenate([order, order[:1]])
+        vtrace = _speed_passes_kernel(kappa[ext], grade[ext], bank[ext], vlim[ext], ds,
+                                      math.nan, float(vlim[start]), p, gears, trpm, tnm, mx,
+                                      my, mt, FORCE_TOL)
+        v = np.empty(n)
+        v[order] = vtrace[:n]
+        closed_tail_speed = None
+    else:
+        v0 = 0.0 if start_speed_kph is None else start_speed_kph / 3.6
+        v = _speed_passes_kernel(kappa, grade, bank, vlim, ds, v0, math.nan, p, gears, trpm,
+                                 tnm, mx, my, mt, FORCE_TOL)
+        closed_tail_speed = math.nan
+    if track.closed:
+        tail = float(v[0])
+    else:
+        tail = closed_tail_speed
+    res = _final_pass_kernel(v, kappa, grade, bank, ds, tail, vcap, p, gears, trpm, tnm, mx,
+                             my, mt, FORCE_TOL, liftoff_ay_threshold)
+    vnext = np.append(v[1:], v[0] if track.closed else v[-1])
+    vsum = v + vnext
+    if np.any(vsum[: n if track.closed else n - 1] <= 0.0):
+        raise InfeasibleError("the car does not move (zero drive force at standstill); check "
+                              "powertrain power/torque", car.source or "car",
+                              "powertrain")
+    dt = np.where(vsum > 0, 2.0 * ds / np.where(vsum > 0, vsum, 1.0), 0.0)
+    if not track.closed:
+        dt[-1] = 0.0
+    time = np.concatenate([[0.0], np.cumsum(dt)[:-1]])
+    lap_time = float(dt.sum())
+    ch = _channels(car, track, v, vlim, res, time)
+    if np.any(ch["floor_contact"] > 0):
+        first = float(track.distance_m[np.argmax(ch["floor_contact"] > 0)])
+        warnings.warn(f"the floor touches the ground at {int(np.sum(ch['floor_contact']))} "
+                      f"steps (first at {first:.0f} m); aero there is extrapolated",
+                      PhysicsWarning, stacklevel=2)
+    if np.any(ch["aero_map_outside"] > 0):
+        warnings.warn("ride heights leave the aero map's range at "
+                      f"{int(np.sum(ch['aero_map_outside']))} steps; the map is held at its "
+                      "edge there", PhysicsWarning, stacklevel=2)
+    if not np.all(np.isfinite(ch["speed_mps"])) or not math.isfinite(lap_time):
+        raise InfeasibleError("the solver produced non-finite speeds; check the car and track",
+                              car.source or "car")
+    sectors = _sectors(track, time, lap_time)
+    corners = corner_table(track, ch)
+    result = LapResult(car, track, lap_time, ch, corners, sectors,
+                       {"liftoff_ay_threshold_mps2": liftoff_ay_threshold,
+                        "step_m": ds, "speed_cap_mps": vcap,
+                        "start_speed_kph": start_speed_kph})
+    if assess_liftoff:
+        from lapbalance import liftoff
+
+        result = liftoff.assess(result)
+    return result
+
+
+def _radius(k):
+    return "straight" if abs(k) < 1e-9 else f"{1 / abs(k):.0f} m"
+
+
+def _channels(car: Car, track, v, vlim, res, time) -> dict[str, np.ndarray]:
+    K = _k
+    c = K.NOUT
+    ch: dict[str, np.ndarray] = {}
+    ch["distance_m"] = np.asarray(track.distance_m, float)
+    ch["time_s"] = time
+    ch["x_m"] = np.asarray(track.x_m, float)
+    ch["y_m"] = np.asarray(track.y_m, float)
+    ch["z_m"] = np.asarray(getattr(track, "z_m", np.zeros_like(v)), float)
+    ch["curvature_1pm"] = np.asarray(track.curvature_1pm, float)
+    ch["grade_rad"] = np.asarray(track.grade_rad, float)
+    ch["bank_rad"] = np.asarray(track.bank_rad, float)
+    cid = np.zeros(len(v))
+    for j, cr in enumerate(getattr(track, "corners", ()) or ()):
+        cid[_corner_mask(track, cr)] = j + 1
+    ch["corner_id"] = cid
+    ch["speed_mps"] = v
+    ch["speed_kph"] = v * 3.6
+    ch["speed_limit_mps"] = vlim
+    ch["ax_mps2"] = res[:, K.O_AX]
+    ch["ay_mps2"] = res[:, K.O_AY]
+    ch["gear"] = res[:, c + 0]
+    ch["rpm"] = res[:, c + 1]
+    ch["drive_force_n"] = res[:, c + 2]
+    ch["brake_force_n"] = res[:, c + 3]
+    ch["engine_force_n"] = res[:, c + 4]
+    ch["rolling_resistance_n"] = res[:, K.O_RR]
+    ch["drag_n"] = res[:, K.O_DRAG]
+    ch["downforce_n"] = res[:, K.O_DOWNF]
+    ch["static_front_n"] = res[:, K.O_STATF]
+    ch["static_rear_n"] = res[:, K.O_STATR]
+    ch["aero_front_n"] = res[:, K.O_AEROF]
+    ch["aero_rear_n"] = res[:, K.O_AEROR]
+    ch["ground_transfer_n"] = res[:, K.O_GT]
+    ch["lat_transfer_front_n"] = res[:, K.O_LATF]
+    ch["lat_transfer_rear_n"] = res[:, K.O_LATR]
+    ch["fz_front_n"] = res[:, K.O_FZF]
+    ch["fz_rear_n"] = res[:, K.O_FZR]
+    ch["fz_front_outer_n"] = res[:, K.O_FZFO]
+    ch["fz_front_inner_n"] = res[:, K.O_FZFI]
+    ch["fz_rear_outer_n"] = res[:, K.O_FZRO]
+    ch["fz_rear_inner_n"] = res[:, K.O_FZRI]
+    ch["wheel_lift_front"] = res[:, K.O_LIFTF]
+    ch["wheel_lift_rear"] = res[:, K.O_LIFTR]
+    ch["fx_front_n"] = res[:, K.O_FXF]
+    ch["fx_rear_n"] = res[:, K.O_FXR]
+    ch["fy_front_n"] = res[:, K.O_FYF]
+    ch["fy_rear_n"] = res[:, K.O_FYR]
+    ch["usage_front"] = res[:, K.O_UF]
+    ch["usage_rear"] = res[:, K.O_UR]
+    ch["balance_index"] = res[:, K.O_UR] - res[:, K.O_UF]
+    claf, clar, cda = res[:, K.O_CLAF], res[:, K.O_CLAR], res[:, K.O_CDA]
+    tot = claf + clar
+    with np.errstate(invalid="ignore", divide="ignore"):
+        ch["aero_balance_front"] = np.where(tot != 0, claf / tot, np.nan)
+        shift = cda * car.chassis.cg_height / car.chassis.wheelbase
+        ch["aero_balance_front_ground"] = np.where(tot != 0, (claf - shift) / tot, np.nan)
+    ch["ride_height_front_mm"] = res[:, K.O_RHF] * 1e3
+    ch["ride_height_rear_mm"] = res[:, K.O_RHR] * 1e3
+    with np.errstate(invalid="ignore"):
+        ch["floor_contact"] = ((res[:, K.O_RHF] <= 0) | (res[:, K.O_RHR] <= 0)).astype(float)
+    ch["aero_map_outside"] = res[:, K.O_MAPOUT]
+    ch["limit"] = res[:, c + 5]
+    ch["liftoff_checked"] = res[:, c + 6]
+    ch["overrun_force_n"] = res[:, c + 7]
+    ch["liftoff_balance_shift"] = res[:, c + 8]
+    ch["liftoff_front_load_shift_n"] = res[:, c + 9]
+    ch["liftoff_usage_front"] = res[:, c + 10]
+    ch["liftoff_usage_rear"] = res[:, c + 11]
+    ch["liftoff_ax_mps2"] = res[:, c + 12]
+    ch["coast_balance_shift"] = res[:, c + 14]
+    ch["coast_front_load_shift_n"] = res[:, c + 15]
+    ch["coast_usage_front"] = res[:, c + 16]
+    ch["coast_usage_rear"] = res[:, c + 17]
+    return ch
+
+
+def _corner_mask(track, cr) -> np.ndarray:
+    d = np.asarray(track.distance_m)
+    if cr.exit_m >= cr.entry_m:
+        return (d >= cr.entry_m) & (d <= cr.exit_m)
+    return (d >= cr.entry_m) | (d <= cr.exit_m)
+
+
+def _sectors(track, time, lap_time) -> list[dict]:
+    starts = list(getattr(track, "sector_starts_m", ()) or ())
+    if not starts:
+        L = track.length_m
+        starts = [0.0, L / 3, 2 * L / 3]
+    d = np.asarray(track.distance_m)
+    out = []
+    for j, s0 in enumerate(starts):
+        s1 = starts[j + 1] if j + 1 < len(starts) else track.length_m
+        t0 = float(np.interp(s0, d, time))
+        t1 = float(np.interp(s1, d, time)) if j + 1 < len(starts) else lap_time
+        out.append({"sector": j + 1, "start_m": float(s0), "end_m": float(s1),
+                    "time_s": t1 - t0})
+    return out
+
+
+def corner_table(track, ch: dict[str, np.ndarray]) -> list[dict]:
+    """Per-corner figures: min speed and where, limiting axle at the slowest point, balance.
+
+    Returns
+    -------
+    list of dict
+        id, direction, entry_m, apex_m, exit_m, min_radius_m, min_speed_kph,
+        min_speed_at_m, limiting_axle, balance_index_at_min, usage_front_at_min,
+        usage_rear_at_min, aero_balance_front_at_min, speed_at_apex_kph.
+    """
+    rows = []
+    d = ch["distance_m"]
+    for cr in getattr(track, "corners", ()) or ():
+        mask = _corner_mask(track, cr)
+        if not mask.any():
+            continue
+        idx = np.flatnonzero(mask)
+        j = idx[np.argmin(ch["speed_mps"][idx])]
+        lim = int(ch["limit"][j])
+        uf, ur = float(ch["usage_front"][j]), float(ch["usage_rear"][j])
+        axle = LIMIT_NAMES[lim] if lim in (_k.LIM_FRONT, _k.LIM_REAR) else (
+            "front" if uf >= ur else "rear")
+        rows.append({
+            "id": int(cr.id), "direction": cr.direction, "entry_m": float(cr.entry_m),
+            "apex_m": float(cr.apex_m), "exit_m": float(cr.exit_m),
+            "min_radius_m": float(cr.min_radius_m),
+            "min_speed_kph": float(ch["speed_mps"][j] * 3.6), "min_speed_at_m": float(d[j]),
+            "limiting_axle": axle, "balance_index_at_min": float(ch["balance_index"][j]),
+            "usage_front_at_min": uf, "usage_rear_at_min": ur,
+            "aero_balance_front_at_min": _nan_none(ch["aero_balance_front"][j]),
+            "speed_at_apex_kph": float(np.interp(cr.apex_m, d, ch["speed_mps"]) * 3.6),
+        })
+    return rows
+
+
+def steady_state(car: Car, speed: float, curvature: float = 0.0, grade: float = 0.0,
+                 bank: float = 0.0, ax: float = 0.0) -> dict[str, float]:
+    """Evaluate one quasi-static state (for checks and reports).
+
+    Parameters
+    ----------
+    car : Car
+    speed : float
+        [m/s]
+    curvature : float
+        [1/m], left positive.
+    grade, bank : float
+        [rad]
+    ax : float
+        Longitudinal acceleration to hold. [m/s²]
+
+    Returns
+    -------
+    dict
+        control force [N] and every state quantity (keys as the ``O_*`` names, lower case).
+    """
+    p, gears, trpm, tnm, mx, my, mt = car_parameters(car)
+    out = np.empty(_k.NOUT)
+    F = _k.control_for_ax(speed, curvature, grade, bank, ax, p, mx, my, mt, out)
+    names = {getattr(_k, n): n[2:].lower() for n in dir(_k) if n.startswith("O_")}
+    d = {names[i]: float(out[i]) for i in range(_k.NOUT)}
+    d["control_n"] = float(F)
+    d["g"] = G0
+    return d
+
+
+def limits_at(car: Car, speed: float, curvature: float = 0.0, grade: float = 0.0,
+              bank: float = 0.0) -> dict[str, float]:
+    """Longitudinal limits of one quasi-static state.
+
+    Parameters
+    ----------
+    car : Car
+    speed : float
+        [m/s]
+    curvature : float
+        [1/m], left positive.
+    grade, bank : float
+        [rad]
+
+    Returns
+    -------
+    dict
+        ``max_accel_mps2`` (largest a_x the powertrain and both axles give) [m/s²],
+        ``max_decel_mps2`` (largest deceleration with the fixed brake bias, positive) [m/s²],
+        ``engine_force_n``, ``max_drive_n``, ``min_control_n`` [N], ``corner_limit_mps``
+        (steady corner-speed limit at this curvature) [m/s].
+    """
+    p, gears, trpm, tnm, mx, my, mt = car_parameters(car)
+    out = np.empty(_k.NOUT)
+    fa = _k.max_accel_control(speed, curvature, grade, bank, p, gears, trpm, tnm, mx, my, mt,
+                              out, FORCE_TOL)
+    _k.state_control(speed, curvature, grade, bank, fa, p, mx, my, mt, out)
+    a_acc = float(out[_k.O_AX])
+    fb = _k.max_decel_control(speed, curvature, grade, bank, p, mx, my, mt, out, FORCE_TOL)
+    _k.state_control(speed, curvature, grade, bank, fb, p, mx, my, mt, out)
+    a_brk = -float(out[_k.O_AX])
+    vl = _k.corner_limit(curvature, grade, bank, 0.0, speed_cap(car), p, mx, my, mt, out,
+                         SPEED_TOL)
+    return {"max_accel_mps2": a_acc, "max_decel_mps2": a_brk,
+            "engine_force_n": float(_k.engine_force(speed, p, gears, trpm, tnm)),
+            "max_drive_n": float(fa), "min_control_n": float(fb), "corner_limit_mps": float(vl)}
+
+
+def evaluate_forces(car: Car, speed: float, curvature: float = 0.0, grade: float = 0.0,
+                    bank: float = 0.0, drive_n: float = 0.0, brake_n: float = 0.0
+                    ) -> dict[str, float]:
+    """Evaluate one state with given forces at the wheels.
+
+    Parameters
+    ----------
+    drive_n : float
+        Drive force split by the torque split; negative = engine overrun. [N]
+    brake_n : float
+        Brake force (>= 0) split by the brake bias. [N]
+
+    Returns
+    -------
+    dict
+        Every state quantity (keys as the ``O_*`` names in lower case, SI units).
+    """
+    p, gears, trpm, tnm, mx, my, mt = car_parameters(car)
+    out = np.empty(_k.NOUT)
+    _k.state(speed, curvature, grade, bank, drive_n, brake_n, p, mx, my, mt, out)
+    names = {getattr(_k, n): n[2:].lower() for n in dir(_k) if n.startswith("O_")}
+    return {names[i]: float(out[i]) for i in range(_k.NOUT)}

@@ -1,0 +1,79 @@
+"""Shared test helpers: analytic tracks and programmatic cars (no check values here)."""
+
+from __future__ import annotations
+
+import copy
+import math
+from types import SimpleNamespace
+
+import numpy as np
+
+from lapbalance.car import car_from_dict
+
+
+def analytic_track(curvature, ds=1.0, closed=False, grade=None, bank=None, name="analytic",
+                   corners=()):
+    """A Track-like object with exact curvature/grade/bank arrays (no resampling)."""
+    k = np.asarray(curvature, float)
+    n = len(k)
+    th = np.concatenate([[0.0], np.cumsum(k[:-1]) * ds])
+    x = np.concatenate([[0.0], np.cumsum(np.cos(th[:-1])) * ds])
+    y = np.concatenate([[0.0], np.cumsum(np.sin(th[:-1])) * ds])
+    length = n * ds if closed else (n - 1) * ds
+    return SimpleNamespace(
+        name=name, source=name, closed=closed, step_m=ds, length_m=length,
+        distance_m=np.arange(n) * ds, x_m=x, y_m=y, z_m=np.zeros(n), curvature_1pm=k,
+        grade_rad=np.zeros(n) if grade is None else np.broadcast_to(grade, n).astype(float),
+        bank_rad=np.zeros(n) if bank is None else np.broadcast_to(bank, n).astype(float),
+        width_m=np.full(n, np.nan), corners=tuple(corners), sector_starts_m=())
+
+
+def circle(radius, ds=1.0, left=True):
+    """Closed circle of ``radius`` [m] with exact constant curvature."""
+    length = 2 * math.pi * radius
+    n = int(round(length / ds))
+    ds = length / n
+    return analytic_track(np.full(n, (1 if left else -1) / radius), ds=ds, closed=True,
+                          name=f"circle R{radius:g}")
+
+
+def straight(length, ds=1.0):
+    """Open straight of ``length`` [m]."""
+    n = int(round(length / ds)) + 1
+    return analytic_track(np.zeros(n), ds=length / (n - 1), closed=False, name="straight")
+
+
+BASE_CAR = {
+    "name": "test car",
+    "chassis": {"mass_kg": 1200.0, "wheelbase_m": 2.6, "front_weight_fraction": 1.4 / 2.6,
+                "cg_height_m": 0.5, "track_front_m": 1.6, "track_rear_m": 1.58},
+    "aero": {"downforce_area_m2": 0.0, "drag_area_m2": 0.0, "balance_convention": "cg"},
+    "tyres": {"rolling_resistance": 0.0,
+              "front": {"peak_friction": 1.4, "load_sensitivity": 0.0},
+              "rear": {"peak_friction": 1.4, "load_sensitivity": 0.0}},
+    "powertrain": {"drive": "rear", "power_kw": 400.0, "gear_ratios": [1.0],
+                   "final_drive": 1.0, "wheel_radius_m": 0.3, "efficiency": 1.0,
+                   "shift_rpm": 20000.0, "max_tractive_force_n": 1e5},
+    "brakes": {"bias_front": 0.6},
+    "suspension": {"roll_stiffness_front_share": 0.6, "roll_centre_height_front_m": 0.05,
+                   "roll_centre_height_rear_m": 0.10},
+    "air": {"density_kg_m3": 1.225},
+}
+
+
+def make_car(**sections):
+    """BASE_CAR with per-section updates: make_car(aero={...}, chassis={...})."""
+    raw = copy.deepcopy(BASE_CAR)
+    for sec, upd in sections.items():
+        if sec == "name":
+            raw["name"] = upd
+            continue
+        target = raw[sec]
+        for k, v in upd.items():
+            if isinstance(v, dict):
+                target.setdefault(k, {}).update(v)
+            elif v is None:
+                target.pop(k, None)
+            else:
+                target[k] = v
+    return car_from_dict(raw, "test car")
