@@ -26,7 +26,20 @@ CONVENTIONS = ("cg", "ground", "restraint")
 
 
 def dynamic_pressure(air_density, speed):
-    r"""Dynamic pressure q = ½ rho v² [Pa] from density [kg/m³] and speed [m/s]."""
+    r"""Dynamic pressure q = ½ rho v².
+
+    Parameters
+    ----------
+    air_density : float or array
+        Air density. [kg/m³]
+    speed : float or array
+        Air speed relative to the car. [m/s]
+
+    Returns
+    -------
+    float or array
+        Dynamic pressure. [Pa]
+    """
     return 0.5 * air_density * np.square(speed)
 
 
@@ -76,18 +89,25 @@ def to_cg_convention(front, rear, drag, cg_height, wheelbase, convention="ground
     tuple
         (front, rear) in the CG convention. [N]; the total is unchanged.
     """
+    if convention not in CONVENTIONS:
+        raise ValueError(f"unknown convention {convention!r}; valid: {', '.join(CONVENTIONS)}")
     if convention == "cg":
         return front, rear
     z = 0.0 if convention == "ground" else restraint_height
-    if convention not in CONVENTIONS:
-        raise ValueError(f"unknown convention {convention!r}; valid: {', '.join(CONVENTIONS)}")
     d = restraint_shift(drag, cg_height, wheelbase, z)
     return front + d, rear - d
 
 
 def from_cg_convention(front, rear, drag, cg_height, wheelbase, convention="ground",
                        restraint_height=0.0):
-    """Inverse of :func:`to_cg_convention`: what scales restrained that way would read [N]."""
+    """Inverse of :func:`to_cg_convention`: what scales restrained that way would read.
+
+    Parameters and units as :func:`to_cg_convention`; ``front``, ``rear`` are in the CG
+    convention [N] (or areas [m²] with ``drag`` as a drag area), the result is the split that
+    a balance restrained per ``convention`` would read, in the same unit.
+    """
+    if convention not in CONVENTIONS:
+        raise ValueError(f"unknown convention {convention!r}; valid: {', '.join(CONVENTIONS)}")
     if convention == "cg":
         return front, rear
     z = 0.0 if convention == "ground" else restraint_height
@@ -100,8 +120,18 @@ def j1594_axle_lift_coefficients(lift_coefficient, pitch_moment_coefficient):
 
     .. math:: C_{LF} = C_L/2 + C_{PM}, \quad C_{LR} = C_L/2 - C_{PM}
 
-    ``pitch_moment_coefficient`` is taken about the ground-level mid-wheelbase point, nose-up
-    positive, reference length = wheelbase [2]. Lift coefficients are positive up. [-]
+    Parameters
+    ----------
+    lift_coefficient : float or array
+        Total lift coefficient C_L, positive up. [-]
+    pitch_moment_coefficient : float or array
+        C_PM about the ground-level mid-wheelbase point, nose-up positive, reference length
+        = wheelbase [2]. [-]
+
+    Returns
+    -------
+    tuple
+        (C_LF, C_LR), axle lift coefficients, positive up, ground-referenced. [-]
     """
     return (lift_coefficient / 2 + pitch_moment_coefficient,
             lift_coefficient / 2 - pitch_moment_coefficient)
@@ -114,7 +144,18 @@ def j1594_total_and_moment(front_lift_coefficient, rear_lift_coefficient):
 
 
 def balance(front, rear):
-    """Front share of the total downforce [-]; NaN when the total is zero."""
+    """Aero balance: front share of the total downforce; NaN when the total is zero.
+
+    Parameters
+    ----------
+    front, rear : float or array
+        Front and rear axle downforce (or downforce areas), same convention. [N] or [m²]
+
+    Returns
+    -------
+    float or array
+        front / (front + rear). [-]
+    """
     total = front + rear
     with np.errstate(invalid="ignore", divide="ignore"):
         return np.where(total != 0, front / np.where(total != 0, total, 1.0), np.nan) \

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import math
 import re
+from pathlib import Path
 
 import click
 
@@ -140,6 +141,14 @@ def tunnel_command(readings, car_file, overrides, front_n, rear_n, drag_n, cg_te
     if out_path:
         raise click.UsageError("--out is for the table form (READINGS.csv --car CAR.toml)")
 
+    coeff = any(v is not None for v in (cl, cpm, clf, clr))
+    cfd = lift_n is not None or pitch_moment_nm is not None
+    forces = front_n is not None or rear_n is not None
+    if sum((coeff, cfd, forces)) != 1:
+        raise click.UsageError("give exactly one input form: --front-n/--rear-n, "
+                               "coefficients (--cl/--cpm or --clf/--clr), CFD "
+                               "(--lift-n/--pitch-moment-nm), or a READINGS.csv with --car")
+
     # geometry ---------------------------------------------------------------------------
     if cg_text is not None:
         h, h_lo, h_hi = parse_height_band(cg_text)
@@ -153,14 +162,7 @@ def tunnel_command(readings, car_file, overrides, front_n, rear_n, drag_n, cg_te
     if drag_height_m is None and car is not None:
         drag_height_m = car.aero.drag_height
 
-    # which input form --------------------------------------------------------------------
-    coeff = any(v is not None for v in (cl, cpm, clf, clr))
-    cfd = lift_n is not None or pitch_moment_nm is not None
-    forces = front_n is not None or rear_n is not None
-    if sum((coeff, cfd, forces)) != 1:
-        raise click.UsageError("give exactly one input form: --front-n/--rear-n, "
-                               "coefficients (--cl/--cpm or --clf/--clr), or CFD "
-                               "(--lift-n/--pitch-moment-nm)")
+    # input form ---------------------------------------------------------------------------
     z = restraint_height_m
     if forces:
         if front_n is None or rear_n is None or drag_n is None:
@@ -226,8 +228,6 @@ def _table_form(readings, car, restraint_height_m, drag_height_m, out_path, forc
     if car is None:
         raise click.UsageError("the table form needs --car CAR.toml (CG height, wheelbase)")
     if out_path and not force:
-        from pathlib import Path
-
         if Path(out_path).exists():
             raise InputError(f"{out_path} already exists; pass --force to replace it or "
                              "choose another --out", "--out")
