@@ -248,6 +248,10 @@ def test_cli_table_writes_and_refuses_overwrite(tmp_path):
     res = run(*args, "--force")
     assert res.exit_code == 0
     assert out.read_text() == text
+    # the tunnel's air density sets the areas: drag area of the demo sweep is 0.8 m² at 1.18
+    res = run(*args, "--force", "--air-density", 1.18, "--json")
+    cols = json.loads(res.output)
+    np.testing.assert_allclose(cols["drag_area_m2"], 0.8, rtol=0.005)
 
 
 @pytest.mark.parametrize("args, match", [

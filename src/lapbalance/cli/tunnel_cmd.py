@@ -100,8 +100,8 @@ def _print_reading(r: tunnel.CorrectedReading, measured_label: str, band=None):
 @click.option("--frontal-area-m2", type=float, help="Reference area for coefficients [m²].")
 @click.option("--speed-kph", type=float, help="Air speed for coefficients [km/h].")
 @click.option("--air-density", type=float,
-              help="Air density for coefficients [kg/m³] (default: the car's, else ISO 2533 "
-                   "sea level 1.225).")
+              help="Air density in the tunnel [kg/m³], for coefficients and for the areas of "
+                   "a table (default: the car's, else ISO 2533 sea level 1.225).")
 @click.option("--lift-n", type=float, help="CFD total lift, positive up [N].")
 @click.option("--pitch-moment-nm", type=float,
               help="CFD pitching moment about the reference point, nose-up positive [N·m].")
@@ -135,8 +135,8 @@ def tunnel_command(readings, car_file, overrides, front_n, rear_n, drag_n, cg_te
     if overrides and car is None:
         raise click.UsageError("--set needs --car")
     if readings:
-        _table_form(readings, car, restraint_height_m, drag_height_m, out_path, force,
-                    as_json)
+        _table_form(readings, car, restraint_height_m, drag_height_m, air_density, out_path,
+                    force, as_json)
         return
     if out_path:
         raise click.UsageError("--out is for the table form (READINGS.csv --car CAR.toml)")
@@ -224,7 +224,8 @@ def tunnel_command(readings, car_file, overrides, front_n, rear_n, drag_n, cg_te
     _print_reading(res, label, band)
 
 
-def _table_form(readings, car, restraint_height_m, drag_height_m, out_path, force, as_json):
+def _table_form(readings, car, restraint_height_m, drag_height_m, air_density, out_path,
+                force, as_json):
     if car is None:
         raise click.UsageError("the table form needs --car CAR.toml (CG height, wheelbase)")
     if out_path and not force:
@@ -233,8 +234,11 @@ def _table_form(readings, car, restraint_height_m, drag_height_m, out_path, forc
                              "choose another --out", "--out")
     tab = tunnel.read_readings(readings)
     dh = drag_height_m if drag_height_m is not None else car.aero.drag_height
+    rho = air_density if air_density is not None else car.air.density
+    if not 0.3 <= rho <= 1.6:
+        raise InputError(f"= {rho:g} kg/m³ is not physical (0.3 to 1.6)", "--air-density")
     cols = tunnel.correct_table(tab, car.chassis.cg_height, car.chassis.wheelbase,
-                                restraint_height_m, car.air.density, dh)
+                                restraint_height_m, rho, dh)
     if out_path:
         write_text_atomic(out_path, columns_csv_text(cols))
     if as_json:
@@ -244,7 +248,7 @@ def _table_form(readings, car, restraint_height_m, drag_height_m, out_path, forc
         return
     click.echo(f"{car.name}: CG height {car.chassis.cg_height:g} m, wheelbase "
                f"{car.chassis.wheelbase:g} m, restraint height {restraint_height_m:g} m, "
-               f"air {car.air.density:.4g} kg/m³")
+               f"tunnel air {rho:.4g} kg/m³ (for the areas)")
     show = [k for k in ("speed_kph", "front_n_measured", "rear_n_measured", "drag_n",
                         "front_n_cg", "rear_n_cg", "balance_front_measured",
                         "balance_front_cg", "centre_of_pressure_m") if k in cols]
