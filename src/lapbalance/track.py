@@ -796,7 +796,6 @@ def detect_corners(distance_m, curvature_1pm, closed, on_1pm: float = CORNER_ON_
     if n < 2:
         return ()
     ds = (d[-1] - d[0]) / (n - 1)
-    length = n * ds if closed else d[-1]
     shift = 0
     if closed:
         quiet = np.flatnonzero(np.abs(k) < off_1pm)
@@ -845,5 +844,4 @@ def detect_corners(distance_m, curvature_1pm, closed, on_1pm: float = CORNER_ON_
         corners.sort(key=lambda c: c.entry_m)
         corners = [Corner(i + 1, c.direction, c.entry_m, c.apex_m, c.exit_m, c.min_radius_m)
                    for i, c in enumerate(corners)]
-    del length
     return tuple(corners)
