@@ -75,10 +75,11 @@ MIN_RADIUS_M = 3.0
 MAX_BANK_DEG = 60.0
 #: ``bank_deg`` values all below this (and not all zero) look like radians. [deg]
 BANK_RADIANS_HINT_DEG = 0.35
-#: Largest grade accepted between points more than ``GRADE_MIN_DZ_M`` apart in height.
-#: Common practice: the steepest public roads are about 35 % for short stretches. [-]
+#: Largest grade accepted, measured over ``GRADE_SPAN_M`` of road (so that elevation noise of a
+#: logged trace does not trip it). Common practice: the steepest public roads are about 35 %
+#: over short stretches. [-], [m]
 MAX_GRADE = 0.35
-GRADE_MIN_DZ_M = 0.5
+GRADE_SPAN_M = 20.0
 #: Gaussian low-pass on curvature for a clean trace (standard deviation). [m]
 CLEAN_CURVATURE_SIGMA_M = 2.0
 #: Gaussian low-pass on elevation before the grade is taken (standard deviation). [m]
@@ -469,17 +470,17 @@ def _where(rows, k: int) -> str:
     return f"line {rows[k]}" if rows is not None else f"point {k}"
 
 
-def _estimate_noise(x: np.ndarray, y: np.ndarray, u: np.ndarray, closed: bool) -> float:
-    """Position noise from leave-one-out cubic prediction residuals (robust MAD). [m]"""
+def _loo_prediction(u: np.ndarray, cols: list[np.ndarray], closed: bool, period: float):
+    """Leave-one-out cubic prediction of each point from its two neighbours on each side.
+
+    Returns the extended columns, the predictions at the interior points and the noise gain
+    ``sqrt(1 + sum w²)`` of the prediction residual for white noise.
+    """
     if closed:
-        period = u[-1] + math.hypot(x[-1] - x[0], y[-1] - y[0])
         ue = np.concatenate([u[-2:] - period, u, u[:2] + period])
-        xe = np.concatenate([x[-2:], x, x[:2]])
-        ye = np.concatenate([y[-2:], y, y[:2]])
+        cols = [np.concatenate([c[-2:], c, c[:2]]) for c in cols]
     else:
-        ue, xe, ye = u, x, y
-    if ue.size < 5:
-        return 0.0
+        ue = u
     t = ue[2:-2]
     nodes = [ue[:-4], ue[1:-3], ue[3:-1], ue[4:]]
     w = []
@@ -491,16 +492,43 @@ def _estimate_noise(x: np.ndarray, y: np.ndarray, u: np.ndarray, closed: bool) -
                 num = num * (t - nodes[b])
                 den = den * (nodes[a] - nodes[b])
         w.append(num / den)
-    px = w[0] * xe[:-4] + w[1] * xe[1:-3] + w[2] * xe[3:-1] + w[3] * xe[4:]
-    py = w[0] * ye[:-4] + w[1] * ye[1:-3] + w[2] * ye[3:-1] + w[3] * ye[4:]
+    preds = [w[0] * c[:-4] + w[1] * c[1:-3] + w[2] * c[3:-1] + w[3] * c[4:] for c in cols]
     gain = np.sqrt(1.0 + sum(wi**2 for wi in w))
+    return cols, preds, gain
+
+
+def _mad_sigma(r: np.ndarray) -> float:
+    return float(1.4826 * np.median(np.abs(r - np.median(r))))
+
+
+def _estimate_noise(x: np.ndarray, y: np.ndarray, u: np.ndarray, closed: bool) -> float:
+    """Position noise across the path from leave-one-out cubic residuals (robust MAD). [m]"""
+    if u.size < 5:
+        return 0.0
+    period = u[-1] + math.hypot(x[-1] - x[0], y[-1] - y[0])
+    (xe, ye), (px, py), gain = _loo_prediction(u, [x, y], closed, period)
     # only the residual across the path: noise along the path is absorbed by the chord
     # parameter, which is itself built from the noisy points
     tx, ty = xe[3:-1] - xe[1:-3], ye[3:-1] - ye[1:-3]
     tn = np.hypot(tx, ty)
     tn[tn == 0.0] = 1.0
-    r = ((xe[2:-2] - px) * ty - (ye[2:-2] - py) * tx) / tn / gain
-    return float(1.4826 * np.median(np.abs(r - np.median(r))))
+    return _mad_sigma(((xe[2:-2] - px) * ty - (ye[2:-2] - py) * tx) / tn / gain)
+
+
+def _elevation_sigma(z: np.ndarray, u: np.ndarray, closed: bool, gap: float,
+                     spacing_m: float) -> float:
+    """Gaussian low-pass width for elevation, widened for a noisy elevation trace. [m]
+
+    The grade noise of Gaussian-smoothed white noise (standard deviation ``s_z`` at spacing
+    ``h``) is ``sqrt(s_z² h / (4 sqrt(pi) sigma³))``; sigma is chosen so that it stays near
+    0.5 % grade, never below ``ELEVATION_SIGMA_M``. Engineering judgement.
+    """
+    if u.size < 5:
+        return ELEVATION_SIGMA_M
+    (ze,), (pz,), gain = _loo_prediction(u, [z], closed, u[-1] + gap)
+    s_z = _mad_sigma((ze[2:-2] - pz) / gain)
+    sig = (s_z**2 * spacing_m / (4.0 * math.sqrt(math.pi) * 0.005**2)) ** (1.0 / 3.0)
+    return max(ELEVATION_SIGMA_M, sig)
 
 
 def _smoothing_windows(noise_m: float, spacing_m: float) -> tuple[float, float]:
@@ -640,11 +668,12 @@ def _build(x, y, z, bank_deg, width, *, closed, step_m, name, source, sector_sta
     period_u = u[-1] + gap if closed else None
     zi = _interp(z, u, u_at, period_u) if z is not None else np.zeros(n)
     if z is not None:
+        sig_z = _elevation_sigma(z, u, closed, gap, med)
         if closed:
-            zs = gaussian_filter1d(zi, ELEVATION_SIGMA_M / ds, mode="wrap", truncate=4.0)
+            zs = gaussian_filter1d(zi, sig_z / ds, mode="wrap", truncate=4.0)
             dz = (np.roll(zs, -1) - np.roll(zs, 1)) / (2.0 * ds)
         else:
-            zs = _smooth_open(zi, ELEVATION_SIGMA_M / ds)
+            zs = _smooth_open(zi, sig_z / ds)
             dz = np.gradient(zs, ds)
         grade = np.arctan(dz)
     else:
@@ -668,8 +697,12 @@ def _smooth_open(a: np.ndarray, sigma: float) -> np.ndarray:
     pad = min(int(4.0 * sigma) + 1, a.size - 1)
     if pad < 1:
         return a.copy()
-    left = 2.0 * a[0] - a[pad:0:-1]
-    right = 2.0 * a[-1] - a[-2:-pad - 2:-1]
+    # reflect about a straight-line fit of the end stretch, not the (noisy) end point
+    m = np.arange(pad + 1, dtype=float)
+    c0 = np.polyfit(m, a[:pad + 1], 1)
+    c1 = np.polyfit(m, a[-1:-pad - 2:-1], 1)
+    left = 2.0 * c0[1] - a[pad:0:-1]
+    right = 2.0 * c1[1] - a[-2:-pad - 2:-1]
     ext = np.concatenate([left, a, right])
     return gaussian_filter1d(ext, sigma, mode="nearest", truncate=4.0)[pad:pad + a.size]
 
@@ -724,20 +757,29 @@ def _check_bank(bank_deg, src, rows):
 
 
 def _check_grade(z, u, closed, gap, src, rows):
-    dz = np.diff(z)
-    du = np.diff(u)
+    """Error on an elevation step steeper than MAX_GRADE over GRADE_SPAN_M of road."""
+    uu, zz = u, z
     if closed:
-        dz = np.append(dz, z[0] - z[-1])
-        du = np.append(du, gap)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        g = np.abs(dz) / du
-    bad = np.flatnonzero((g > MAX_GRADE) & (np.abs(dz) > GRADE_MIN_DZ_M))
+        uu = np.append(u, u[-1] + gap)
+        zz = np.append(z, z[0])
+    j = np.searchsorted(uu, uu + GRADE_SPAN_M)
+    ok = j < uu.size
+    i = np.flatnonzero(ok)
+    if i.size == 0:
+        i, j = np.array([0]), np.array([uu.size - 1])
+    else:
+        j = j[ok]
+    g = np.abs(zz[j] - zz[i]) / (uu[j] - uu[i])
+    bad = np.flatnonzero(g > MAX_GRADE)
     if bad.size:
-        k = int(bad[0])
-        row = (k + 1) % z.size
-        raise InputError(f"z_m changes by {dz[k]:+.1f} m over {du[k]:.1f} m (grade "
-                         f"{100 * g[k]:.0f} %, above {100 * MAX_GRADE:.0f} %); check the "
-                         "elevation unit (metres) and the row", src, _where(rows, row))
+        a, b = int(i[bad[0]]), int(j[bad[0]])
+        k = a + int(np.argmax(np.abs(np.diff(zz[a:b + 1]))))  # steepest step in the span
+        dz, du = zz[k + 1] - zz[k], uu[k + 1] - uu[k]
+        raise InputError(f"z_m changes by {zz[b] - zz[a]:+.1f} m over {uu[b] - uu[a]:.0f} m "
+                         f"(grade {100 * g[bad[0]]:.0f} %, above {100 * MAX_GRADE:.0f} %; "
+                         f"steepest step {dz:+.1f} m over {du:.1f} m here); check the "
+                         "elevation unit (metres) and the row", src,
+                         _where(rows, (k + 1) % z.size))
 
 
 def _sectors(starts, length, src):
