@@ -11,7 +11,14 @@ Point layout
   with point 0 and is not stored;
 * open track: ``N`` points from 0 to ``length`` inclusive, ``ds = length / (N - 1)``.
 
-``N`` is chosen so that ``ds`` is as close as possible to the requested step.
+``N`` is chosen so that ``ds`` is as close as possible to the requested step. Distance is
+measured along the horizontal centreline (x, y); elevation enters only through the grade.
+
+A track is closed when the file or the caller says so, else when its ends are closer than
+``max(3 x median spacing, 10 m)``; a last point that repeats the first is dropped.
+
+Corners are numbered in order of their entry from the start line; on a closed track a corner
+that runs over the start line (``exit_m < entry_m``) enters last, so it carries the last id.
 
 CSV format
 ----------
