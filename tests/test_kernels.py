@@ -56,8 +56,8 @@ def test_corner_limit_compiled_equals_python():
     p, gears, trpm, tnm, mx, my, mt = _args(car)
     out = np.empty(K.NOUT)
     vcap = 90.0
-    a = K.corner_limit(1 / 60.0, 0.0, 0.0, 0.0, vcap, p, mx, my, mt, out, 1e-3)
-    b = K.corner_limit.py_func(1 / 60.0, 0.0, 0.0, 0.0, vcap, p, mx, my, mt, out, 1e-3)
+    a = K.corner_limit(1 / 60.0, 0.0, 0.0, 0.0, 0.0, vcap, p, mx, my, mt, out, 1e-3)
+    b = K.corner_limit.py_func(1 / 60.0, 0.0, 0.0, 0.0, 0.0, vcap, p, mx, my, mt, out, 1e-3)
     assert a == pytest.approx(b, rel=1e-12)
     assert 0 < a < vcap and math.isfinite(a)
 
@@ -79,3 +79,27 @@ def test_engine_force_and_gears():
     # above the rev limit in top gear: no drive
     v_lim = 7500.0 * 2 * math.pi / 60 * 0.3 / 3.0
     assert K.engine_force(v_lim * 1.01, p, gears, trpm, tnm) == 0.0
+
+
+def test_warm_started_corner_limits_equal_independent_searches():
+    # Source: the warm start and the curvature-monotonicity shortcut must not change the
+    # answer: compare with a search from scratch at every 25th step (tolerance 2e-3 m/s, two
+    # search tolerances).
+    from pathlib import Path
+
+    from lapbalance.car import load_car
+    from lapbalance.track import load_track
+
+    root = Path(__file__).resolve().parents[1]
+    car = load_car(root / "examples" / "gt_coupe.toml")
+    tr = load_track(root / "tracks" / "skarhelm_climb.csv")
+    p, gears, trpm, tnm, mx, my, mt = car_parameters(car)
+    vcap = car.powertrain.top_speed_rev_limited()
+    k, g, b = tr.curvature_1pm, tr.grade_rad, tr.bank_rad
+    warm = K.corner_limits(k, g, b, vcap, p, mx, my, mt, 1e-3, 1)
+    chunked = K.corner_limits(k, g, b, vcap, p, mx, my, mt, 1e-3, 7)
+    out = np.empty(K.NOUT)
+    for i in range(0, len(k), 25):
+        cold = K.corner_limit(k[i], g[i], b[i], 0.0, 0.0, vcap, p, mx, my, mt, out, 1e-3)
+        assert warm[i] == pytest.approx(cold, abs=2e-3)
+        assert chunked[i] == pytest.approx(cold, abs=2e-3)

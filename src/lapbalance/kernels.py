@@ -293,10 +293,7 @@ def control_for_ax(v, kappa, grade, bank, ax, p, mx, my, mt, out):
     """
     m = p[P_MASS]
     if p[P_USEMAP] == 0.0:
-        q = 0.5 * p[P_RHO] * v * v
-        a_c, a_y, g_n = road_accelerations(v, kappa, grade, bank)
-        F = (m * ax + q * p[P_CDA] + p[P_CRR] * (m * g_n + q * (p[P_CLAF] + p[P_CLAR]))
-             + m * G * math.sin(grade))
+        F = m * ax + _resistance_nomap(v, kappa, grade, bank, p)
         state_control(v, kappa, grade, bank, F, p, mx, my, mt, out)
         return F
     F = 0.0
@@ -349,16 +346,34 @@ def overrun_force(v, p, gears):
 
 
 @njit(cache=True)
+def _resistance_nomap(v, kappa, grade, bank, p):
+    """Drag + rolling resistance + grade force [N] without an aero map (independent of the
+    control force, since the total normal load does not depend on it)."""
+    m = p[P_MASS]
+    q = 0.5 * p[P_RHO] * v * v
+    a_c, a_y, g_n = road_accelerations(v, kappa, grade, bank)
+    f = q * p[P_CDA] + p[P_CRR] * (m * g_n + q * (p[P_CLAF] + p[P_CLAR]))
+    if grade != 0.0:
+        f += m * G * math.sin(grade)
+    return f
+
+
+@njit(cache=True)
+def ax_of_control(v, kappa, grade, bank, F, p, mx, my, mt, out):
+    """Longitudinal acceleration [m/s²] at control F [N] (a closed form without a map)."""
+    if p[P_USEMAP] == 0.0:
+        return (F - _resistance_nomap(v, kappa, grade, bank, p)) / p[P_MASS]
+    state_control(v, kappa, grade, bank, F, p, mx, my, mt, out)
+    return out[O_AX]
+
+
+@njit(cache=True)
 def steady_control(v, kappa, grade, bank, p, mx, my, mt, out):
     """Control force [N] holding speed (a_x = 0); ``out`` holds that state."""
     if p[P_USEMAP] != 0.0:
         return control_for_ax(v, kappa, grade, bank, 0.0, p, mx, my, mt, out)
     # without a map drag and rolling resistance do not depend on the control: one evaluation
-    m = p[P_MASS]
-    q = 0.5 * p[P_RHO] * v * v
-    a_c, a_y, g_n = road_accelerations(v, kappa, grade, bank)
-    F = (q * p[P_CDA] + p[P_CRR] * (m * g_n + q * (p[P_CLAF] + p[P_CLAR]))
-         + m * G * math.sin(grade))
+    F = _resistance_nomap(v, kappa, grade, bank, p)
     state_control(v, kappa, grade, bank, F, p, mx, my, mt, out)
     return F
 
@@ -455,57 +470,85 @@ def largest_feasible_control(v, kappa, grade, bank, f_ok, f_bad, p, mx, my, mt, 
 
 
 @njit(cache=True)
-def corner_limit(kappa, grade, bank, guess, vcap, p, mx, my, mt, out, tol):
+def _bracket_up(lo, glo, step, vcap, kappa, grade, bank, p, mx, my, mt, out):
+    """From a feasible ``lo`` step up (step doubling) to the first infeasible speed or vcap.
+
+    Returns (lo, glo, hi, ghi); ghi <= 0 means every speed up to vcap was feasible."""
+    while True:
+        hi = lo * (1.0 + step)
+        if hi >= vcap:
+            hi = vcap
+        ghi = _g_speed(hi, kappa, grade, bank, p, mx, my, mt, out)
+        if ghi > 0.0 or hi >= vcap:
+            return lo, glo, hi, ghi
+        lo = hi
+        glo = ghi
+        step *= 2.0
+
+
+@njit(cache=True)
+def corner_limit(kappa, grade, bank, guess, lo_known, vcap, p, mx, my, mt, out, tol):
     """Highest steady speed [m/s] below the first infeasible one (both axles u <= 1).
 
-    Starts from ``guess`` (a neighbour's limit), brackets with 5 % steps, checks half the
-    bracket speed for an infeasible band (usage need not be monotonic in speed; a failed check
-    falls back to a scan from the bottom), then refines to ``tol`` [m/s] with the Illinois
-    method. Returns ``vcap`` when every speed up to it is feasible, 0 when even V_MIN is not.
+    ``guess`` is a predicted limit (e.g. a neighbour's, scaled by the curvature ratio);
+    ``lo_known`` a speed below which every speed is known feasible (0 if unknown). The search
+    brackets around the guess with small, doubling steps, checks half the bracket speed for
+    an infeasible band when nothing is known below (usage need not be monotonic in speed; a
+    failed check falls back to a scan from the bottom), then refines to ``tol`` [m/s] with
+    the Illinois method. Returns ``vcap`` when every speed up to it is feasible, 0 when even
+    V_MIN is not.
     """
-    gcap = _g_speed(vcap, kappa, grade, bank, p, mx, my, mt, out)
-    if gcap <= 0.0:
-        for f in (0.2, 0.4, 0.6, 0.8):
-            if _g_speed(vcap * f, kappa, grade, bank, p, mx, my, mt, out) > 0.0:
-                gcap = 1.0  # an infeasible band below the cap: scan from the bottom
-                guess = 0.0
-                break
-        if gcap <= 0.0:
-            return vcap
+    step0 = 0.004
+    if lo_known > V_MIN:
+        lo = lo_known if lo_known < vcap else vcap
+        glo = _g_speed(lo, kappa, grade, bank, p, mx, my, mt, out)
+        if glo <= 0.0:
+            s = guess / lo - 1.0 + step0 if guess > lo else step0
+            lo, glo, hi, ghi = _bracket_up(lo, glo, s, vcap, kappa, grade, bank, p, mx, my,
+                                           mt, out)
+            if ghi <= 0.0:
+                return vcap
+            return _refine(0, lo, glo, hi, ghi, 0.0, kappa, grade, bank, p, mx, my, mt, out,
+                           tol)
+    found = False
     lo = 0.0
     glo = 0.0
     hi = vcap
-    ghi = gcap
-    found = False
+    ghi = 1.0
     if V_MIN < guess < vcap:
         gg = _g_speed(guess, kappa, grade, bank, p, mx, my, mt, out)
         if gg <= 0.0:
-            lo = guess
-            glo = gg
-            while True:
-                hi = lo * 1.05
-                if hi >= vcap:
-                    hi = vcap
-                    ghi = gcap
-                else:
-                    ghi = _g_speed(hi, kappa, grade, bank, p, mx, my, mt, out)
-                if ghi > 0.0:
-                    break
-                lo = hi
-                glo = ghi
+            lo, glo, hi, ghi = _bracket_up(guess, gg, step0, vcap, kappa, grade, bank, p, mx,
+                                           my, mt, out)
         else:
             hi = guess
             ghi = gg
-            lo = guess / 1.05
+            step = step0
+            lo = guess / (1.0 + step)
             glo = _g_speed(lo, kappa, grade, bank, p, mx, my, mt, out)
             while glo > 0.0 and lo > V_MIN:
                 hi = lo
                 ghi = glo
-                lo = lo / 1.05
+                step *= 2.0
+                lo = lo / (1.0 + step)
                 glo = _g_speed(lo, kappa, grade, bank, p, mx, my, mt, out)
         found = glo <= 0.0 and lo > V_MIN
         if found and _g_speed(0.5 * lo, kappa, grade, bank, p, mx, my, mt, out) > 0.0:
             found = False
+    elif guess >= vcap:
+        ghi = _g_speed(vcap, kappa, grade, bank, p, mx, my, mt, out)
+        if ghi <= 0.0:
+            lo = vcap
+            glo = ghi
+            found = True
+    if found and ghi <= 0.0:
+        # feasible up to vcap: make sure there is no infeasible band below it
+        for f in (0.2, 0.4, 0.6, 0.8):
+            if _g_speed(vcap * f, kappa, grade, bank, p, mx, my, mt, out) > 0.0:
+                found = False
+                break
+        if found:
+            return vcap
     if not found:
         lo = V_MIN
         glo = _g_speed(lo, kappa, grade, bank, p, mx, my, mt, out)
@@ -515,11 +558,11 @@ def corner_limit(kappa, grade, bank, guess, vcap, p, mx, my, mt, out, tol):
             hi = lo * 1.15
             if hi >= vcap:
                 hi = vcap
-                ghi = gcap
-            else:
-                ghi = _g_speed(hi, kappa, grade, bank, p, mx, my, mt, out)
+            ghi = _g_speed(hi, kappa, grade, bank, p, mx, my, mt, out)
             if ghi > 0.0:
                 break
+            if hi >= vcap:
+                return vcap
             lo = hi
             glo = ghi
     return _refine(0, lo, glo, hi, ghi, 0.0, kappa, grade, bank, p, mx, my, mt, out, tol)
@@ -527,19 +570,47 @@ def corner_limit(kappa, grade, bank, guess, vcap, p, mx, my, mt, out, tol):
 
 @njit(cache=True, parallel=True)
 def corner_limits(kappa, grade, bank, vcap, p, mx, my, mt, tol, nchunks):
-    """Corner-speed limit [m/s] at every step; chunks run in parallel, each warm-started."""
+    """Corner-speed limit [m/s] at every step; chunks run in parallel, each warm-started.
+
+    Between neighbours with the same grade and bank, every state quantity depends on the
+    curvature only through a_y = v² κ and usage does not fall as |a_y| rises, so a step with
+    no more curvature than its neighbour is feasible at every speed the neighbour was: its
+    limit is at least the neighbour's (and equals vcap when the neighbour's did).
+    """
     n = kappa.shape[0]
     vlim = np.empty(n)
     size = (n + nchunks - 1) // nchunks
     for c in prange(nchunks):
         out = np.empty(NOUT)
-        guess = 0.0
+        prev_v = 0.0
+        prev_k = 0.0
+        prev_g = math.nan
+        prev_b = math.nan
         start = c * size
         stop = min(n, start + size)
         for i in range(start, stop):
-            vl = corner_limit(kappa[i], grade[i], bank[i], guess, vcap, p, mx, my, mt, out, tol)
+            k = kappa[i]
+            same = grade[i] == prev_g and bank[i] == prev_b and prev_v > 0.0
+            lo_known = 0.0
+            guess = prev_v
+            if same:
+                if abs(k) <= abs(prev_k):
+                    if prev_v >= vcap:
+                        vlim[i] = vcap
+                        prev_k = k
+                        continue
+                    lo_known = prev_v
+                if k != 0.0 and prev_k != 0.0:
+                    r = math.sqrt(abs(prev_k) / abs(k))
+                    r = 0.8 if r < 0.8 else (1.25 if r > 1.25 else r)
+                    guess = prev_v * r
+            vl = corner_limit(k, grade[i], bank[i], guess, lo_known, vcap, p, mx, my, mt, out,
+                              tol)
             vlim[i] = vl
-            guess = vl
+            prev_v = vl
+            prev_k = k
+            prev_g = grade[i]
+            prev_b = bank[i]
     return vlim
 
 
@@ -621,11 +692,20 @@ def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, t
     hint = math.nan
     for i in range(n - 1):
         vi = vf[i]
+        vt = vlim[i + 1]
+        # can the car reach the next step's limit? one evaluation settles most steps
+        need = (vt * vt - vi * vi) / (2.0 * ds)
+        if need < 50.0:
+            fn = control_for_ax(vi, kappa[i], grade[i], bank[i], need, p, mx, my, mt, out)
+            if out[O_STATUS] == 0.0 and max_usage(out) <= 1.0 and \
+                    fn <= engine_force(vi, p, gears, trpm, tnm):
+                vf[i + 1] = vt
+                continue
         F = max_accel_control(vi, kappa[i], grade[i], bank[i], p, gears, trpm, tnm, mx, my,
                               mt, out, ftol, hint)
         hint = F
-        state_control(vi, kappa[i], grade[i], bank[i], F, p, mx, my, mt, out)
-        v2 = vi * vi + 2.0 * out[O_AX] * ds
+        ax = ax_of_control(vi, kappa[i], grade[i], bank[i], F, p, mx, my, mt, out)
+        v2 = vi * vi + 2.0 * ax * ds
         vn = math.sqrt(v2) if v2 > 0.0 else 0.0
         vf[i + 1] = vn if vn < vlim[i + 1] else vlim[i + 1]
     vb = np.empty(n)
@@ -646,14 +726,23 @@ def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, t
         if not math.isnan(a_prev):
             v2 = vnext * vnext - 2.0 * a_prev * ds
             vp = math.sqrt(v2) if v2 > 0.0 else vnext
+        if vlim[i] < vnext * 1.02:
+            # can the car brake from its limit here to the next step's speed?
+            need = (vnext * vnext - vlim[i] * vlim[i]) / (2.0 * ds)
+            control_for_ax(vlim[i], kappa[i], grade[i], bank[i], need, p, mx, my, mt, out)
+            if out[O_STATUS] == 0.0 and max_usage(out) <= 1.0:
+                vb[i] = vlim[i]
+                hint = math.nan
+                a_prev = math.nan
+                continue
         for _ in range(4):
             ve = vp if vp < vlim[i] else vlim[i]
             F = max_decel_control(ve, kappa[i], grade[i], bank[i], p, mx, my, mt, out, ftol,
                                   hint)
             hint = F
-            state_control(ve, kappa[i], grade[i], bank[i], F, p, mx, my, mt, out)
-            a_prev = out[O_AX]
-            v2 = vnext * vnext - 2.0 * out[O_AX] * ds
+            ax = ax_of_control(ve, kappa[i], grade[i], bank[i], F, p, mx, my, mt, out)
+            a_prev = ax
+            v2 = vnext * vnext - 2.0 * ax * ds
             vnew = math.sqrt(v2) if v2 > 0.0 else 0.0
             done = abs(vnew - vp) < 1e-5
             vp = vnew

@@ -550,8 +550,8 @@ def limits_at(car: Car, speed: float, curvature: float = 0.0, grade: float = 0.0
     fb = _k.max_decel_control(speed, curvature, grade, bank, p, mx, my, mt, out, FORCE_TOL)
     _k.state_control(speed, curvature, grade, bank, fb, p, mx, my, mt, out)
     a_brk = -float(out[_k.O_AX])
-    vl = _k.corner_limit(curvature, grade, bank, 0.0, speed_cap(car), p, mx, my, mt, out,
-                         SPEED_TOL)
+    vl = _k.corner_limit(curvature, grade, bank, 0.0, 0.0, speed_cap(car), p, mx, my, mt,
+                         out, SPEED_TOL)
     return {"max_accel_mps2": a_acc, "max_decel_mps2": a_brk,
             "engine_force_n": float(_k.engine_force(speed, p, gears, trpm, tnm)),
             "max_drive_n": float(fa), "min_control_n": float(fb), "corner_limit_mps": float(vl)}
