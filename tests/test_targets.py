@@ -366,3 +366,50 @@ def test_cli_exit_2_on_bad_targets(tmp_path, cli):
     t = _write(tmp_path, GOOD + "scope = { corners = [12] }\n", "u.toml")
     r = cli("check", EXAMPLES / "gt_coupe.toml", "track.csv", t, "--start-speed-kph", 150)
     assert r.exit_code == 2 and "corner 12 not on test ring" in r.output
+
+
+# ------------------------------------------------------------------ examples on the demo circuit
+
+
+@pytest.fixture(scope="module")
+def veldmoor():
+    from lapbalance.track import load_track
+
+    return simulate_lap(load_car(EXAMPLES / "gt_coupe.toml"),
+                        load_track(ROOT / "tracks" / "veldmoor_ring.csv"))
+
+
+def test_pass_example_passes_on_the_fast_circuit(veldmoor):
+    out = T.check(veldmoor, T.load_targets(EXAMPLES / "targets_pass.toml"))
+    assert [o.name for o in out if not o.passed] == []
+    assert len(out) >= 10
+
+
+def test_fail_example_fails_for_the_documented_reason(veldmoor):
+    # The file's comments: only target 2 fails, because the rear saturates after lift-off in
+    # the slow corners 1, 6, 7, 8 and 11.
+    out = T.check(veldmoor, T.load_targets(EXAMPLES / "targets_fail.toml"))
+    assert [o.passed for o in out] == [True, False, True]
+    bad = out[1]
+    assert bad.quantity == "liftoff_verdict" and bad.measured == "rear-saturates"
+    saturating = [c["id"] for c in veldmoor.corners if c["liftoff_verdict"] == "rear-saturates"]
+    assert saturating == [1, 6, 7, 8, 11]
+    assert bad.failing == len(saturating) and bad.worst["corner"] == 1
+    assert all(c["min_speed_kph"] < 140 for c in veldmoor.corners if c["id"] in saturating)
+
+
+def test_cli_examples_exit_codes():
+    from lapbalance.cli import main
+
+    car, track = EXAMPLES / "gt_coupe.toml", ROOT / "tracks" / "veldmoor_ring.csv"
+    r = CliRunner().invoke(main, ["check", str(car), str(track),
+                                  str(EXAMPLES / "targets_pass.toml")])
+    assert r.exit_code == 0, r.output
+    assert "targets pass" in r.output and "FAIL" not in r.output
+    r = CliRunner().invoke(main, ["check", str(car), str(track),
+                                  str(EXAMPLES / "targets_fail.toml")])
+    assert r.exit_code == 1
+    assert "no lift-off saturation anywhere: 5 of 11 corners miss" in r.output
+    r = CliRunner().invoke(main, ["check", str(car), str(track),
+                                  str(EXAMPLES / "targets_pass.toml"), "--step-m", "0"])
+    assert r.exit_code == 2 and "--step-m" in r.output

@@ -35,10 +35,11 @@ def format_outcomes(outcomes, car_name: str, track_name: str) -> str:
     lines = [f"{car_name} on {track_name}: handling targets", "",
              table(rows, ["target", "measured", "limit", "result", "worst at", "scope"],
                    align="lllll" + "l")]
-    notes = [(o.name, o.detail) for o in outcomes if not o.passed and o.detail]
-    if notes:
+    failed = [o for o in outcomes if not o.passed]
+    if failed:
         lines.append("")
-        lines.extend(f"{name}: {detail}" for name, detail in notes)
+    for o in failed:
+        lines.append(f"{o.name}: {o.detail}" + (f" -- {o.note}" if o.note else ""))
     n_ok = sum(o.passed for o in outcomes)
     lines.append("")
     lines.append(f"{n_ok} of {len(outcomes)} targets pass"
