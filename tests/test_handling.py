@@ -169,3 +169,14 @@ def test_gt_coupe_curve_is_flat_at_its_input_balance():
 def test_leaning_bands(b, name):
     # Common practice: balance index > 0 means the rear is nearer its limit (DESIGN.md).
     assert handling.leaning(b) == name
+
+
+def test_speed_cap_before_grip_limit_warns():
+    from lapbalance.errors import PhysicsWarning
+
+    # Rev-limited top speed 20000 rpm * 2 pi * 0.3 m / 60 / 10 = 62.8 m/s, below the grip
+    # limit sqrt(1.4 g * 1000 m) = 117 m/s on a 1000 m radius.
+    car = make_car(powertrain={"gear_ratios": [10.0]})
+    with pytest.warns(PhysicsWarning, match="speed cap"):
+        run = handling.constant_radius_run(car, 1000.0)
+    assert run.limit_speed_mps < 70.0

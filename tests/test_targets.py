@@ -163,6 +163,17 @@ def test_scope_corners_above_a_speed(tmp_path, lap):
 def test_scope_distance_band(tmp_path, lap):
     o = _one(tmp_path, lap, "speed_kph", "{ min = 0 }", scope="{ distance_m = [100, 199] }")
     assert o.count == 100
+    # corners whose slowest point lies in the band: corners 1 and 2 start at 600 and 1150 m
+    o = _one(tmp_path, lap, "min_speed_kph", "{ min = 0 }", scope="{ distance_m = [0, 1500] }")
+    assert o.count == 2
+
+
+def test_corner_quantity_without_values_is_no_data(tmp_path, lap):
+    from dataclasses import replace
+
+    rows = [{**c, "liftoff_max_usage_rear": None} for c in lap.corners]
+    o = _one(tmp_path, replace(lap, corners=rows), "liftoff_max_usage_rear", "{ max = 1 }")
+    assert o.status == "no-data" and not o.passed and "not checked for lift-off" in o.detail
 
 
 def test_scope_curve_speed_band(tmp_path, lap):
@@ -253,6 +264,18 @@ condition = { max = 1.0 }
      r'"target"\?'),
     ("title = 'x'\n", r"t\.toml: target: no targets; add at least one \[\[target\]\]"),
     ("[[target]\n", r"t\.toml: not valid TOML"),
+    (GOOD.replace("usage_rear", "zzzz"),
+     r'unknown quantity "zzzz"; docs/targets\.md lists every quantity'),
+    (GOOD + 'scope = { corner_min_speed_kph = -3 }\n',
+     r"scope\.corner_min_speed_kph: = -3 must be a speed >= 0 km/h"),
+    (GOOD + 'scope = "lap 3"\n', r'target\[1\]\.scope: must be "whole lap" or a table'),
+    ('[[target]]\nname = "x"\nquantity = "aero_balance_vs_speed"\ncondition = { max = 1 }\n'
+     'scope = { corners = [1] }\n',
+     r"scope\.corners: aero_balance_vs_speed takes only speed_kph"),
+    ('[[target]]\nname = "x"\nquantity = "liftoff_verdict"\ncondition = { in = ["watch"] }\n'
+     'aggregate = "max"\n', r'text quantity liftoff_verdict takes only aggregate "each"'),
+    ("[model]\nmigration_low_speed_kph = [150, 100]\n" + GOOD,
+     r"model\.migration_low_speed_kph: lo 150 > hi 100"),
 ])
 def test_validation_messages(tmp_path, body, match):
     with pytest.raises(InputError, match=match) as e:

@@ -22,10 +22,12 @@ unavailable (``None``), never invented.
 from __future__ import annotations
 
 import math
+import warnings
 from dataclasses import dataclass
 
 import numpy as np
 
+from lapbalance.errors import PhysicsWarning
 from lapbalance.units import G0
 
 #: Default bin width of the aero balance curve [km/h].
@@ -403,6 +405,11 @@ def constant_radius_run(car, radius: float = REFERENCE_RADIUS_M,
         steer = (math.degrees(car.chassis.wheelbase / radius)
                  + a[:, 4] / cornering_stiffness_front - a[:, 5] / cornering_stiffness_rear)
     uf, ur = float(a[-1, 8]), float(a[-1, 9])
+    if max(uf, ur) < 0.99:
+        warnings.warn(f"on the {radius:g} m radius the car reaches its speed cap "
+                      f"({v_lim * 3.6:.0f} km/h) before either axle's grip limit (usage "
+                      f"front {uf:.3f}, rear {ur:.3f}); the limit understeer index there is "
+                      "not a grip-limit figure", PhysicsWarning, stacklevel=2)
     return ConstantRadiusRun(radius, a[:, 0], a[:, 1], a[:, 2], a[:, 3], a[:, 4], a[:, 5],
                              a[:, 6], a[:, 7], a[:, 8], a[:, 9], steer, float(ay_lim),
                              float(v_lim), uf - ur, "front" if uf >= ur else "rear")

@@ -30,7 +30,7 @@ from pathlib import Path
 import numpy as np
 
 from lapbalance import handling
-from lapbalance.errors import InputError, did_you_mean
+from lapbalance.errors import InputError, closest, did_you_mean
 from lapbalance.lap import CHANNELS
 from lapbalance.liftoff import VERDICTS
 
@@ -205,7 +205,8 @@ class Target:
     model: Model = field(default_factory=Model)
 
     @property
-    def field(self) -> str:
+    def key(self) -> str:
+        """``target[i]``, the prefix of this target's keys in messages."""
         return f"target[{self.index}]"
 
     def limit_text(self) -> str:
@@ -354,8 +355,10 @@ def _target(t, i, src, model) -> Target:
         raise InputError("must be a non-empty string", src, f"{base}.name")
     qn = t["quantity"]
     if not isinstance(qn, str) or qn not in QUANTITIES:
-        raise InputError(f'unknown quantity "{qn}"; {did_you_mean(str(qn), QUANTITIES)} '
-                         "(docs/targets.md lists them)", src, f"{base}.quantity")
+        best = closest(str(qn), QUANTITIES)
+        hint = f'did you mean "{best}"? ' if best else ""
+        raise InputError(f'unknown quantity "{qn}"; {hint}docs/targets.md lists every '
+                         "quantity", src, f"{base}.quantity")
     q = QUANTITIES[qn]
     note = t.get("note", "")
     if not isinstance(note, str):
@@ -566,13 +569,13 @@ def _check_corner_ids(result, t: Target) -> None:
                  else "this track has no corners")
         raise InputError(f"corner {', '.join(map(str, missing))} not on "
                          f"{getattr(result.track, 'name', 'the track')}; {valid}",
-                         t.source, f"{t.field}.scope.corners")
+                         t.source, f"{t.key}.scope.corners")
 
 
 def _empty(t: Target, what: str, result) -> InputError:
     return InputError(f"scope ({t.scope_text()}) holds no {what} on this lap "
                       f"({getattr(result.track, 'name', 'track')}); widen or remove it",
-                      t.source, f"{t.field}.scope")
+                      t.source, f"{t.key}.scope")
 
 
 def _channel_ids(result) -> dict[int, int]:
