@@ -436,3 +436,10 @@ def test_cli_examples_exit_codes():
     r = CliRunner().invoke(main, ["check", str(car), str(track),
                                   str(EXAMPLES / "targets_pass.toml"), "--step-m", "0"])
     assert r.exit_code == 2 and "--step-m" in r.output
+
+
+def test_docs_example_file_loads(tmp_path):
+    doc = (ROOT / "docs" / "targets.md").read_text(encoding="utf-8")
+    example = doc.split("```toml\n", 1)[1].split("```", 1)[0]
+    (t,) = T.load_targets(_write(tmp_path, example))
+    assert t.quantity == "aero_balance_front" and t.model.migration_low_speed_kph == (80, 140)

@@ -592,9 +592,10 @@ def _step_where(result, i: int) -> dict:
 
 
 def _corner_rows(result, t: Target, cache) -> list[dict]:
-    if "leaning" not in cache:
-        cache["leaning"] = {c["id"]: c["limit_leaning"] for c in
-                            handling.corner_leaning(result, t.model.leaning_neutral_band)}
+    key = ("leaning", t.model.leaning_neutral_band)
+    if key not in cache:
+        cache[key] = {c["id"]: c["limit_leaning"] for c in
+                      handling.corner_leaning(result, t.model.leaning_neutral_band)}
     rows = []
     s = t.scope
     for c in result.corners:
@@ -608,7 +609,7 @@ def _corner_rows(result, t: Target, cache) -> list[dict]:
         if "distance_m" in s and not (s["distance_m"][0] <= c["min_speed_at_m"]
                                       <= s["distance_m"][1]):
             continue
-        rows.append({**c, "limit_leaning": cache["leaning"][c["id"]]})
+        rows.append({**c, "limit_leaning": cache[key][c["id"]]})
     return rows
 
 
@@ -645,9 +646,10 @@ def _lap_value(result, name: str, model: Model, cache) -> float | None:
         return s[direct[name]]
     if name == "liftoff_rear_saturates_count":
         return float(sum(c.get("liftoff_verdict") == "rear-saturates" for c in result.corners))
-    f = cache.get("figures")
+    key = ("figures", model)
+    f = cache.get(key)
     if f is None:
-        f = cache["figures"] = handling.figures(
+        f = cache[key] = handling.figures(
             result, cornering_stiffness_front=model.cornering_stiffness_front,
             cornering_stiffness_rear=model.cornering_stiffness_rear,
             radius=model.reference_radius, low_band_kph=model.migration_low_speed_kph,
@@ -690,10 +692,10 @@ def _check_one(result, t: Target, cache) -> TargetOutcome:
                    "corner": r["id"]} for r in rows]
         unit_word = "corners"
     elif q.kind == "curve":
-        curve = cache.get("curve")
+        key = ("curve", t.model.balance_bin_kph)
+        curve = cache.get(key)
         if curve is None:
-            curve = cache["curve"] = handling.aero_balance_curve(result,
-                                                                 t.model.balance_bin_kph)
+            curve = cache[key] = handling.aero_balance_curve(result, t.model.balance_bin_kph)
         arr = curve.balance_cg if t.quantity == "aero_balance_vs_speed" else \
             curve.balance_ground
         sel = np.ones(len(arr), bool)
