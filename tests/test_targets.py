@@ -445,3 +445,12 @@ def test_docs_example_file_loads(tmp_path):
     example = doc.split("```toml\n", 1)[1].split("```", 1)[0]
     (t,) = T.load_targets(_write(tmp_path, example))
     assert t.quantity == "aero_balance_front" and t.model.migration_low_speed_kph == (80, 140)
+
+
+def test_liftoff_fields_point_at_their_liftoff_step(tmp_path, lap):
+    o = _one(tmp_path, lap, "liftoff_max_usage_rear", "{ max = 0 }")
+    c = next(c for c in lap.corners if c["id"] == o.worst["corner"])
+    assert o.worst["distance_m"] == c["liftoff_worst_rear"]["distance_m"]
+    o = _one(tmp_path, lap, "liftoff_max_shift", "{ max = 0 }")
+    c = next(c for c in lap.corners if c["id"] == o.worst["corner"])
+    assert o.worst["distance_m"] == c["liftoff_worst_shift"]["distance_m"]

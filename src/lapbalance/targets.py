@@ -613,6 +613,21 @@ def _corner_rows(result, t: Target, cache) -> list[dict]:
     return rows
 
 
+def _corner_where(row: dict, quantity: str) -> dict:
+    """Where a corner's value was found: its lift-off step for lift-off fields, else the
+    slowest point."""
+    step = None
+    if quantity == "liftoff_max_usage_rear":
+        step = row.get("liftoff_worst_rear")
+    elif quantity in ("liftoff_max_shift", "coast_max_shift", "overrun_share"):
+        step = row.get("liftoff_worst_shift")
+    if step:
+        return {"distance_m": step["distance_m"], "speed_kph": step["speed_kph"],
+                "corner": row["id"]}
+    return {"distance_m": row["min_speed_at_m"], "speed_kph": row["min_speed_kph"],
+            "corner": row["id"]}
+
+
 def _step_mask(result, t: Target) -> np.ndarray:
     ch = result.channels
     s = t.scope
@@ -688,8 +703,7 @@ def _check_one(result, t: Target, cache) -> TargetOutcome:
                             "(not checked for lift-off)")
         rows = [rows[j] for j in have]
         vals = [vals[j] for j in have]
-        wheres = [{"distance_m": r["min_speed_at_m"], "speed_kph": r["min_speed_kph"],
-                   "corner": r["id"]} for r in rows]
+        wheres = [_corner_where(r, t.quantity) for r in rows]
         unit_word = "corners"
     elif q.kind == "curve":
         key = ("curve", t.model.balance_bin_kph)
