@@ -188,6 +188,13 @@ def corner_leaning(result, neutral_band: float = NEUTRAL_BAND) -> list[dict]:
     At each corner's slowest point the car is at (or near) its cornering limit; the balance
     index there says which axle is nearer saturation.
 
+    Parameters
+    ----------
+    result : LapResult
+        A lap.
+    neutral_band : float
+        Half-width of the balance index called neutral. [-]
+
     Returns
     -------
     list of dict
@@ -201,7 +208,18 @@ def corner_leaning(result, neutral_band: float = NEUTRAL_BAND) -> list[dict]:
 
 
 def static_axle_weights(car) -> tuple[float, float]:
-    """Static front and rear axle weights ``W_f = m g w_f``, ``W_r = m g (1 - w_f)`` [N]."""
+    """Static front and rear axle weights ``W_f = m g w_f``, ``W_r = m g (1 - w_f)``.
+
+    Parameters
+    ----------
+    car : Car
+        Gives mass [kg] and front weight fraction [-].
+
+    Returns
+    -------
+    (float, float)
+        Front and rear axle weight on a level road. [N]
+    """
     w = car.chassis.mass * G0
     wf = car.chassis.front_weight_fraction
     return w * wf, w * (1.0 - wf)
@@ -294,7 +312,19 @@ def characteristic_speed(wheelbase: float, gradient: float) -> float | None:
 
 
 def critical_speed(wheelbase: float, gradient: float) -> float | None:
-    r"""Critical speed ``sqrt(-57.3 L g / K)`` of an oversteering car [m/s]; None if K >= 0.
+    r"""Critical speed ``sqrt(-57.3 L g / K)`` of an oversteering car.
+
+    Parameters
+    ----------
+    wheelbase : float
+        [m]
+    gradient : float
+        Understeer gradient. [deg/g]
+
+    Returns
+    -------
+    float or None
+        Speed above which the bicycle model is unstable [m/s]; None when ``K >= 0``.
 
     References
     ----------
@@ -421,6 +451,17 @@ def figures(result, *, cornering_stiffness_front: float | None = None,
             low_band_kph: tuple[float, float] | None = None,
             high_band_kph: tuple[float, float] | None = None) -> dict:
     """The scalar handling figures of a lap and its car, plain JSON.
+
+    Parameters
+    ----------
+    result : LapResult
+        A lap; its car is used for the constant-radius run and the understeer gradient.
+    cornering_stiffness_front, cornering_stiffness_rear : float, optional
+        Axle cornering stiffness (both tyres). [N/deg]
+    radius : float
+        Radius of the constant-radius run. [m]
+    low_band_kph, high_band_kph : (float, float), optional
+        Fixed bands of the balance migration (see :func:`balance_migration`). [km/h]
 
     Returns
     -------
