@@ -150,6 +150,59 @@ def map_lookup(mx, my, mt, k, x, y):
 
 
 @njit(cache=True)
+def map_lookup_grad(mx, my, mt, k, x, y):
+    """Clamped bilinear lookup of ``mt[k]`` and its partial derivatives (zero outside)."""
+    i, tx = _bracket_index(mx, x)
+    j, ty = _bracket_index(my, y)
+    t = mt[k]
+    t00 = t[i, j]
+    t10 = t[i + 1, j]
+    t01 = t[i, j + 1]
+    t11 = t[i + 1, j + 1]
+    val = (1 - tx) * (1 - ty) * t00 + tx * (1 - ty) * t10 + (1 - tx) * ty * t01 + tx * ty * t11
+    nx = mx.shape[0]
+    ny = my.shape[0]
+    dx = 0.0
+    dy = 0.0
+    if mx[0] < x < mx[nx - 1]:
+        dx = ((1 - ty) * (t10 - t00) + ty * (t11 - t01)) / (mx[i + 1] - mx[i])
+    if my[0] < y < my[ny - 1]:
+        dy = ((1 - tx) * (t01 - t00) + tx * (t11 - t10)) / (my[j + 1] - my[j])
+    return val, dx, dy
+
+
+@njit(cache=True)
+def map_eval(mx, my, mt, x, y):
+    """All three map tables at (x, y) with one cell search: (front area, rear area, drag area,
+    d front/dx, d front/dy, d rear/dx, d rear/dy); gradients zero outside the grid."""
+    i, tx = _bracket_index(mx, x)
+    j, ty = _bracket_index(my, y)
+    w00 = (1 - tx) * (1 - ty)
+    w10 = tx * (1 - ty)
+    w01 = (1 - tx) * ty
+    w11 = tx * ty
+    f = mt[0]
+    r = mt[1]
+    d = mt[2]
+    fv = w00 * f[i, j] + w10 * f[i + 1, j] + w01 * f[i, j + 1] + w11 * f[i + 1, j + 1]
+    rv = w00 * r[i, j] + w10 * r[i + 1, j] + w01 * r[i, j + 1] + w11 * r[i + 1, j + 1]
+    dv = w00 * d[i, j] + w10 * d[i + 1, j] + w01 * d[i, j + 1] + w11 * d[i + 1, j + 1]
+    fx = 0.0
+    fy = 0.0
+    rx = 0.0
+    ry = 0.0
+    if mx[0] < x < mx[mx.shape[0] - 1]:
+        hx = mx[i + 1] - mx[i]
+        fx = ((1 - ty) * (f[i + 1, j] - f[i, j]) + ty * (f[i + 1, j + 1] - f[i, j + 1])) / hx
+        rx = ((1 - ty) * (r[i + 1, j] - r[i, j]) + ty * (r[i + 1, j + 1] - r[i, j + 1])) / hx
+    if my[0] < y < my[my.shape[0] - 1]:
+        hy = my[j + 1] - my[j]
+        fy = ((1 - tx) * (f[i, j + 1] - f[i, j]) + tx * (f[i + 1, j + 1] - f[i + 1, j])) / hy
+        ry = ((1 - tx) * (r[i, j + 1] - r[i, j]) + tx * (r[i + 1, j + 1] - r[i + 1, j])) / hy
+    return fv, rv, dv, fx, fy, rx, ry
+
+
+@njit(cache=True)
 def _state_once(v, kappa, grade, bank, f_drive, f_brake, p, claf, clar, cda, out):
     m = p[P_MASS]
     L = p[P_L]
@@ -244,22 +297,49 @@ def state(v, kappa, grade, bank, f_drive, f_brake, p, mx, my, mt, out):
     m = p[P_MASS]
     fz_ref_f = m * G * p[P_B] / p[P_L]
     fz_ref_r = m * G * p[P_A] / p[P_L]
+    # ride heights from the heave equations rh = rh0 - (Fz - Fz_rest)/k with the axle loads
+    # depending on the map: two equations solved by Newton's method (bilinear-map gradients),
+    # the loads written out in closed form inside the loop, the full state once at the end
+    L = p[P_L]
+    h = p[P_H]
+    crr = p[P_CRR]
+    q = 0.5 * p[P_RHO] * v * v
+    a_c, a_y, g_n = road_accelerations(v, kappa, grade, bank)
+    sf = m * g_n * p[P_B] / L
+    sr = m * g_n * p[P_A] / L
+    kf = p[P_HEAVEF]
+    kr = p[P_HEAVER]
+    c = h / L * crr * q
     rhf = p[P_RHF0]
     rhr = p[P_RHR0]
-    st = 0
-    for _ in range(40):
-        claf = map_lookup(mx, my, mt, 0, rhf, rhr)
-        clar = map_lookup(mx, my, mt, 1, rhf, rhr)
-        cda = map_lookup(mx, my, mt, 2, rhf, rhr)
-        st = _state_once(v, kappa, grade, bank, f_drive, f_brake, p, claf, clar, cda, out)
-        new_f = p[P_RHF0] - (out[O_FZF] - fz_ref_f) / p[P_HEAVEF]
-        new_r = p[P_RHR0] - (out[O_FZR] - fz_ref_r) / p[P_HEAVER]
-        df = new_f - rhf
-        dr = new_r - rhr
-        rhf += 0.7 * df
-        rhr += 0.7 * dr
-        if abs(df) < 1e-6 and abs(dr) < 1e-6:
+    for _ in range(30):
+        claf, clar, cda, af_f, af_r, ar_f, ar_r = map_eval(mx, my, mt, rhf, rhr)
+        x = f_drive - f_brake - crr * (m * g_n + q * (claf + clar))
+        fzf = sf + q * claf - x * h / L
+        fzr = sr + q * clar + x * h / L
+        rf = rhf - p[P_RHF0] + (fzf - fz_ref_f) / kf
+        rr = rhr - p[P_RHR0] + (fzr - fz_ref_r) / kr
+        if abs(rf) + abs(rr) < 1e-6:  # one micrometre
             break
+        j00 = 1.0 + (q * af_f + c * (af_f + ar_f)) / kf
+        j01 = (q * af_r + c * (af_r + ar_r)) / kf
+        j10 = (q * ar_f - c * (af_f + ar_f)) / kr
+        j11 = 1.0 + (q * ar_r - c * (af_r + ar_r)) / kr
+        det = j00 * j11 - j01 * j10
+        if abs(det) > 1e-6:
+            dxf = -(j11 * rf - j01 * rr) / det
+            dxr = -(-j10 * rf + j00 * rr) / det
+        else:
+            dxf = -0.5 * rf
+            dxr = -0.5 * rr
+        lim = 0.01  # at most 10 mm per step
+        big = abs(dxf) if abs(dxf) > abs(dxr) else abs(dxr)
+        if big > lim:
+            dxf *= lim / big
+            dxr *= lim / big
+        rhf += dxf
+        rhr += dxr
+    st = _state_once(v, kappa, grade, bank, f_drive, f_brake, p, claf, clar, cda, out)
     out[O_RHF] = rhf
     out[O_RHR] = rhr
     outside = 0.0
@@ -296,7 +376,9 @@ def control_for_ax(v, kappa, grade, bank, ax, p, mx, my, mt, out):
         F = m * ax + _resistance_nomap(v, kappa, grade, bank, p)
         state_control(v, kappa, grade, bank, F, p, mx, my, mt, out)
         return F
-    F = 0.0
+    # with a map: start from the static-ride-height resistance, then correct (drag and
+    # rolling resistance move only slightly with the ride heights the force itself changes)
+    F = m * ax + _resistance_nomap(v, kappa, grade, bank, p)
     state_control(v, kappa, grade, bank, F, p, mx, my, mt, out)
     for _ in range(6):
         err = ax - out[O_AX]
