@@ -1,0 +1,70 @@
+"""The lap solver with a ride-height aero map."""
+
+import warnings
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from lapbalance import aeromap
+from lapbalance import kernels as K
+from lapbalance.car import load_car
+from lapbalance.errors import PhysicsWarning
+from lapbalance.lap import car_parameters, simulate_lap
+from lapbalance.track import load_track
+
+ROOT = Path(__file__).resolve().parents[1]
+
+
+@pytest.fixture(scope="module")
+def loops():
+    return load_track(ROOT / "tracks" / "kettlewick_loops.csv", step_m=2.0)
+
+
+def test_kernel_lookup_equals_reference_bilinear():
+    # Source: aeromap.bilinear (numpy reference of the clamped bilinear lookup); the kernel
+    # must give the same numbers to rounding, inside and outside the grid.
+    car = load_car(ROOT / "examples" / "single_seater_mapped.toml")
+    amap = car.aero.aero_map
+    p, gears, trpm, tnm, mx, my, mt = car_parameters(car)
+    rng = np.random.default_rng(3)
+    xs = rng.uniform(0.0, 0.06, 200)
+    ys = rng.uniform(0.02, 0.10, 200)
+    ref = aeromap.bilinear(amap.fine_rh_front_m, amap.fine_rh_rear_m, amap.fine_front_area_cg,
+                           xs, ys)
+    got = np.array([K.map_lookup(mx, my, mt, 0, x, y) for x, y in zip(xs, ys, strict=True)])
+    np.testing.assert_allclose(got, ref, rtol=1e-12, atol=1e-14)
+    both = np.array([K.map_eval(mx, my, mt, x, y)[:3] for x, y in zip(xs, ys, strict=True)])
+    np.testing.assert_allclose(both[:, 0], ref, rtol=1e-12, atol=1e-14)
+
+
+def test_stiff_springs_map_equals_constant_coefficients(loops):
+    # Source: first principles -- with (near) rigid heave springs the ride heights stay at
+    # their static values, where the map equals the base car's constant areas, so both runs
+    # must agree (to the 1 um ride-height tolerance).
+    base = load_car(ROOT / "examples" / "single_seater.toml")
+    stiff = load_car(ROOT / "examples" / "single_seater_mapped.toml",
+                     ["suspension.heave_rate_front_n_per_mm=1e6",
+                      "suspension.heave_rate_rear_n_per_mm=1e6"])
+    a = simulate_lap(base, loops)
+    b = simulate_lap(stiff, loops)
+    assert b.lap_time_s == pytest.approx(a.lap_time_s, rel=1e-5)
+    np.testing.assert_allclose(b.channels["speed_mps"], a.channels["speed_mps"], rtol=1e-4)
+    np.testing.assert_allclose(b.channels["ride_height_front_mm"], 30.0, atol=0.05)
+
+
+def test_ride_heights_follow_heave_equation(loops):
+    # Source: the heave equation the solver solves, rh = rh0 - (Fz - Fz_rest)/k, checked on
+    # the reported channels (to the 1 um tolerance of the iteration).
+    car = load_car(ROOT / "examples" / "single_seater_mapped.toml")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", PhysicsWarning)
+        r = simulate_lap(car, loops)
+    ch = r.channels
+    m, g = car.chassis.mass, 9.80665
+    rest_f = m * g * car.chassis.front_weight_fraction
+    # level track: normal acceleration g only where the track has no bank or grade
+    expected = 30.0 - (ch["fz_front_n"] - rest_f) / 250.0
+    np.testing.assert_allclose(ch["ride_height_front_mm"], expected, atol=2e-3)
+    # the balance moves with ride height (the map is not flat)
+    assert np.ptp(ch["aero_balance_front"]) > 0.01
