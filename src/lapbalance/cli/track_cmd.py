@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import io
 import math
+from typing import TYPE_CHECKING
 
 import click
 import numpy as np
@@ -11,7 +12,9 @@ import numpy as np
 from lapbalance.cli import main
 from lapbalance.cli.common import echo_json, json_option, table
 from lapbalance.outputs import write_bytes_atomic
-from lapbalance.track import Track, load_track
+
+if TYPE_CHECKING:
+    from lapbalance.track import Track
 
 
 def track_summary(tr: Track) -> dict:
@@ -94,6 +97,8 @@ def track_map_png(tr: Track) -> bytes:
 @json_option
 def track_command(track_file, step_m, closed, map_png, as_json):
     """Load TRACK_FILE (CSV), print its length, corners and sectors."""
+    from lapbalance.track import load_track
+
     tr = load_track(track_file, step_m=step_m, closed=closed)
     info = track_summary(tr)
     if map_png:
