@@ -71,8 +71,9 @@ def test_bad_override_exits_2_one_line():
 def test_car_command_shows_both_conventions():
     r = CliRunner().invoke(main, ["car", GT, "--json"])
     d = json.loads(r.output)
-    # Source: DESIGN.md ground -> CG conversion, front += CdA h/L: 0.38 + 0.8*0.42/2.65/1.6
-    assert d["aero_balance_front_ground"] == 0.38 or abs(d["aero_balance_front_ground"] - 0.38) < 1e-12
+    # Source: ground -> CG conversion front += CdA h/L (Gillespie ch. 1 moments about the
+    # contact point): 0.38 as given, 0.38 + 0.8*0.42/2.65/1.6 on track
+    assert abs(d["aero_balance_front_ground"] - 0.38) < 1e-12
     assert abs(d["aero_balance_front_cg"] - (0.38 + 0.8 * 0.42 / 2.65 / 1.6)) < 1e-12
 
 

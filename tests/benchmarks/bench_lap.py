@@ -70,7 +70,8 @@ def main():
             "single_seater_mapped.toml"]
     rows = [time_laps(c) for c in cars]
     for r in rows:
-        print(f"{r['car']:28s} compiled: median {r['median_ms']:7.2f} ms  min {r['min_ms']:7.2f} ms"
+        print(f"{r['car']:28s} compiled: median {r['median_ms']:7.2f} ms  "
+              f"min {r['min_ms']:7.2f} ms"
               f"  (first call {r['first_s']:.2f} s, lap {r['lap_time_s']:.3f} s)")
     env = dict(os.environ, NUMBA_DISABLE_JIT="1")
     py = subprocess.run([sys.executable, __file__, "--python", "gt_coupe.toml"], env=env,
