@@ -60,3 +60,19 @@ def test_unloaded_wheel_has_no_capacity():
     # Source: definition (a wheel off the ground carries no force).
     assert tyre.tyre_capacity(0.0, 1.5, 0.1, 3000.0) == 0.0
     assert tyre.tyre_capacity(-10.0, 1.5, 0.1, 3000.0) == 0.0
+
+
+def test_magic_formula_peak_option_maps_to_linear_law():
+    # Source: Pacejka, Tire and Vehicle Dynamics, ch. 4 (from memory): mu = pD1 + pD2 dfz,
+    # dfz = (Fz - Fz0)/Fz0 -- the normalised linear law with mu0 = pD1, k = -pD2/pD1.
+    from tests.helpers import make_car
+
+    mf = make_car(tyres={"front": {"peak_friction": None, "model": "magic-formula-peak",
+                                   "pdy1": 1.5, "pdy2": -0.15, "pdx1": 1.6, "pdx2": -0.08,
+                                   "reference_load_n": 3000.0}})
+    t = mf.tyres.front
+    assert (t.mu_lateral, t.mu_longitudinal) == (1.5, 1.6)
+    assert t.k_lateral == pytest.approx(0.1) and t.k_longitudinal == pytest.approx(0.05)
+    # at 4500 N: mu = 1.5 - 0.15 * 0.5 = 1.425
+    cap = tyre.tyre_capacity(4500.0, t.mu_lateral, t.k_lateral, t.reference_load)
+    assert cap == pytest.approx(1.425 * 4500.0)

@@ -39,6 +39,12 @@ def car_command(car_file, overrides, as_json, schema):
         "air_density_from": car.air.how,
         "rev_limited_top_speed_kph": car.powertrain.top_speed_rev_limited() * 3.6,
     }
+    if ae.drag_height is not None and ae.downforce_area != 0:
+        from lapbalance.aero import vertical_centre_of_pressure
+
+        info["vertical_cop_behind_front_axle_m"] = vertical_centre_of_pressure(
+            ae.front_area_cg, ae.rear_area_cg, ae.drag_area, ch.cg_height, ae.drag_height,
+            ch.wheelbase)
     if as_json:
         echo_json({k: (None if isinstance(v, float) and v != v else v) for k, v in info.items()})
         return

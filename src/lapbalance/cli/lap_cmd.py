@@ -46,6 +46,15 @@ def format_lap(result, liftoff_only: bool = False) -> str:
             lines.append(f"aero balance (front share) {bal_cg * 100:.1f} % on track "
                          f"(CG convention); {bal_g * 100:.1f} % as wheel-restrained scales "
                          "read it")
+        if result.car.aero.aero_map is not None:
+            ch = result.channels
+            fast = ch["speed_kph"] >= 100.0
+            if fast.any():
+                b = ch["aero_balance_front"][fast]
+                lines.append(f"aero map: on-track balance above 100 km/h ranges "
+                             f"{b.min() * 100:.1f} % to {b.max() * 100:.1f} % (CG convention); "
+                             f"front ride height {ch['ride_height_front_mm'].min():.1f} to "
+                             f"{ch['ride_height_front_mm'].max():.1f} mm")
         lines.append("sectors: " + "   ".join(f"S{x['sector']} {x['time_s']:.3f} s"
                                               for x in s["sectors"]))
         lines.append("")
