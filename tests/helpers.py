@@ -71,7 +71,12 @@ def make_car(**sections):
         target = raw[sec]
         for k, v in upd.items():
             if isinstance(v, dict):
-                target.setdefault(k, {}).update(v)
+                sub = target.setdefault(k, {})
+                for kk, vv in v.items():
+                    if vv is None:
+                        sub.pop(kk, None)
+                    else:
+                        sub[kk] = vv
             elif v is None:
                 target.pop(k, None)
             else:
