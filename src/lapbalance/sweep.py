@@ -625,11 +625,13 @@ def sweep_figures_png(rows: Sequence[Mapping], keys: Sequence[str]) -> dict[str,
                 grid[np.searchsorted(ys, y), np.searchsorted(xs, x)] = z
                 m = ax.pcolormesh(_edges(xs), _edges(ys), np.ma.masked_invalid(grid),
                                   shading="flat", cmap="viridis")
+                norm = m.norm
                 for i, yy in enumerate(ys):
                     for j, xx in enumerate(xs):
                         if np.isfinite(grid[i, j]):
+                            dark = float(norm(grid[i, j])) < 0.6  # viridis: dark low end
                             ax.text(xx, yy, f"{grid[i, j]:.3f}", ha="center", va="center",
-                                    fontsize=7, color="white")
+                                    fontsize=7, color="white" if dark else "black")
             else:
                 m = ax.scatter(x, y, c=np.ma.masked_invalid(z), cmap="viridis", s=30)
             fig.colorbar(m, ax=ax, label=label)

@@ -54,6 +54,12 @@ def _f(x, fmt: str) -> str:
     return format(x, fmt)
 
 
+def _pct_pair(cg, ground) -> str:
+    if cg is None or not math.isfinite(cg):
+        return "-"
+    return f"{cg * 100:.1f} ({ground * 100:.1f})"
+
+
 def format_compare(result, track: str) -> str:
     """Text tables of one track: the lap summary and the per-segment time deltas."""
     rows = result.summary_for(track)
@@ -61,14 +67,15 @@ def format_compare(result, track: str) -> str:
     lines = [f"track {track}"]
     lines.append(table(
         [[r["car"], _f(r["lap_time_s"], ".3f"), _f(r["delta_s"], "+.3f"),
-          _f(r["top_speed_kph"], ".1f"), _f(r["aero_balance_front_low"] * 100, ".1f"),
-          _f(r["aero_balance_front_high"] * 100, ".1f"), _f(r["liftoff_worst_shift"], "+.3f"),
-          r["flagged_corners"]] for r in rows],
+          _f(r["top_speed_kph"], ".1f"),
+          _pct_pair(r["aero_balance_front_low"], r["aero_balance_front_ground_low"]),
+          _pct_pair(r["aero_balance_front_high"], r["aero_balance_front_ground_high"]),
+          _f(r["liftoff_worst_shift"], "+.3f"), r["flagged_corners"]] for r in rows],
         ["car", "lap s", "delta s", "top km/h", f"bal <{lo:g} %", f"bal >={hi:g} %",
          "lift shift", "flagged"]))
-    lines.append(f"bal = front share of downforce (CG convention), mean over steps below "
-                 f"{lo:g} km/h / at or above {hi:g} km/h; delta = car minus base "
-                 "(negative = faster)")
+    lines.append(f"bal = front share of downforce, mean over steps below {lo:g} km/h / at or "
+                 f"above {hi:g} km/h, as CG convention (wheel-restrained scales in "
+                 "brackets); delta = car minus base (negative = faster)")
     segs = result.segments_for(track)
     labels = result.labels
     by_car = {lab: [s for s in segs if s["car"] == lab] for lab in labels}
@@ -266,6 +273,7 @@ class _Progress:
     def close(self):
         if self.bar is not None:
             self.bar.__exit__(None, None, None)
+            self.bar = None
 
 
 def format_sweep(rows, keys, limit: int = 30) -> str:
@@ -332,6 +340,12 @@ def sweep_command(car_file, track_file, vary_specs, lhs_n, seed, workers, cluste
         rows = sweep(car, track, vary, method=method, n=lhs_n, workers=workers,
                      cluster=cluster, out=out_dir, seed=seed, progress=bar, force=force,
                      simulate_options=opts)
+    except KeyboardInterrupt:
+        bar.close()
+        kept = (f"; finished points are kept in {out_dir}/sweep.csv, rerun the same command "
+                "to resume") if out_dir else ""
+        click.echo(f"lapbalance: sweep interrupted{kept}", err=True)
+        sys.exit(130)
     finally:
         bar.close()
     if as_json:
