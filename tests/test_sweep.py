@@ -257,3 +257,16 @@ def test_cli_sweep_bad_vary_exits_2(track_file, args, match):
     assert r.exit_code == 2, r.output
     assert match in r.output and "Traceback" not in r.output
     assert len(r.output.strip().splitlines()) == 1
+
+
+def test_cli_sweep_interrupt_says_how_to_resume(track_file, tmp_path, monkeypatch):
+    import lapbalance.sweep as sweep_mod
+
+    def interrupted(*args, **kwargs):
+        raise KeyboardInterrupt
+
+    monkeypatch.setattr(sweep_mod, "sweep", interrupted)
+    r = run(["sweep", str(EXAMPLES / "gt_coupe.toml"), track_file,
+             "--vary", "aero.drag_area_m2=0.7,0.8", "--out", str(tmp_path / "o")])
+    assert r.exit_code == 130
+    assert "rerun the same command to resume" in r.output
