@@ -4,8 +4,6 @@ from __future__ import annotations
 
 import json
 import math
-import sys
-import types
 from pathlib import Path
 from types import SimpleNamespace
 
@@ -175,15 +173,30 @@ def test_package_level_names_are_callable(base, track):
 # --------------------------------------------------------------------------------------------
 
 
+TRACKS = Path(__file__).resolve().parents[1] / "tracks"
+
+
 @pytest.fixture()
-def fake_tracks(monkeypatch, tmp_path):
-    """Stand in for lapbalance.track.load_track with the analytic test loop."""
-    mod = types.ModuleType("lapbalance.track")
-    mod.load_track = lambda path, step_m=1.0, closed=None: loop_track(ds=2.0)
-    monkeypatch.setitem(sys.modules, "lapbalance.track", mod)
-    f = tmp_path / "loop.csv"
-    f.write_text("placeholder for the stand-in loader\n")
-    return str(f)
+def track_file():
+    """A demo circuit file, read by the real track loader (with --step-m 2 in the tests)."""
+    return str(TRACKS / "kettlewick_loops.csv")
+
+
+# Source: additivity of time over a partition of the lap, on the demo circuits as the track
+# loader finds their corners (closed lap and open hill-climb run).
+@pytest.mark.parametrize("name", ["veldmoor_ring.csv", "skarhelm_climb.csv"])
+def test_segments_add_up_on_demo_tracks(base, name):
+    from lapbalance.track import load_track
+
+    tr = load_track(TRACKS / name, step_m=5.0)
+    res = compare(base, [{"aero.downforce_area_m2": 2.0}], [tr])
+    segs = res.segments_for(res.tracks[0])
+    n_corners = len([s for s in segs if s["kind"] == "corner" and s["car"] == res.labels[0]])
+    assert n_corners == len(tr.corners)
+    for row in res.summary:
+        mine = [s for s in segs if s["car"] == row["car"]]
+        assert sum(s["time_s"] for s in mine) == pytest.approx(row["lap_time_s"], abs=1e-9)
+        assert sum(s["delta_s"] for s in mine) == pytest.approx(row["delta_s"], abs=1e-9)
 
 
 def run(args):
@@ -192,34 +205,34 @@ def run(args):
     return CliRunner().invoke(main, args)
 
 
-def test_cli_compare_prints_and_writes(fake_tracks, tmp_path):
+def test_cli_compare_prints_and_writes(track_file, tmp_path):
     out = tmp_path / "cmp"
     r = run(["compare", str(EXAMPLES / "gt_coupe.toml"),
-             str(EXAMPLES / "gt_coupe_high_wing.toml"), "--track", fake_tracks,
+             str(EXAMPLES / "gt_coupe_high_wing.toml"), "--track", track_file,
              "--set-variant", "aero.downforce_area_m2=1.9,aero.drag_area_m2=0.86",
-             "--out", str(out)])
+             "--out", str(out), "--step-m", "2"])
     assert r.exit_code == 0, r.output
     assert "delta s" in r.output and "C1" in r.output and "lap" in r.output
     names = sorted(p.name for p in out.iterdir())
-    assert "compare_test_loop.csv" in names and "corners_test_loop.csv" in names
+    assert "compare_Kettlewick_Loops.csv" in names and "corners_Kettlewick_Loops.csv" in names
     assert any(n.startswith("overlay_") and n.endswith(".png") for n in names)
-    text = (out / "compare_test_loop.csv").read_text().splitlines()
+    text = (out / "compare_Kettlewick_Loops.csv").read_text().splitlines()
     assert len(text) == 4 and text[0].startswith("car,lap_time_s,delta_s")
     # an existing output folder is kept unless --force
-    r2 = run(["compare", str(EXAMPLES / "gt_coupe.toml"), "--track", fake_tracks,
-              "--set-variant", "aero.drag_area_m2=0.7", "--out", str(out)])
+    r2 = run(["compare", str(EXAMPLES / "gt_coupe.toml"), "--track", track_file,
+              "--set-variant", "aero.drag_area_m2=0.7", "--out", str(out), "--step-m", "2"])
     assert r2.exit_code == 2 and "--force" in r2.output
 
 
-def test_cli_compare_json_and_errors(fake_tracks):
-    r = run(["compare", str(EXAMPLES / "gt_coupe.toml"), "--track", fake_tracks,
-             "--set-variant", "aero.drag_area_m2=0.7", "--json"])
+def test_cli_compare_json_and_errors(track_file):
+    r = run(["compare", str(EXAMPLES / "gt_coupe.toml"), "--track", track_file,
+             "--set-variant", "aero.drag_area_m2=0.7", "--json", "--step-m", "2"])
     assert r.exit_code == 0, r.output
     data = json.loads(r.output)
     assert data["labels"] == ["Halden GT coupe", "aero.drag_area_m2=0.7"]
-    r = run(["compare", str(EXAMPLES / "gt_coupe.toml"), "--track", fake_tracks])
+    r = run(["compare", str(EXAMPLES / "gt_coupe.toml"), "--track", track_file])
     assert r.exit_code == 2 and "at least one variant" in r.output
-    r = run(["compare", str(EXAMPLES / "gt_coupe.toml"), "--track", fake_tracks,
+    r = run(["compare", str(EXAMPLES / "gt_coupe.toml"), "--track", track_file,
              "--set-variant", "aero.dragarea_m2=0.7"])
     assert r.exit_code == 2 and "did you mean" in r.output and "Traceback" not in r.output
 

@@ -6,7 +6,6 @@ import csv
 import json
 import subprocess
 import sys
-import types
 from pathlib import Path
 
 import numpy as np
@@ -17,7 +16,7 @@ from lapbalance.car import load_car
 from lapbalance.errors import InfeasibleError, InputError
 from lapbalance.lap import simulate_lap
 from lapbalance.sweep import RESULT_COLUMNS, parse_vary, point_key, sweep, sweep_points
-from tests.test_compare import EXAMPLES, loop_track
+from tests.test_compare import EXAMPLES, TRACKS, loop_track
 
 VARY = {"aero.downforce_area_m2": [1.2, 2.0], "brakes.bias_front": [0.55, 0.65]}
 
@@ -213,14 +212,9 @@ def test_package_names_from_a_fresh_interpreter():
 
 
 @pytest.fixture()
-def track_file(monkeypatch, tmp_path):
-    """Stand in for lapbalance.track.load_track with the analytic test loop."""
-    mod = types.ModuleType("lapbalance.track")
-    mod.load_track = lambda path, step_m=1.0, closed=None: loop_track(ds=2.0)
-    monkeypatch.setitem(sys.modules, "lapbalance.track", mod)
-    f = tmp_path / "loop.csv"
-    f.write_text("placeholder for the stand-in loader\n")
-    return str(f)
+def track_file():
+    """A demo circuit file, read by the real track loader (with --step-m 2 in the tests)."""
+    return str(TRACKS / "kettlewick_loops.csv")
 
 
 def run(args):
@@ -229,16 +223,21 @@ def run(args):
     return CliRunner().invoke(main, args)
 
 
-def test_cli_sweep_grid(track_file, tmp_path, serial):
+def test_cli_sweep_grid(track_file, tmp_path, car):
+    from lapbalance.track import load_track
+
     out = tmp_path / "cli"
-    r = run(["sweep", str(EXAMPLES / "gt_coupe.toml"), track_file,
+    r = run(["sweep", str(EXAMPLES / "gt_coupe.toml"), track_file, "--step-m", "2",
              "--vary", "aero.downforce_area_m2=1.2:2.0:2", "--vary", "brakes.bias_front=0.55,0.65",
              "--out", str(out)])
     assert r.exit_code == 0, r.output
-    assert "lap s" in r.output and f"{serial[0]['lap_time_s']:.3f}" in r.output
+    one = simulate_lap(car.with_overrides({"aero.downforce_area_m2": 1.2,
+                                           "brakes.bias_front": 0.55}),
+                       load_track(track_file, step_m=2.0))
+    assert "lap s" in r.output and f"{one.lap_time_s:.3f}" in r.output
     assert {"sweep.csv", "results.csv", "sweep.json", "lap_time.png"} <= {
         p.name for p in out.iterdir()}
-    r = run(["sweep", str(EXAMPLES / "gt_coupe.toml"), track_file, "--lhs", "3",
+    r = run(["sweep", str(EXAMPLES / "gt_coupe.toml"), track_file, "--lhs", "3", "--step-m", "2",
              "--vary", "aero.drag_area_m2=0.7:0.9", "--set", "chassis.mass_kg=1250", "--json"])
     assert r.exit_code == 0, r.output
     data = json.loads(r.output[r.output.index("["):])

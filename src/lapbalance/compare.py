@@ -193,6 +193,8 @@ def lap_segments(track) -> list[dict]:
         parts.append(("straight", None, prev, end))
 
     def wrap(u: float) -> float:
+        if closed and u == end:
+            return origin  # exactly where the lap started, without rounding
         return u - L if u > L else u
 
     rows, n_str = [], 0
