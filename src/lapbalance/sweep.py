@@ -514,7 +514,13 @@ def _run_pool(workers, raw, source, track, todo, options, record) -> None:
     methods = mp.get_all_start_methods()
     ctx = mp.get_context("forkserver" if "forkserver" in methods else "spawn")
     if ctx.get_start_method() == "forkserver":
-        ctx.set_forkserver_preload(["lapbalance.sweep", "lapbalance.lap"])
+        # Import once in the fork server what every worker needs, including the module of
+        # the track's class (unpickling the track imports it), instead of once per worker.
+        preload = ["lapbalance.sweep", "lapbalance.lap"]
+        track_mod = type(track).__module__
+        if track_mod in sys.modules and track_mod not in ("builtins", "types", "__main__"):
+            preload.append(track_mod)
+        ctx.set_forkserver_preload(preload)
     ex = ProcessPoolExecutor(max_workers=min(workers, len(todo)), mp_context=ctx,
                              initializer=_init_worker,
                              initargs=(raw, source, track, options, 1))

@@ -75,7 +75,8 @@ def timed_sweep(car, track, vary, workers):
     wall = time.perf_counter() - t0
     k0 = min(4, len(stamps) - 2)
     steady = (len(stamps) - 1 - k0) / (stamps[-1] - stamps[k0])
-    return rows, wall, len(rows) / wall, steady
+    first_two = stamps[1] - t0  # with a pool: the parent's point, then the pool's first
+    return rows, wall, len(rows) / wall, steady, first_two
 
 
 def main():
@@ -97,13 +98,14 @@ def main():
             "brakes.bias_front": [0.55, 0.57, 0.59, 0.61, 0.63, 0.65]}
     print(f"track: {track.name}, {track.length_m:.0f} m, {len(track.distance_m)} steps; "
           f"car: {car.name}; first lap {first:.2f} s (lap time {one.lap_time_s:.2f} s)")
-    print(f"cores: {os.cpu_count()}; points per sweep: {n1 * 6}")
+    load = os.getloadavg()[0] if hasattr(os, "getloadavg") else float("nan")
+    print(f"cores: {os.cpu_count()}; load average {load:.2f}; points per sweep: {n1 * 6}")
     results = {}
     for workers in (1, 2):
-        rows, wall, rate, steady = timed_sweep(car, track, vary, workers)
+        rows, wall, rate, steady, first_two = timed_sweep(car, track, vary, workers)
         results[workers] = (rows, rate, steady)
         print(f"workers={workers}: wall {wall:.2f} s, {rate:.1f} laps/s overall, "
-              f"{steady:.1f} laps/s steady")
+              f"{steady:.1f} laps/s steady; first two points after {first_two:.2f} s")
     same = all(a["lap_time_s"] == b["lap_time_s"]
                for a, b in zip(results[1][0], results[2][0], strict=True))
     print(f"scaling 2/1 workers: {results[2][1] / results[1][1]:.2f} overall, "
