@@ -235,6 +235,7 @@ def test_cli_compare_json_and_errors(track_file):
     r = run(["compare", str(EXAMPLES / "gt_coupe.toml"), "--track", track_file,
              "--set-variant", "aero.dragarea_m2=0.7"])
     assert r.exit_code == 2 and "did you mean" in r.output and "Traceback" not in r.output
+    assert r.output.startswith("lapbalance: --set-variant: aero.dragarea_m2:")
 
 
 def test_split_settings_keeps_lists_together():

@@ -227,7 +227,13 @@ def compare_command(base_file, variant_files, track_files, set_variants, out_dir
                          "--set-variant SECTION.KEY=VALUE[,...]", "compare")
     base = load_car(base_file)
     variants: list = [load_car(f) for f in variant_files]
-    variants += [split_settings(s) for s in set_variants]
+    for text in set_variants:
+        items = split_settings(text)
+        try:
+            base.with_overrides(items)  # report bad keys against --set-variant
+        except InputError as e:
+            raise InputError(e.message, "--set-variant", e.field) from None
+        variants.append(items)
     tracks = _load_tracks(track_files, step_m, closed)
     opts = {"start_speed_kph": start_speed_kph} if start_speed_kph is not None else {}
     result = compare(base, variants, tracks, simulate_options=opts)
