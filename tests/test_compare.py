@@ -109,8 +109,8 @@ def test_no_corners_is_one_straight(base):
     assert segment_times(r) == [pytest.approx(r.lap_time_s, rel=1e-15)]
 
 
-# Source: quasi-static lap time over a step, dt = 2 ds / (v_i + v_{i+1}) (trapezoidal mean of
-# 1/v would differ; this is the solver's documented rule), summed over the corner's steps.
+# Source: time over a step at constant acceleration, dt = 2 ds / (v_i + v_{i+1}) (uniformly
+# accelerated motion, s = (v0 + v1) t / 2), summed over the corner's steps.
 def test_corner_time_is_time_spent_from_entry_to_exit(base, track):
     r = simulate_lap(base, track)
     c1 = track.corners[0]
@@ -150,6 +150,8 @@ def test_time_delta_ends_at_lap_delta(base, track):
 def test_labels_and_bad_input(base, track):
     res = compare(base, [{"aero.drag_area_m2": 0.7}, ["aero.drag_area_m2=0.7"]], [track])
     assert res.labels == [base.name, "aero.drag_area_m2=0.7", "aero.drag_area_m2=0.7 (2)"]
+    two = compare(base, [{"aero.drag_area_m2": 0.7}], [track, track], labels=["a", "b"])
+    assert two.tracks == ["test_loop", "test_loop_2"] and two.labels == ["a", "b"]
     with pytest.raises(InputError, match="labels"):
         compare(base, [{"aero.drag_area_m2": 0.7}], [track], labels=["one"])
     with pytest.raises(InputError, match="unique"):

@@ -15,8 +15,9 @@ to plain tables (lists of dict rows, SI or unit-named keys) that the CLI prints 
     (variant minus base, negative = the variant is faster there) add up to the lap delta.
     Corners that overlap are cut at the next corner's entry.
 
-Segment times are read from the solver's ``time_s`` channel (elapsed time at each step, the
-trapezoidal sum of ``2 ds / (v_i + v_{i+1})``), interpolated linearly at the segment ends.
+Segment times are read from the solver's ``time_s`` channel (elapsed time at each step: the
+sum over steps of ``2 ds / (v_i + v_{i+1})``, each step at the mean of its end speeds),
+interpolated linearly at the segment ends.
 
 Aero balance bands: the mean of the ``aero_balance_front`` channel (front share of downforce,
 CG convention) over the track steps below ``low`` km/h and over those at or above ``high``
@@ -48,8 +49,8 @@ __all__ = ["CompareResult", "compare", "lap_segments", "segment_times", "sweep",
            "time_delta", "time_at"]
 
 #: Default speed bands for the low/high-speed aero balance [km/h]: below 120, at or above 180.
-#: Common practice: "slow" and "fast" corners are often split around these speeds for
-#: GT-class cars; change them with ``speed_bands_kph``.
+#: Engineering judgement (a documented default, not a published value): it separates slow
+#: from fast corners for GT-class cars; change it with ``speed_bands_kph``.
 SPEED_BANDS_KPH = (120.0, 180.0)
 
 
@@ -300,12 +301,12 @@ def _slug(name: str) -> str:
     return s[:60]
 
 
-def _unique(names: list[str], sep: str = " ") -> list[str]:
+def _unique(names: list[str], fmt: str = "{} ({})") -> list[str]:
     out, seen = [], {}
     for n in names:
         if n in seen:
             seen[n] += 1
-            n = f"{n}{sep}({seen[n]})"
+            n = fmt.format(n, seen[n])
         else:
             seen[n] = 1
         out.append(n)
@@ -372,7 +373,7 @@ def compare(base_car, variants, tracks, labels: Sequence[str] | None = None, *,
         raise InputError(f"speed bands {speed_bands_kph} must be 0 < low <= high km/h",
                          "compare", "speed_bands_kph")
     opts = dict(simulate_options or {})
-    keys = _unique([_slug(getattr(t, "name", "track")) for t in tracks], sep="_")
+    keys = _unique([_slug(getattr(t, "name", "track")) for t in tracks], fmt="{}_{}")
     all_laps, summary, segments = [], [], []
     for key, track in zip(keys, tracks, strict=True):
         laps = [simulate_lap(car, track, **opts) for car in cars]
