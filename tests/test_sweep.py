@@ -269,3 +269,9 @@ def test_cli_sweep_interrupt_says_how_to_resume(track_file, tmp_path, monkeypatc
              "--vary", "aero.drag_area_m2=0.7,0.8", "--out", str(tmp_path / "o")])
     assert r.exit_code == 130
     assert "rerun the same command to resume" in r.output
+
+
+def test_bad_cluster_address_is_input_error(car, track):
+    pytest.importorskip("dask.distributed")
+    with pytest.raises(InputError, match="--cluster.*check the address"):
+        sweep(car, track, {"aero.drag_area_m2": [0.8]}, cluster="tcp://127.0.0.1:notaport")

@@ -552,7 +552,7 @@ def _run_dask(cluster, raw, source, track, todo, options, record) -> None:
     if own:
         try:
             client = Client(str(cluster), timeout="20s")
-        except OSError as e:
+        except (OSError, ValueError) as e:
             raise InputError(f"cannot reach the Dask scheduler at {cluster} ({e}); check the "
                              "address (tcp://host:8786)", "--cluster") from None
     else:
