@@ -37,7 +37,10 @@ def __getattr__(name: str):
 
         return getattr(lap, name)
     if name in ("compare", "sweep"):
-        from lapbalance import compare as _compare
+        import importlib
 
+        # import_module, not "from lapbalance import compare": that form looks the name up on
+        # this package first and would re-enter this __getattr__ without end.
+        _compare = importlib.import_module("lapbalance.compare")
         return getattr(_compare, name)
     raise AttributeError(f"module 'lapbalance' has no attribute {name!r}")

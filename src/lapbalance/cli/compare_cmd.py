@@ -1,0 +1,363 @@
+"""`lapbalance compare` (a base car against variants) and `lapbalance sweep` (parameter sweeps)."""
+
+from __future__ import annotations
+
+import io
+import math
+import sys
+
+import click
+
+from lapbalance.car import load_car
+from lapbalance.cli import main
+from lapbalance.cli.common import echo_json, force_option, json_option, set_option, table
+from lapbalance.cli.lap_cmd import track_options
+from lapbalance.errors import InputError
+
+
+def _load_tracks(track_files, step_m, closed):
+    from lapbalance.track import load_track
+
+    if step_m <= 0 or step_m > 50:
+        raise InputError(f"= {step_m} must be between 0 and 50 m", "--step-m")
+    return [load_track(f, step_m=step_m, closed=closed) for f in track_files]
+
+
+def split_settings(text: str) -> list[str]:
+    """Split ``"a.b=1,c.d=[1, 2]"`` at commas outside brackets and quotes."""
+    out, cur, depth, quote = [], [], 0, None
+    for ch in text:
+        if quote:
+            quote = None if ch == quote else quote
+        elif ch in "\"'":
+            quote = ch
+        elif ch in "[{":
+            depth += 1
+        elif ch in "]}":
+            depth -= 1
+        elif ch == "," and depth == 0:
+            out.append("".join(cur).strip())
+            cur = []
+            continue
+        cur.append(ch)
+    out.append("".join(cur).strip())
+    items = [s for s in out if s]
+    if not items or any("=" not in s for s in items):
+        raise InputError(f'"{text}" is not section.key=value[,section.key=value...]',
+                         "--set-variant")
+    return items
+
+
+def _f(x, fmt: str) -> str:
+    if x is None or (isinstance(x, float) and not math.isfinite(x)):
+        return "-"
+    return format(x, fmt)
+
+
+def _pct_pair(cg, ground) -> str:
+    if cg is None or not math.isfinite(cg):
+        return "-"
+    return f"{cg * 100:.1f} ({ground * 100:.1f})"
+
+
+def format_compare(result, track: str) -> str:
+    """Text tables of one track: the lap summary and the per-segment time deltas."""
+    rows = result.summary_for(track)
+    lo, hi = result.speed_bands_kph
+    lines = [f"track {track}"]
+    lines.append(table(
+        [[r["car"], _f(r["lap_time_s"], ".3f"), _f(r["delta_s"], "+.3f"),
+          _f(r["top_speed_kph"], ".1f"),
+          _pct_pair(r["aero_balance_front_low"], r["aero_balance_front_ground_low"]),
+          _pct_pair(r["aero_balance_front_high"], r["aero_balance_front_ground_high"]),
+          _f(r["liftoff_worst_shift"], "+.3f"), r["flagged_corners"]] for r in rows],
+        ["car", "lap s", "delta s", "top km/h", f"bal <{lo:g} %", f"bal >={hi:g} %",
+         "lift shift", "flagged"]))
+    lines.append(f"bal = front share of downforce, mean over steps below {lo:g} km/h / at or "
+                 f"above {hi:g} km/h, as CG convention (wheel-restrained scales in "
+                 "brackets); delta = car minus base (negative = faster)")
+    segs = result.segments_for(track)
+    labels = result.labels
+    by_car = {lab: [s for s in segs if s["car"] == lab] for lab in labels}
+    base = by_car[labels[0]]
+    if len(base) > 1:
+        srows = []
+        for i, s in enumerate(base):
+            row = [s["segment"], f"{s['start_m']:.0f}", f"{s['end_m']:.0f}",
+                   f"{s['time_s']:.3f}"]
+            row += [f"{by_car[lab][i]['delta_s']:+.3f}" for lab in labels[1:]]
+            verdicts = [by_car[lab][i]["liftoff_verdict"] for lab in labels]
+            row.append("/".join(v or "-" for v in verdicts) if s["kind"] == "corner" else "")
+            srows.append(row)
+        tot = [sum(by_car[lab][i]["delta_s"] for i in range(len(base))) for lab in labels[1:]]
+        srows.append(["lap", "", "", f"{sum(s['time_s'] for s in base):.3f}"]
+                     + [f"{t:+.3f}" for t in tot] + [""])
+        head = ["segment", "from m", "to m", "base s"] + [f"d {j + 1} s"
+                                                          for j in range(len(labels) - 1)]
+        lines.append("")
+        lines.append(table(srows, head + ["lift-off verdicts"]))
+        lines.append("C = corner (entry to exit), S = straight between corners; d j = time "
+                     "of car j minus base there; verdicts in car order: "
+                     + "; ".join(f"{j}: {lab}" for j, lab in enumerate(labels)))
+    return "\n".join(lines)
+
+
+def _csv_rows(rows, columns):
+    from lapbalance.outputs import csv_text
+
+    def fmt(v):
+        if v is None:
+            return ""
+        if isinstance(v, float):
+            return "" if not math.isfinite(v) else f"{v:.6g}"
+        return str(v)
+
+    return csv_text(columns, ([fmt(r.get(c)) for c in columns] for r in rows))
+
+
+SUMMARY_COLUMNS = ("car", "lap_time_s", "delta_s", "top_speed_kph", "min_speed_kph",
+                   "aero_balance_front_low", "aero_balance_front_high",
+                   "aero_balance_front_ground_low", "aero_balance_front_ground_high",
+                   "liftoff_worst_shift", "flagged_corners")
+SEGMENT_COLUMNS = ("car", "segment", "kind", "corner_id", "start_m", "end_m", "time_s",
+                   "delta_s", "min_speed_kph", "liftoff_verdict", "liftoff_max_shift",
+                   "liftoff_max_usage_rear")
+
+
+def _png(fig) -> bytes:
+    if isinstance(fig, bytes):
+        return fig
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png")
+    return buf.getvalue()
+
+
+def _figure():
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
+    fig = Figure(figsize=(9, 6), dpi=100, layout="constrained")
+    FigureCanvasAgg(fig)
+    return fig
+
+
+def _overlay_png(laps, labels) -> bytes:
+    """Speed and aero balance over distance, one line per car (fallback figure)."""
+    fig = _figure()
+    ax1, ax2 = fig.subplots(2, 1, sharex=True)
+    for r, lab in zip(laps, labels, strict=True):
+        d = r.channels["distance_m"]
+        ax1.plot(d, r.channels["speed_kph"], lw=1, label=lab)
+        ax2.plot(d, r.channels["aero_balance_front"] * 100, lw=1, label=lab)
+    ax1.set_ylabel("speed [km/h]")
+    ax2.set_ylabel("aero balance, front share [%]\n(CG convention)")
+    ax2.set_xlabel("distance [m]")
+    ax1.legend(fontsize=8)
+    for ax in (ax1, ax2):
+        ax.grid(True, alpha=0.3)
+    return _png(fig)
+
+
+def _delta_map_png(base, others, labels) -> bytes:
+    """Track maps coloured by time gained or lost against the base (fallback figure)."""
+    import numpy as np
+
+    from lapbalance.compare import time_delta
+
+    fig = _figure()
+    axes = np.atleast_1d(fig.subplots(1, len(others), squeeze=False)).ravel()
+    deltas = [time_delta(base, o) for o in others]
+    lim = max(max(float(np.max(np.abs(dl))) for dl in deltas), 1e-6)
+    x, y = base.channels["x_m"], base.channels["y_m"]
+    for ax, dl, lab in zip(axes, deltas, labels, strict=True):
+        m = ax.scatter(x, y, c=dl, s=4, cmap="coolwarm", vmin=-lim, vmax=lim)
+        ax.set_aspect("equal")
+        ax.set_title(f"{lab}\nminus base", fontsize=9)
+        ax.set_xticks([])
+        ax.set_yticks([])
+    fig.colorbar(m, ax=list(axes), label="elapsed-time difference [s] (> 0 behind)")
+    return _png(fig)
+
+
+def compare_figures_png(result, i: int, key: str) -> dict[str, bytes]:
+    """Overlay and delta-map PNGs of track ``i``; uses lapbalance.plots when it has them."""
+    laps, labels = result.laps[i], result.labels
+    try:
+        from lapbalance import plots as _plots
+    except ImportError:
+        _plots = None
+    out = {}
+    if _plots is not None and hasattr(_plots, "overlay_figure"):
+        out[f"overlay_{key}.png"] = _png(_plots.overlay_figure(laps, labels))
+    else:
+        out[f"overlay_{key}.png"] = _overlay_png(laps, labels)
+    if len(laps) > 1:
+        if _plots is not None and hasattr(_plots, "delta_figure"):
+            for j, r in enumerate(laps[1:]):
+                out[f"delta_{key}_{j + 1}.png"] = _png(_plots.delta_figure(laps[0], r))
+        else:
+            out[f"delta_{key}.png"] = _delta_map_png(laps[0], laps[1:], labels[1:])
+    return out
+
+
+@main.command("compare")
+@click.argument("base_file", type=click.Path(dir_okay=False))
+@click.argument("variant_files", nargs=-1, type=click.Path(dir_okay=False))
+@click.option("--track", "track_files", multiple=True, required=True,
+              type=click.Path(dir_okay=False), help="Track file (repeatable).")
+@click.option("--set-variant", "set_variants", multiple=True,
+              metavar="SECTION.KEY=VALUE[,...]",
+              help='A variant made of overrides on the base, e.g. --set-variant '
+                   '"aero.downforce_area_m2=1.9,aero.drag_area_m2=0.86" (repeatable).')
+@click.option("--out", "out_dir", type=click.Path(file_okay=False),
+              help="Write compare_<track>.csv, corners_<track>.csv and plots here.")
+@click.option("--plots/--no-plots", default=True, show_default=True,
+              help="With --out, also write PNG figures.")
+@force_option
+@json_option
+@track_options
+def compare_command(base_file, variant_files, track_files, set_variants, out_dir, plots,
+                    force, as_json, step_m, closed, start_speed_kph):
+    """Run BASE_FILE and each VARIANT_FILE (car files, e.g. with base = "...") over every
+    --track; print lap times, deltas, aero balance and per-corner time won or lost."""
+    from lapbalance.compare import compare
+
+    if not variant_files and not set_variants:
+        raise InputError("give at least one variant: a car file after the base, or "
+                         "--set-variant SECTION.KEY=VALUE[,...]", "compare")
+    base = load_car(base_file)
+    variants: list = [load_car(f) for f in variant_files]
+    for text in set_variants:
+        items = split_settings(text)
+        try:
+            base.with_overrides(items)  # report bad keys against --set-variant
+        except InputError as e:
+            raise InputError(e.message, "--set-variant", e.field) from None
+        variants.append(items)
+    tracks = _load_tracks(track_files, step_m, closed)
+    opts = {"start_speed_kph": start_speed_kph} if start_speed_kph is not None else {}
+    result = compare(base, variants, tracks, simulate_options=opts)
+    if out_dir:
+        from lapbalance.outputs import staged_dir
+
+        with staged_dir(out_dir, force=force) as tmp:
+            for i, key in enumerate(result.tracks):
+                (tmp / f"compare_{key}.csv").write_text(
+                    _csv_rows(result.summary_for(key), SUMMARY_COLUMNS), encoding="utf-8")
+                (tmp / f"corners_{key}.csv").write_text(
+                    _csv_rows(result.segments_for(key), SEGMENT_COLUMNS), encoding="utf-8")
+                if plots:
+                    for name, data in compare_figures_png(result, i, key).items():
+                        (tmp / name).write_bytes(data)
+    if as_json:
+        echo_json(result.to_json())
+        return
+    click.echo("\n\n".join(format_compare(result, key) for key in result.tracks))
+    if out_dir:
+        click.echo(f"\nwrote {out_dir}/compare_<track>.csv, corners_<track>.csv"
+                   + (" and plots" if plots else ""))
+
+
+# --------------------------------------------------------------------------------------------
+# sweep
+# --------------------------------------------------------------------------------------------
+
+
+class _Progress:
+    """A click progress bar on stderr, opened at the first report."""
+
+    def __init__(self):
+        self.bar = None
+
+    def __call__(self, done, total, row):
+        if self.bar is None:
+            self.bar = click.progressbar(length=total, label="sweep", file=sys.stderr,
+                                         show_pos=True)
+            self.bar.__enter__()
+        self.bar.update(done - self.bar.pos)
+
+    def close(self):
+        if self.bar is not None:
+            self.bar.__exit__(None, None, None)
+            self.bar = None
+
+
+def format_sweep(rows, keys, limit: int = 30) -> str:
+    """Text table of sweep rows (the fastest ``limit`` points when there are more)."""
+    shown = rows
+    note = ""
+    if len(rows) > limit:
+        ok = [r for r in rows if r["status"] == "ok"]
+        shown = sorted(ok, key=lambda r: r["lap_time_s"])[:limit]
+        note = f"(fastest {len(shown)} of {len(rows)} points; all in results.csv with --out)"
+    body = []
+    for r in shown:
+        body.append([*(f"{r[k]:.6g}" for k in keys), _f(r["lap_time_s"], ".3f"),
+                     _f(r["top_speed_kph"], ".1f"), _f(r["liftoff_worst_shift"], "+.3f"),
+                     _f(r["flagged_corners"], "d"), _f(r["liftoff_max_usage_rear"], ".3f"),
+                     r["status"]])
+    text = table(body, [*keys, "lap s", "top km/h", "lift shift", "flagged", "rear off",
+                        "status"])
+    text += ("\nlift shift = largest balance change on lift-off over all corners (> 0 toward "
+             "oversteer); rear off = highest rear usage after lift-off")
+    return text + ("\n" + note if note else "")
+
+
+@main.command("sweep")
+@click.argument("car_file", type=click.Path(dir_okay=False))
+@click.argument("track_file", type=click.Path(dir_okay=False))
+@click.option("--vary", "vary_specs", multiple=True, required=True,
+              metavar="SECTION.KEY=LO:HI:N|A,B,C",
+              help="A numeric car key and its values: n values from lo to hi, or a list "
+                   "(repeatable; with --lhs, LO:HI is enough).")
+@click.option("--lhs", "lhs_n", type=int, default=None,
+              help="Latin hypercube of N points over the --vary ranges instead of a grid.")
+@click.option("--seed", type=int, default=0, show_default=True,
+              help="Seed of the Latin hypercube.")
+@click.option("--workers", type=int, default=1, show_default=True,
+              help="Local processes to run points in parallel.")
+@click.option("--cluster", default=None, metavar="ADDRESS",
+              help="Run on a Dask scheduler, e.g. tcp://10.0.0.5:8786 (needs "
+                   "lapbalance[cluster]).")
+@click.option("--out", "out_dir", type=click.Path(file_okay=False),
+              help="Folder for sweep.csv (a rerun resumes), results.csv, sweep.json, plots.")
+@force_option
+@set_option
+@json_option
+@track_options
+def sweep_command(car_file, track_file, vary_specs, lhs_n, seed, workers, cluster, out_dir,
+                  force, overrides, as_json, step_m, closed, start_speed_kph):
+    """Run CAR_FILE over TRACK_FILE at every point of a grid (or Latin hypercube) of car
+    settings; print lap time and lift-off figures per point."""
+    from lapbalance.sweep import parse_vary, sweep
+
+    method = "lhs" if lhs_n is not None else "grid"
+    vary: dict[str, list[float]] = {}
+    for spec in vary_specs:
+        key, values = parse_vary(spec, method)
+        if key in vary:
+            raise InputError("is given twice; vary each key once", "--vary", key)
+        vary[key] = values
+    car = load_car(car_file, overrides)
+    (track,) = _load_tracks([track_file], step_m, closed)
+    opts = {"start_speed_kph": start_speed_kph} if start_speed_kph is not None else {}
+    bar = _Progress()
+    try:
+        rows = sweep(car, track, vary, method=method, n=lhs_n, workers=workers,
+                     cluster=cluster, out=out_dir, seed=seed, progress=bar, force=force,
+                     simulate_options=opts)
+    except KeyboardInterrupt:
+        bar.close()
+        kept = (f"; finished points are kept in {out_dir}/sweep.csv, rerun the same command "
+                "to resume") if out_dir else ""
+        click.echo(f"lapbalance: sweep interrupted{kept}", err=True)
+        sys.exit(130)
+    finally:
+        bar.close()
+    if as_json:
+        echo_json(rows)
+        return
+    click.echo(format_sweep(rows, list(vary)))
+    if out_dir:
+        click.echo(f"\nwrote {out_dir}/results.csv, sweep.csv, sweep.json"
+                   + (" and plots" if len(vary) <= 2 else ""))
