@@ -512,8 +512,7 @@ def steady_state(car: Car, speed: float, curvature: float = 0.0, grade: float = 
     p, gears, trpm, tnm, mx, my, mt = car_parameters(car)
     out = np.empty(_k.NOUT)
     F = _k.control_for_ax(speed, curvature, grade, bank, ax, p, mx, my, mt, out)
-    names = {getattr(_k, n): n[2:].lower() for n in dir(_k) if n.startswith("O_")}
-    d = {names[i]: float(out[i]) for i in range(_k.NOUT)}
+    d = _state_dict(out)
     d["control_n"] = float(F)
     d["g"] = G0
     return d
@@ -577,5 +576,13 @@ def evaluate_forces(car: Car, speed: float, curvature: float = 0.0, grade: float
     p, gears, trpm, tnm, mx, my, mt = car_parameters(car)
     out = np.empty(_k.NOUT)
     _k.state(speed, curvature, grade, bank, drive_n, brake_n, p, mx, my, mt, out)
-    names = {getattr(_k, n): n[2:].lower() for n in dir(_k) if n.startswith("O_")}
-    return {names[i]: float(out[i]) for i in range(_k.NOUT)}
+    return _state_dict(out)
+
+
+#: Kernel state-output index -> lower-case name (``O_FZF`` -> ``"fzf"``).
+_STATE_NAMES = {getattr(_k, n): n[2:].lower() for n in dir(_k) if n.startswith("O_")}
+
+
+def _state_dict(out: np.ndarray) -> dict[str, float]:
+    """A kernel state vector as {name: value} (names from the ``O_*`` indices)."""
+    return {_STATE_NAMES[i]: float(out[i]) for i in range(_k.NOUT)}
