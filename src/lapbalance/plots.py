@@ -104,8 +104,13 @@ def _figure(width: float, height: float) -> Figure:
     return fig
 
 
+def _plain(text: str) -> str:
+    """Text drawn literally (a ``$`` would otherwise start matplotlib's math mode)."""
+    return str(text).replace("$", r"\$")
+
+
 def _names(result: LapResult) -> str:
-    return f"{result.car.name} — {getattr(result.track, 'name', '') or 'track'}"
+    return _plain(f"{result.car.name} — {getattr(result.track, 'name', '') or 'track'}")
 
 
 def _distance(result: LapResult) -> np.ndarray:
@@ -468,8 +473,8 @@ def _labels(results: Sequence[LapResult], labels: Sequence[str] | None) -> list[
     if labels is not None:
         if len(labels) != len(results):
             raise ValueError(f"{len(labels)} labels for {len(results)} results")
-        return [str(s) for s in labels]
-    return [r.car.name for r in results]
+        return [_plain(s) for s in labels]
+    return [_plain(r.car.name) for r in results]
 
 
 @_styled
@@ -504,7 +509,7 @@ def overlay_figure(results: Sequence[LapResult], labels: Sequence[str] | None = 
     axes[1].set_xlabel("distance [m]")
     axes[1].set_xlim(0, max(float(_distance(r)[-1]) for r in results))
     _corner_axis(axes[0], results[0])
-    track = getattr(results[0].track, "name", "") or "track"
+    track = _plain(getattr(results[0].track, "name", "") or "track")
     fig.suptitle(f"{' vs '.join(labels)} — {track}: speed and balance", fontsize=10.5)
     return fig
 
@@ -568,7 +573,7 @@ def delta_figure(base: LapResult, other: LapResult, labels: Sequence[str] | None
     cb = fig.colorbar(lc, ax=axm, shrink=0.85, extend="both")
     cb.set_label("time delta rate [ms/m]  (> 0: losing)")
     axm.set_title("where the time goes", fontsize=9)
-    track = getattr(base.track, "name", "") or "track"
+    track = _plain(getattr(base.track, "name", "") or "track")
     total = other.lap_time_s - base.lap_time_s
     fig.suptitle(f"{lo} (other) vs {lb} (base) — {track}: lap time delta {total:+.3f} s",
                  fontsize=10.5)
