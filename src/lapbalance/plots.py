@@ -370,6 +370,9 @@ def aero_balance_figure(result: LapResult) -> Figure:
     if not any_finite:
         ax.text(0.5, 0.5, "no downforce: aero balance undefined", transform=ax.transAxes,
                 ha="center", color=PALETTE["muted"])
+    elif np.nanmean(np.asarray(ch["downforce_n"], float)) < 0:
+        ax.text(0.02, 0.02, "net lift: shares of a negative total can leave 0-100 %",
+                transform=ax.transAxes, fontsize=8, color=PALETTE["muted"])
     ax.set_xlabel("speed [km/h]")
     ax.set_ylabel("front share of downforce [%]")
     ax.legend(loc="best")

@@ -207,7 +207,7 @@ def _corner_section(result: LapResult) -> str:
     table = _table(["corner", "dir", "apex [m]", "min radius [m]", "min speed [km/h]",
                     "limiting axle", "balance at min [-]", "u_f at min", "u_r at min",
                     "lift-off verdict", "worst shift [-]", "coasting shift [-]",
-                    "u_r after lift-off", "why"], rows, text_cols=(0, 1, 5, 9, 13),
+                    "u_r after lift-off", "why"], rows, text_cols=(0, 1, 5, 13),
                    cell_classes=classes)
     legend = ('<p class="note">balance = u_r − u_f at the slowest point of the corner '
               "(&gt; 0 oversteer-leaning); worst shift = largest change of the balance index "
@@ -242,7 +242,7 @@ def _worst_steps(result: LapResult) -> str:
             + _table(["corner", "verdict", "step", "at [m]", "speed [km/h]",
                       "balance shift [-]", "front load change [N]", "u_f on", "u_f off",
                       "u_r on", "u_r off", "coasting shift [-]", "u_r coasting"], rows,
-                     text_cols=(0, 1, 2), cell_classes=classes))
+                     text_cols=(0, 2), cell_classes=classes))
 
 
 def _figures(result: LapResult, dpi: int) -> str:
