@@ -78,8 +78,10 @@ def test_verdict_rules_follow_thresholds():
     assert liftoff.verdict(base, base, t)[0] == "stable"
     assert liftoff.verdict(base, {**base, "usage_rear_off": 0.96}, t)[0] == "watch"
     assert liftoff.verdict(base, {**base, "usage_rear_off": 1.02}, t)[0] == "rear-saturates"
-    fast = {**base, "balance_shift": 0.12, "speed_kph": 200.0}
+    fast = {**base, "balance_shift": 0.12, "speed_kph": 200.0, "usage_rear_off": 0.90}
     assert liftoff.verdict(fast, base, t)[0] == "watch"
+    freed_front = {**fast, "usage_rear_off": 0.60}
+    assert liftoff.verdict(freed_front, base, t)[0] == "stable"
     slow = {**base, "balance_shift": 0.12, "speed_kph": 100.0}
     assert liftoff.verdict(slow, base, t)[0] == "stable"
     assert liftoff.verdict(None, None, t)[0] == "not-checked"

@@ -26,7 +26,20 @@ CONVENTIONS = ("cg", "ground", "restraint")
 
 
 def dynamic_pressure(air_density, speed):
-    r"""Dynamic pressure q = ½ rho v² [Pa] from density [kg/m³] and speed [m/s]."""
+    r"""Dynamic pressure q = ½ rho v².
+
+    Parameters
+    ----------
+    air_density : float or array
+        Air density. [kg/m³]
+    speed : float or array
+        Air speed relative to the car. [m/s]
+
+    Returns
+    -------
+    float or array
+        Dynamic pressure. [Pa]
+    """
     return 0.5 * air_density * np.square(speed)
 
 
@@ -76,18 +89,25 @@ def to_cg_convention(front, rear, drag, cg_height, wheelbase, convention="ground
     tuple
         (front, rear) in the CG convention. [N]; the total is unchanged.
     """
+    if convention not in CONVENTIONS:
+        raise ValueError(f"unknown convention {convention!r}; valid: {', '.join(CONVENTIONS)}")
     if convention == "cg":
         return front, rear
     z = 0.0 if convention == "ground" else restraint_height
-    if convention not in CONVENTIONS:
-        raise ValueError(f"unknown convention {convention!r}; valid: {', '.join(CONVENTIONS)}")
     d = restraint_shift(drag, cg_height, wheelbase, z)
     return front + d, rear - d
 
 
 def from_cg_convention(front, rear, drag, cg_height, wheelbase, convention="ground",
                        restraint_height=0.0):
-    """Inverse of :func:`to_cg_convention`: what scales restrained that way would read [N]."""
+    """Inverse of :func:`to_cg_convention`: what scales restrained that way would read.
+
+    Parameters and units as :func:`to_cg_convention`; ``front``, ``rear`` are in the CG
+    convention [N] (or areas [m²] with ``drag`` as a drag area), the result is the split that
+    a balance restrained per ``convention`` would read, in the same unit.
+    """
+    if convention not in CONVENTIONS:
+        raise ValueError(f"unknown convention {convention!r}; valid: {', '.join(CONVENTIONS)}")
     if convention == "cg":
         return front, rear
     z = 0.0 if convention == "ground" else restraint_height
@@ -100,8 +120,18 @@ def j1594_axle_lift_coefficients(lift_coefficient, pitch_moment_coefficient):
 
     .. math:: C_{LF} = C_L/2 + C_{PM}, \quad C_{LR} = C_L/2 - C_{PM}
 
-    ``pitch_moment_coefficient`` is taken about the ground-level mid-wheelbase point, nose-up
-    positive, reference length = wheelbase [2]. Lift coefficients are positive up. [-]
+    Parameters
+    ----------
+    lift_coefficient : float or array
+        Total lift coefficient C_L, positive up. [-]
+    pitch_moment_coefficient : float or array
+        C_PM about the ground-level mid-wheelbase point, nose-up positive, reference length
+        = wheelbase [2]. [-]
+
+    Returns
+    -------
+    tuple
+        (C_LF, C_LR), axle lift coefficients, positive up, ground-referenced. [-]
     """
     return (lift_coefficient / 2 + pitch_moment_coefficient,
             lift_coefficient / 2 - pitch_moment_coefficient)
@@ -114,7 +144,18 @@ def j1594_total_and_moment(front_lift_coefficient, rear_lift_coefficient):
 
 
 def balance(front, rear):
-    """Front share of the total downforce [-]; NaN when the total is zero."""
+    """Aero balance: front share of the total downforce; NaN when the total is zero.
+
+    Parameters
+    ----------
+    front, rear : float or array
+        Front and rear axle downforce (or downforce areas), same convention. [N] or [m²]
+
+    Returns
+    -------
+    float or array
+        front / (front + rear). [-]
+    """
     total = front + rear
     with np.errstate(invalid="ignore", divide="ignore"):
         return np.where(total != 0, front / np.where(total != 0, total, 1.0), np.nan) \
@@ -148,3 +189,125 @@ def vertical_centre_of_pressure(front_cg, rear_cg, drag, cg_height, drag_height,
     if total == 0:
         return float("nan")
     return wheelbase * rv / total
+
+
+def pitch_moment_about_mid(pm_p, lift, drag, x_p, z_p):
+    r"""Transfer a pitching moment to the SAE J1594 reference point (ground, mid-wheelbase).
+
+    J1594 axes: x rearward, y right, z up [2]; the pitching moment is about +y, so nose-up is
+    positive. With the force on the car F = (D, 0, L_ift) and P at r = (x_p, 0, z_p) from the
+    mid-wheelbase ground point, M_mid = M_P + r x F, whose y component is:
+
+    .. math:: PM_{mid} = PM_P + z_p D - x_p L_{ift}
+
+    A pure drag at height z_p therefore gives a nose-up moment z_p D, which unloads the front
+    axle by D z_p / L (the wheel-restrained reading).
+
+    Parameters
+    ----------
+    pm_p : float or array
+        Pitching moment about P, nose-up positive. [N·m]
+    lift : float or array
+        Aerodynamic lift on the car, positive up (= -downforce). [N]
+    drag : float or array
+        Drag, positive rearward. [N]
+    x_p : float
+        Position of P rearward of the mid-wheelbase point. [m]
+    z_p : float
+        Height of P above the ground. [m]
+
+    Returns
+    -------
+    float or array
+        Pitching moment about the ground-level mid-wheelbase point, nose-up positive. [N·m]
+    """
+    return pm_p + z_p * drag - x_p * lift  # r x F, y component, J1594 axes [2]
+
+
+def ground_split_from_force_and_moment(lift, pm_mid, wheelbase):
+    r"""Axle downforce in the ground convention from lift and the J1594 pitching moment.
+
+    Force form of :func:`j1594_axle_lift_coefficients`:
+    ``Lift_f = L_ift/2 + PM_mid/L``, ``Lift_r = L_ift/2 - PM_mid/L`` [2]; downforce = -lift.
+
+    Parameters
+    ----------
+    lift : float or array
+        Total lift, positive up. [N]
+    pm_mid : float or array
+        Pitching moment about the ground-level mid-wheelbase point, nose-up positive. [N·m]
+    wheelbase : float
+        Wheelbase. [m]
+
+    Returns
+    -------
+    tuple
+        (front, rear) axle downforce, ground convention (positive down). [N]
+    """
+    return -(lift / 2 + pm_mid / wheelbase), -(lift / 2 - pm_mid / wheelbase)
+
+
+def split_from_force_and_moment(lift, drag, pm_p, x_p, z_p, wheelbase, cg_height):
+    r"""Front/rear downforce in the CG convention from a CFD-style force and moment set.
+
+    The moment is moved to the ground-level mid-wheelbase point
+    (:func:`pitch_moment_about_mid`), split as SAE J1594 does (ground convention), then moved to
+    the CG convention (front += D h_cg / L, rear -= the same) [1], [2].
+
+    Parameters
+    ----------
+    lift : float or array
+        Total lift on the car, positive up. [N]
+    drag : float or array
+        Drag, positive rearward. [N]
+    pm_p : float or array
+        Pitching moment about P, nose-up positive. [N·m]
+    x_p : float
+        Position of P rearward of the mid-wheelbase ground point. [m]
+    z_p : float
+        Height of P above the ground. [m]
+    wheelbase : float
+        Wheelbase. [m]
+    cg_height : float
+        CG height of the car on track. [m]
+
+    Returns
+    -------
+    tuple
+        (front_cg, rear_cg) axle downforce in the CG convention (positive down). [N]
+    """
+    pm_mid = pitch_moment_about_mid(pm_p, lift, drag, x_p, z_p)
+    front_g, rear_g = ground_split_from_force_and_moment(lift, pm_mid, wheelbase)
+    return to_cg_convention(front_g, rear_g, drag, cg_height, wheelbase, "ground")
+
+
+def split_from_coefficients(lift_coefficient, drag_coefficient, pitch_moment_coefficient,
+                            wheelbase, cg_height):
+    r"""Front/rear downforce *areas* per unit frontal area in the CG convention (J1594 input).
+
+    ``C_LF = C_L/2 + C_PM``, ``C_LR = C_L/2 - C_PM`` (ground-referenced, lift positive up) [2];
+    the downforce coefficients are their negatives; the CG convention adds
+    ``C_D h_cg / L`` to the front and removes it from the rear [1]. Multiply by the frontal
+    area for downforce areas and by q A for forces.
+
+    Parameters
+    ----------
+    lift_coefficient : float or array
+        C_L, positive up. [-]
+    drag_coefficient : float or array
+        C_D, positive rearward. [-]
+    pitch_moment_coefficient : float or array
+        C_PM about the ground-level mid-wheelbase point, nose-up positive, reference length
+        = wheelbase. [-]
+    wheelbase : float
+        Wheelbase. [m]
+    cg_height : float
+        CG height of the car on track. [m]
+
+    Returns
+    -------
+    tuple
+        (front, rear) downforce coefficients in the CG convention (positive down). [-]
+    """
+    clf, clr = j1594_axle_lift_coefficients(lift_coefficient, pitch_moment_coefficient)
+    return to_cg_convention(-clf, -clr, drag_coefficient, cg_height, wheelbase, "ground")

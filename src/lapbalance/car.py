@@ -807,6 +807,7 @@ def _build_aero(v: dict, ch: Chassis, sus: Suspension, air: Air, src: str, folde
         total = fa + ra
         bal_in = float("nan")
         conv = amap.convention
+        z = amap.restraint_height if conv == "restraint" else 0.0
     return Aero(
         float(f_cg), float(r_cg), float(drag_area), conv, float(bal_in), z,
         v["drag_height"], amap)

@@ -165,7 +165,7 @@ def _state_once(v, kappa, grade, bank, f_drive, f_brake, p, claf, clar, cda, out
     x = f_drive - f_brake - rr
     res = axle_loads(m, g_n, a, b, L, h, p[P_TF], p[P_TR], p[P_ZF], p[P_ZR], p[P_KF], a_y,
                      aero_f, aero_r, x)
-    out[O_AX] = (x - drag - m * G * math.sin(grade)) / m
+    out[O_AX] = (x - drag - (m * G * math.sin(grade) if grade != 0.0 else 0.0)) / m
     out[O_AY] = a_y
     out[O_DRAG] = drag
     out[O_DOWNF] = aero_f + aero_r
@@ -292,6 +292,13 @@ def control_for_ax(v, kappa, grade, bank, ax, p, mx, my, mt, out):
     Leaves ``out`` holding the state at that force.
     """
     m = p[P_MASS]
+    if p[P_USEMAP] == 0.0:
+        q = 0.5 * p[P_RHO] * v * v
+        a_c, a_y, g_n = road_accelerations(v, kappa, grade, bank)
+        F = (m * ax + q * p[P_CDA] + p[P_CRR] * (m * g_n + q * (p[P_CLAF] + p[P_CLAR]))
+             + m * G * math.sin(grade))
+        state_control(v, kappa, grade, bank, F, p, mx, my, mt, out)
+        return F
     F = 0.0
     state_control(v, kappa, grade, bank, F, p, mx, my, mt, out)
     for _ in range(6):
@@ -344,7 +351,16 @@ def overrun_force(v, p, gears):
 @njit(cache=True)
 def steady_control(v, kappa, grade, bank, p, mx, my, mt, out):
     """Control force [N] holding speed (a_x = 0); ``out`` holds that state."""
-    return control_for_ax(v, kappa, grade, bank, 0.0, p, mx, my, mt, out)
+    if p[P_USEMAP] != 0.0:
+        return control_for_ax(v, kappa, grade, bank, 0.0, p, mx, my, mt, out)
+    # without a map drag and rolling resistance do not depend on the control: one evaluation
+    m = p[P_MASS]
+    q = 0.5 * p[P_RHO] * v * v
+    a_c, a_y, g_n = road_accelerations(v, kappa, grade, bank)
+    F = (q * p[P_CDA] + p[P_CRR] * (m * g_n + q * (p[P_CLAF] + p[P_CLAR]))
+         + m * G * math.sin(grade))
+    state_control(v, kappa, grade, bank, F, p, mx, my, mt, out)
+    return F
 
 
 @njit(cache=True)
@@ -360,80 +376,153 @@ def _feasible_at(v, kappa, grade, bank, F, p, mx, my, mt, out):
 
 
 @njit(cache=True)
-def largest_feasible_control(v, kappa, grade, bank, f_ok, f_bad, p, mx, my, mt, out, tol):
-    """Bisect between a feasible control ``f_ok`` and an infeasible ``f_bad`` [N]; return the
-    feasible end of the final bracket (works for f_bad above or below f_ok)."""
-    lo = f_ok
-    hi = f_bad
-    while abs(hi - lo) > tol:
-        mid = 0.5 * (lo + hi)
-        if _feasible_at(v, kappa, grade, bank, mid, p, mx, my, mt, out):
-            lo = mid
+def _g_control(v, kappa, grade, bank, F, p, mx, my, mt, out):
+    """Usage excess max(u_f, u_r) - 1 at control F [N]; BIG when an axle unloads."""
+    st = state_control(v, kappa, grade, bank, F, p, mx, my, mt, out)
+    if st != 0:
+        return BIG
+    return max_usage(out) - 1.0
+
+
+@njit(cache=True)
+def _g_speed(v, kappa, grade, bank, p, mx, my, mt, out):
+    """Usage excess at steady speed v [m/s]; BIG when an axle unloads or the car rolls."""
+    steady_control(v, kappa, grade, bank, p, mx, my, mt, out)
+    if out[O_STATUS] != 0.0:
+        return BIG
+    return max_usage(out) - 1.0
+
+
+@njit(cache=True)
+def _refine(kind, x_ok, g_ok, x_bad, g_bad, v, kappa, grade, bank, p, mx, my, mt, out, xtol):
+    """Illinois (modified regula falsi) search for the feasibility boundary.
+
+    ``kind`` 0: x is the speed [m/s] (steady state); 1: x is the control force [N] at speed
+    ``v``. Requires g(x_ok) <= 0 < g(x_bad); returns a feasible x within ``xtol`` of the
+    boundary (or whose usage is within 1e-7 of 1). Falls back to bisection while g(x_bad) is
+    not finite (an unloaded axle).
+    """
+    lo = x_ok
+    hi = x_bad
+    glo = g_ok
+    ghi = g_bad
+    wlo = g_ok  # working values (halved by the Illinois rule)
+    whi = g_bad
+    last = 0
+    for _ in range(80):
+        if abs(hi - lo) <= xtol or glo > -1e-7:
+            break
+        w = hi - lo
+        if ghi >= 0.5 * BIG:
+            x = lo + 0.5 * w
+            last = 0
         else:
-            hi = mid
+            x = (lo * whi - hi * wlo) / (whi - wlo)
+            a = lo + 0.02 * w
+            b = hi - 0.02 * w
+            if (x - a) * (x - b) > 0.0:  # outside the inner 96 % of the bracket
+                x = lo + 0.5 * w
+        if kind == 0:
+            gx = _g_speed(x, kappa, grade, bank, p, mx, my, mt, out)
+        else:
+            gx = _g_control(v, kappa, grade, bank, x, p, mx, my, mt, out)
+        if gx <= 0.0:
+            lo = x
+            glo = gx
+            wlo = gx
+            if last == -1:
+                whi *= 0.5
+            last = -1
+        else:
+            hi = x
+            ghi = gx
+            whi = gx
+            if last == 1:
+                wlo *= 0.5
+            last = 1
     return lo
+
+
+@njit(cache=True)
+def largest_feasible_control(v, kappa, grade, bank, f_ok, f_bad, p, mx, my, mt, out, tol):
+    """Feasible control [N] nearest the boundary between a feasible ``f_ok`` and an
+    infeasible ``f_bad`` (either side)."""
+    g_ok = _g_control(v, kappa, grade, bank, f_ok, p, mx, my, mt, out)
+    g_bad = _g_control(v, kappa, grade, bank, f_bad, p, mx, my, mt, out)
+    if g_bad <= 0.0:
+        return f_bad
+    return _refine(1, f_ok, g_ok, f_bad, g_bad, v, kappa, grade, bank, p, mx, my, mt, out, tol)
 
 
 @njit(cache=True)
 def corner_limit(kappa, grade, bank, guess, vcap, p, mx, my, mt, out, tol):
     """Highest steady speed [m/s] below the first infeasible one (both axles u <= 1).
 
-    Starts from ``guess`` (a neighbour's limit), brackets, checks a few lower speeds for an
-    infeasible band (usage need not be monotonic in speed), then bisects to ``tol`` [m/s].
-    Returns ``vcap`` when every speed up to it is feasible, and 0 when even V_MIN is not.
+    Starts from ``guess`` (a neighbour's limit), brackets with 5 % steps, checks half the
+    bracket speed for an infeasible band (usage need not be monotonic in speed; a failed check
+    falls back to a scan from the bottom), then refines to ``tol`` [m/s] with the Illinois
+    method. Returns ``vcap`` when every speed up to it is feasible, 0 when even V_MIN is not.
     """
-    if feasible_steady(vcap, kappa, grade, bank, p, mx, my, mt, out):
-        ok = True
+    gcap = _g_speed(vcap, kappa, grade, bank, p, mx, my, mt, out)
+    if gcap <= 0.0:
         for f in (0.2, 0.4, 0.6, 0.8):
-            if not feasible_steady(vcap * f, kappa, grade, bank, p, mx, my, mt, out):
-                ok = False
+            if _g_speed(vcap * f, kappa, grade, bank, p, mx, my, mt, out) > 0.0:
+                gcap = 1.0  # an infeasible band below the cap: scan from the bottom
+                guess = 0.0
                 break
-        if ok:
+        if gcap <= 0.0:
             return vcap
-        guess = 0.0
     lo = 0.0
+    glo = 0.0
     hi = vcap
+    ghi = gcap
     found = False
-    if guess > V_MIN and guess < vcap:
-        if feasible_steady(guess, kappa, grade, bank, p, mx, my, mt, out):
+    if V_MIN < guess < vcap:
+        gg = _g_speed(guess, kappa, grade, bank, p, mx, my, mt, out)
+        if gg <= 0.0:
             lo = guess
-            hi = guess * 1.05
-            while hi < vcap and feasible_steady(hi, kappa, grade, bank, p, mx, my, mt, out):
+            glo = gg
+            while True:
+                hi = lo * 1.05
+                if hi >= vcap:
+                    hi = vcap
+                    ghi = gcap
+                else:
+                    ghi = _g_speed(hi, kappa, grade, bank, p, mx, my, mt, out)
+                if ghi > 0.0:
+                    break
                 lo = hi
-                hi = hi * 1.05
-            if hi > vcap:
-                hi = vcap
+                glo = ghi
         else:
             hi = guess
+            ghi = gg
             lo = guess / 1.05
-            while lo > V_MIN and not feasible_steady(lo, kappa, grade, bank, p, mx, my, mt,
-                                                     out):
+            glo = _g_speed(lo, kappa, grade, bank, p, mx, my, mt, out)
+            while glo > 0.0 and lo > V_MIN:
                 hi = lo
+                ghi = glo
                 lo = lo / 1.05
-        found = lo > V_MIN
-        if found:
-            for f in (0.3, 0.6):
-                if not feasible_steady(lo * f, kappa, grade, bank, p, mx, my, mt, out):
-                    found = False
-                    break
+                glo = _g_speed(lo, kappa, grade, bank, p, mx, my, mt, out)
+        found = glo <= 0.0 and lo > V_MIN
+        if found and _g_speed(0.5 * lo, kappa, grade, bank, p, mx, my, mt, out) > 0.0:
+            found = False
     if not found:
-        # full scan from the bottom
-        if not feasible_steady(V_MIN, kappa, grade, bank, p, mx, my, mt, out):
-            return 0.0
         lo = V_MIN
-        hi = V_MIN * 1.15
-        while hi < vcap and feasible_steady(hi, kappa, grade, bank, p, mx, my, mt, out):
+        glo = _g_speed(lo, kappa, grade, bank, p, mx, my, mt, out)
+        if glo > 0.0:
+            return 0.0
+        while True:
+            hi = lo * 1.15
+            if hi >= vcap:
+                hi = vcap
+                ghi = gcap
+            else:
+                ghi = _g_speed(hi, kappa, grade, bank, p, mx, my, mt, out)
+            if ghi > 0.0:
+                break
             lo = hi
-            hi = hi * 1.15
-        if hi > vcap:
-            hi = vcap
-    while hi - lo > tol:
-        mid = 0.5 * (lo + hi)
-        if feasible_steady(mid, kappa, grade, bank, p, mx, my, mt, out):
-            lo = mid
-        else:
-            hi = mid
-    return lo
+            glo = ghi
+    return _refine(0, lo, glo, hi, ghi, 0.0, kappa, grade, bank, p, mx, my, mt, out, tol)
 
 
 @njit(cache=True, parallel=True)
@@ -455,29 +544,66 @@ def corner_limits(kappa, grade, bank, vcap, p, mx, my, mt, tol, nchunks):
 
 
 @njit(cache=True)
-def max_accel_control(v, kappa, grade, bank, p, gears, trpm, tnm, mx, my, mt, out, ftol):
-    """Largest drive control [N] at v that the powertrain gives and both axles carry."""
-    feng = engine_force(v, p, gears, trpm, tnm)
-    if _feasible_at(v, kappa, grade, bank, feng, p, mx, my, mt, out):
-        return feng
-    fs = steady_control(v, kappa, grade, bank, p, mx, my, mt, out)
-    if not (out[O_STATUS] == 0.0 and max_usage(out) <= 1.0):
-        return fs  # should not happen below the corner limit
-    return largest_feasible_control(v, kappa, grade, bank, fs, feng, p, mx, my, mt, out, ftol)
+def _search_from_hint(v, kappa, grade, bank, f_ok, g_ok, hint, direction, f_stop, p, mx, my,
+                      mt, out, ftol):
+    """Boundary of the feasible control interval beyond a feasible ``f_ok`` [N] in
+    ``direction`` (+1 more drive, -1 more braking), starting near ``hint`` and not past
+    ``f_stop`` (returned when everything up to it is feasible)."""
+    m = p[P_MASS]
+    if not math.isnan(hint) and (hint - f_ok) * direction > 0.0 and \
+            (f_stop - hint) * direction > 0.0:
+        g_h = _g_control(v, kappa, grade, bank, hint, p, mx, my, mt, out)
+        if g_h > 0.0:
+            return _refine(1, f_ok, g_ok, hint, g_h, v, kappa, grade, bank, p, mx, my, mt,
+                           out, ftol)
+        f_ok = hint
+        g_ok = g_h
+    step = 0.02 * m * G
+    while True:
+        f_bad = f_ok + direction * step
+        if (f_bad - f_stop) * direction >= 0.0:
+            f_bad = f_stop
+        g_bad = _g_control(v, kappa, grade, bank, f_bad, p, mx, my, mt, out)
+        if g_bad > 0.0:
+            break
+        if f_bad == f_stop:
+            return f_stop
+        f_ok = f_bad
+        g_ok = g_bad
+        step *= 2.0
+    return _refine(1, f_ok, g_ok, f_bad, g_bad, v, kappa, grade, bank, p, mx, my, mt, out,
+                   ftol)
 
 
 @njit(cache=True)
-def max_decel_control(v, kappa, grade, bank, p, mx, my, mt, out, ftol):
+def max_accel_control(v, kappa, grade, bank, p, gears, trpm, tnm, mx, my, mt, out, ftol,
+                      hint=math.nan):
+    """Largest drive control [N] at v that the powertrain gives and both axles carry."""
+    feng = engine_force(v, p, gears, trpm, tnm)
+    if _g_control(v, kappa, grade, bank, feng, p, mx, my, mt, out) <= 0.0:
+        return feng
+    fs = steady_control(v, kappa, grade, bank, p, mx, my, mt, out)
+    if out[O_STATUS] != 0.0 or max_usage(out) > 1.0:
+        return fs  # should not happen below the corner limit
+    gs = max_usage(out) - 1.0
+    if feng <= fs:
+        # the engine cannot hold speed and less drive is infeasible: least extra drive
+        return _refine(1, fs, gs, feng, 1.0, v, kappa, grade, bank, p, mx, my, mt, out, ftol)
+    return _search_from_hint(v, kappa, grade, bank, fs, gs, hint, 1.0, feng, p, mx, my, mt,
+                             out, ftol)
+
+
+@njit(cache=True)
+def max_decel_control(v, kappa, grade, bank, p, mx, my, mt, out, ftol, hint=math.nan):
     """Smallest control [N] at v that both axles carry (most braking; positive when even
     coasting would saturate an axle and a little throttle is needed)."""
     fs = steady_control(v, kappa, grade, bank, p, mx, my, mt, out)
-    if not (out[O_STATUS] == 0.0 and max_usage(out) <= 1.0):
+    if out[O_STATUS] != 0.0 or max_usage(out) > 1.0:
         return fs
-    m = p[P_MASS]
-    f_lo = -4.0 * m * G - out[O_DOWNF] * 3.0
-    if _feasible_at(v, kappa, grade, bank, f_lo, p, mx, my, mt, out):
-        return f_lo
-    return largest_feasible_control(v, kappa, grade, bank, fs, f_lo, p, mx, my, mt, out, ftol)
+    gs = max_usage(out) - 1.0
+    f_stop = -4.0 * p[P_MASS] * G - 4.0 * abs(out[O_DOWNF])
+    return _search_from_hint(v, kappa, grade, bank, fs, gs, hint, -1.0, f_stop, p, mx, my, mt,
+                             out, ftol)
 
 
 @njit(cache=True)
@@ -492,29 +618,41 @@ def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, t
     out = np.empty(NOUT)
     vf = np.empty(n)
     vf[0] = vlim[0] if math.isnan(v_start) else min(v_start, vlim[0])
+    hint = math.nan
     for i in range(n - 1):
         vi = vf[i]
         F = max_accel_control(vi, kappa[i], grade[i], bank[i], p, gears, trpm, tnm, mx, my,
-                              mt, out, ftol)
+                              mt, out, ftol, hint)
+        hint = F
         state_control(vi, kappa[i], grade[i], bank[i], F, p, mx, my, mt, out)
         v2 = vi * vi + 2.0 * out[O_AX] * ds
         vn = math.sqrt(v2) if v2 > 0.0 else 0.0
         vf[i + 1] = vn if vn < vlim[i + 1] else vlim[i + 1]
     vb = np.empty(n)
     vb[n - 1] = vlim[n - 1] if math.isnan(v_end) else min(v_end, vlim[n - 1])
+    hint = math.nan
+    a_prev = math.nan
     for i in range(n - 2, -1, -1):
         vnext = vb[i + 1]
         if vnext >= vlim[i] or vnext >= vf[i]:
             # not braking into step i+1 from here: the limit (or the forward trace) rules
             vb[i] = vlim[i]
+            hint = math.nan
+            a_prev = math.nan
             continue
         # implicit step: the deceleration is evaluated at this step's own speed, so the
         # force the final pass reports here is the one that produced the trace
         vp = vnext
+        if not math.isnan(a_prev):
+            v2 = vnext * vnext - 2.0 * a_prev * ds
+            vp = math.sqrt(v2) if v2 > 0.0 else vnext
         for _ in range(4):
             ve = vp if vp < vlim[i] else vlim[i]
-            F = max_decel_control(ve, kappa[i], grade[i], bank[i], p, mx, my, mt, out, ftol)
+            F = max_decel_control(ve, kappa[i], grade[i], bank[i], p, mx, my, mt, out, ftol,
+                                  hint)
+            hint = F
             state_control(ve, kappa[i], grade[i], bank[i], F, p, mx, my, mt, out)
+            a_prev = out[O_AX]
             v2 = vnext * vnext - 2.0 * out[O_AX] * ds
             vnew = math.sqrt(v2) if v2 > 0.0 else 0.0
             done = abs(vnew - vp) < 1e-5
@@ -556,7 +694,8 @@ def final_pass(v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm, tnm
         feng = engine_force(vi, p, gears, trpm, tnm)
         if F > feng:
             F = feng
-        if not _feasible_at(vi, kappa[i], grade[i], bank[i], F, p, mx, my, mt, out):
+            state_control(vi, kappa[i], grade[i], bank[i], F, p, mx, my, mt, out)
+        if out[O_STATUS] != 0.0 or max_usage(out) > 1.0:
             fs = steady_control(vi, kappa[i], grade[i], bank[i], p, mx, my, mt, tmp)
             if tmp[O_STATUS] == 0.0 and max_usage(tmp) <= 1.0:
                 F = largest_feasible_control(vi, kappa[i], grade[i], bank[i], fs, F, p, mx, my,

@@ -17,7 +17,9 @@ Verdicts (first rule that matches; thresholds are :class:`Thresholds` fields):
     hold the corner once the driver lifts.
 ``watch``
     the rear keeps less than ``1 - watch_usage`` of its grip in reserve after lift-off, or the
-    balance moves by at least ``watch_shift`` at ``watch_speed_kph`` or faster.
+    balance moves by at least ``watch_shift`` at ``watch_speed_kph`` or faster while the rear
+    ends above ``shift_rear_usage`` (a large shift that only frees a driven front axle, with
+    the rear far from its limit, is not flagged).
 ``stable``
     otherwise: the balance may move toward oversteer, but the rear keeps a clear margin.
 
@@ -52,12 +54,17 @@ class Thresholds:
     watch_speed_kph : float
         Speed from which a large shift counts [km/h]. Default 150 (engineering judgement:
         fast corners, where a step-out is hardest to catch).
+    shift_rear_usage : float
+        A large high-speed shift counts only when the rear's usage after lift-off is at least
+        this [-]. Default 0.85 (engineering judgement: below it the rear keeps a reserve
+        larger than any tyre-to-tyre or day-to-day grip spread).
     """
 
     saturation_margin: float = 0.01
     watch_usage: float = 0.95
     watch_shift: float = 0.10
     watch_speed_kph: float = 150.0
+    shift_rear_usage: float = 0.85
 
 
 DEFAULT_THRESHOLDS = Thresholds()
@@ -94,7 +101,8 @@ def verdict(worst_shift: dict | None, worst_rear: dict | None,
     if u >= t.watch_usage:
         return "watch", f"rear keeps only {max(0.0, 1 - u) * 100:.1f} % grip after lift-off"
     if worst_shift["balance_shift"] >= t.watch_shift and \
-            worst_shift["speed_kph"] >= t.watch_speed_kph:
+            worst_shift["speed_kph"] >= t.watch_speed_kph and \
+            worst_shift["usage_rear_off"] >= t.shift_rear_usage:
         return "watch", (f"balance shift {worst_shift['balance_shift']:+.3f} at "
                          f"{worst_shift['speed_kph']:.0f} km/h")
     return "stable", f"rear keeps {max(0.0, 1 - u) * 100:.1f} % grip after lift-off"

@@ -72,6 +72,8 @@ def road_accelerations(v, curvature, grade, bank):
         the road that loads the tyres [m/s²].
     """
     a_c = v * v * curvature
+    if bank == 0.0 and grade == 0.0:
+        return a_c, a_c, _G
     cb, sb = math.cos(bank), math.sin(bank)
     g_road = _G * math.cos(grade)
     a_y = a_c * cb - g_road * sb

@@ -1,0 +1,5 @@
+"""Allow ``python -m lapbalance.cli``."""
+
+from lapbalance.cli import main
+
+main()

@@ -1,0 +1,107 @@
+"""`lapbalance demo`: run the main job on the invented demo car, track and tunnel data."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import click
+
+from lapbalance.cli import main
+from lapbalance.cli.common import table
+from lapbalance.errors import InputError
+
+#: Marker file that identifies a folder the demo wrote (and may therefore replace).
+DEMO_MARKER = ".lapbalance-demo"
+
+
+def demo_root() -> Path:
+    """Folder holding ``examples/`` and ``tracks/`` (the source checkout)."""
+    here = Path(__file__).resolve()
+    for parent in here.parents:
+        if (parent / "examples" / "gt_coupe.toml").exists() and (parent / "tracks").is_dir():
+            return parent
+    raise InputError("demo data not found: run the demo from a source checkout of lapbalance "
+                     "(it reads examples/ and tracks/)", "demo")
+
+
+def _say(msg: str) -> None:
+    click.echo(msg, err=True)
+
+
+@main.command("demo")
+@click.option("--out", "out_dir", type=click.Path(file_okay=False), default="lapbalance-demo",
+              show_default=True, help="Folder for the demo results.")
+@click.option("--force", is_flag=True, help="Replace a folder the demo did not write.")
+def demo_command(out_dir, force):
+    """Run the demo: a lap of the GT coupe with its lift-off check, the wind-tunnel
+    correction of its balance readings, and the HTML report."""
+    from lapbalance import tunnel
+    from lapbalance.car import load_car
+    from lapbalance.cli.lap_cmd import format_lap
+    from lapbalance.export import channels_csv, corners_csv, summary_json
+    from lapbalance.lap import CAUTION, simulate_lap
+    from lapbalance.outputs import columns_csv_text, staged_dir
+    from lapbalance.track import load_track
+
+    root = demo_root()
+    out = Path(out_dir)
+    own = (out / DEMO_MARKER).exists()
+    if not own:
+        from lapbalance.outputs import check_output_dir
+
+        check_output_dir(out, force, "--out")
+    car_file = root / "examples" / "gt_coupe.toml"
+    track_file = root / "tracks" / "veldmoor_ring.csv"
+    _say(f"demo: loading {car_file.name} and {track_file.name}")
+    car = load_car(car_file)
+    track = load_track(track_file)
+    _say("demo: simulating the lap (the first run compiles the solver, ~30 s; later runs "
+         "are fast)")
+    result = simulate_lap(car, track)
+    click.echo(format_lap(result))
+    click.echo("")
+
+    _say("demo: correcting the wind-tunnel balance readings for the wheel restraint")
+    readings = tunnel.read_readings(root / "examples" / "gt_coupe_tunnel_sweep.csv")
+    corr = tunnel.correct_table(readings, car.chassis.cg_height, car.chassis.wheelbase, 0.0,
+                                car.air.density, car.aero.drag_height)
+    rows = []
+    for i in range(len(corr["front_n_measured"])):
+        rows.append([f"{corr['speed_kph'][i]:.0f}" if "speed_kph" in corr else str(i + 1),
+                     f"{corr['front_n_measured'][i]:.0f}", f"{corr['rear_n_measured'][i]:.0f}",
+                     f"{corr['balance_front_measured'][i] * 100:.1f}",
+                     f"{corr['front_n_cg'][i]:.0f}", f"{corr['rear_n_cg'][i]:.0f}",
+                     f"{corr['balance_front_cg'][i] * 100:.1f}",
+                     f"{corr['correction_n'][i]:+.0f}"])
+    click.echo("wind-tunnel readings (wheel-restrained) -> on-track split (CG convention)")
+    click.echo(table(rows, ["km/h", "front N", "rear N", "front %", "front N cg",
+                            "rear N cg", "front % cg", "shift N"]))
+    click.echo("the scales under a wheel-restrained car read D·h_cg/L too little on the front;"
+               " on track that load comes and goes with the tyres' drive force")
+    click.echo("")
+
+    report_html = None
+    try:
+        from lapbalance import report as _report
+    except ImportError:
+        _report = None
+    if _report is not None:
+        _say("demo: writing the HTML report")
+        variant = root / "examples" / "gt_coupe_high_wing.toml"
+        results = [result]
+        if variant.exists():
+            results.append(simulate_lap(load_car(variant), track))
+        report_html = _report.build_report(results)
+
+    with staged_dir(out, force=force or own, option="--out") as tmp:
+        (tmp / DEMO_MARKER).write_text("written by lapbalance demo; the demo may replace "
+                                       "this folder\n", encoding="utf-8")
+        (tmp / "channels.csv").write_text(channels_csv(result), encoding="utf-8")
+        (tmp / "corners.csv").write_text(corners_csv(result), encoding="utf-8")
+        (tmp / "summary.json").write_text(summary_json(result), encoding="utf-8")
+        (tmp / "tunnel_corrected.csv").write_text(columns_csv_text(corr), encoding="utf-8")
+        if report_html is not None:
+            (tmp / "report.html").write_text(report_html, encoding="utf-8")
+    click.echo(f"wrote {out}/ (channels.csv, corners.csv, summary.json, tunnel_corrected.csv"
+               f"{', report.html' if report_html else ''})")
+    click.echo(f"caution: {CAUTION}")
