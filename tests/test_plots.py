@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import io
 import math
+import warnings
 from pathlib import Path
 from types import SimpleNamespace
 
@@ -15,11 +16,16 @@ from matplotlib.figure import Figure
 
 from lapbalance import plots
 from lapbalance.car import load_car
+from lapbalance.errors import PhysicsWarning
 from lapbalance.lap import simulate_lap
+from lapbalance.track import load_track
 from tests.helpers import analytic_track
 
 ROOT = Path(__file__).resolve().parents[1]
 EXAMPLE_CARS = sorted(p.stem for p in (ROOT / "examples").glob("*.toml"))
+TRACKS = sorted(p.stem for p in (ROOT / "tracks").glob("*.csv"))
+MAIN_TRACK = "veldmoor_ring"  # closed, 11 corners: every car renders every figure here
+STEP_M = 2.0  # coarse resampling keeps the laps quick
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
 TEST_DPI = 40  # small images: the tests check that figures render, not how they look
 
@@ -47,15 +53,25 @@ def rounded_loop(ds: float = 2.0, name: str = "test loop"):
     return analytic_track(k, ds=ds, closed=True, name=name, corners=corners)
 
 
+def track_file(name: str) -> Path:
+    return ROOT / "tracks" / f"{name}.csv"
+
+
+def car_file(name: str) -> Path:
+    return ROOT / "examples" / f"{name}.toml"
+
+
 @pytest.fixture(scope="module")
 def loop():
     return rounded_loop()
 
 
 @pytest.fixture(scope="module")
-def laps(loop):
-    return {name: simulate_lap(load_car(ROOT / "examples" / f"{name}.toml"), loop)
-            for name in EXAMPLE_CARS}
+def laps():
+    track = load_track(track_file(MAIN_TRACK), step_m=STEP_M)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", PhysicsWarning)  # mapped car: map edge warnings
+        return {name: simulate_lap(load_car(car_file(name)), track) for name in EXAMPLE_CARS}
 
 
 def _decoded(png: bytes) -> np.ndarray:
@@ -63,15 +79,40 @@ def _decoded(png: bytes) -> np.ndarray:
     return mpimg.imread(io.BytesIO(png), format="png")
 
 
-@pytest.mark.parametrize("car", EXAMPLE_CARS)
-def test_every_lap_figure_renders_for_every_example_car(laps, car):
-    pngs = plots.lap_figures_png(laps[car], dpi=TEST_DPI)
+def _check_all_figures(result):
+    pngs = plots.lap_figures_png(result, dpi=TEST_DPI)
     assert set(pngs) == {f"{name}.png" for name in plots.LAP_FIGURES}
     for name, png in pngs.items():
         img = _decoded(png)
         assert img.ndim == 3 and img.shape[0] > 100 and img.shape[1] > 100, name
         # Not blank: something other than the white background was drawn.
         assert float(img[..., :3].std()) > 0.02, name
+
+
+@pytest.mark.parametrize("car", EXAMPLE_CARS)
+def test_every_lap_figure_renders_for_every_example_car(laps, car):
+    _check_all_figures(laps[car])
+
+
+#: Figures whose content depends on the track (geometry, corners, limits); rendered for every
+#: demo circuit. The others are built (not rendered) there to keep the test quick.
+TRACK_FIGURES = ("track_map", "speed", "liftoff")
+
+
+@pytest.mark.parametrize("track", [t for t in TRACKS if t != MAIN_TRACK])
+def test_figures_render_for_every_track(track):
+    # A different example car on each circuit, so that cars x tracks is sampled too.
+    car = EXAMPLE_CARS[TRACKS.index(track) % len(EXAMPLE_CARS)]
+    tr = load_track(track_file(track), step_m=STEP_M)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", PhysicsWarning)
+        result = simulate_lap(load_car(car_file(car)), tr)
+    assert result.corners  # every demo circuit has corners to label
+    for name, (fn, _) in plots.LAP_FIGURES.items():
+        fig = fn(result)
+        if name in TRACK_FIGURES:
+            img = _decoded(plots.figure_png(fig, TEST_DPI))
+            assert float(img[..., :3].std()) > 0.02, name
 
 
 def test_titles_name_car_and_track(laps):
@@ -81,7 +122,7 @@ def test_titles_name_car_and_track(laps):
         assert isinstance(fig, Figure)
         titles = [ax.get_title() for ax in fig.axes]
         titles.append(fig._suptitle.get_text() if fig._suptitle else "")
-        assert any(r.car.name in t and "test loop" in t for t in titles), name
+        assert any(r.car.name in t and r.track.name in t for t in titles), name
 
 
 def test_track_map_colourbar_is_centred_on_zero_and_labelled(laps):
@@ -188,15 +229,16 @@ def test_figures_without_corners_or_downforce(loop):
             _decoded(plots.figure_png(fig, TEST_DPI))
 
 
-def test_lap_command_writes_plots(tmp_path, monkeypatch, loop):
-    from lapbalance.cli import lap_cmd, main
+def test_lap_command_writes_plots(tmp_path, monkeypatch):
+    from lapbalance.cli import main
 
-    car_file = ROOT / "examples" / "fwd_hatch.toml"
-    monkeypatch.setattr(lap_cmd, "load_inputs", lambda car, track, ov, step, closed:
-                        (load_car(car, ov), loop))
+    # The figures are tested above; two keep this plumbing test quick.
+    monkeypatch.setattr(plots, "LAP_FIGURES", {k: plots.LAP_FIGURES[k]
+                                               for k in ("track_map", "usage")})
     out = tmp_path / "lap"
-    res = CliRunner().invoke(main, ["lap", str(car_file), "track.csv", "--out", str(out),
-                                    "--plots"])
+    res = CliRunner().invoke(main, ["lap", str(car_file("fwd_hatch")),
+                                    str(track_file("oranby_bowl")), "--step-m", "4",
+                                    "--out", str(out), "--plots"])
     assert res.exit_code == 0, res.output
-    for name in plots.LAP_FIGURES:
+    for name in ("track_map", "usage"):
         assert (out / f"{name}.png").read_bytes().startswith(PNG_SIGNATURE)
