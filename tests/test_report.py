@@ -20,6 +20,7 @@ from lapbalance.car import load_car
 from lapbalance.errors import InputError
 from lapbalance.lap import CAUTION, simulate_lap
 from lapbalance.plots import LAP_FIGURES, PALETTE
+from lapbalance.track import load_track
 from tests.helpers import make_car
 from tests.test_plots import rounded_loop
 
@@ -82,13 +83,18 @@ def loop():
 
 
 @pytest.fixture(scope="module")
-def base_lap(loop):
-    return simulate_lap(load_car(ROOT / "examples" / "gt_coupe.toml"), loop)
+def ring():
+    return load_track(ROOT / "tracks" / "veldmoor_ring.csv", step_m=2.0)
 
 
 @pytest.fixture(scope="module")
-def wing_lap(loop):
-    return simulate_lap(load_car(ROOT / "examples" / "gt_coupe_high_wing.toml"), loop)
+def base_lap(ring):
+    return simulate_lap(load_car(ROOT / "examples" / "gt_coupe.toml"), ring)
+
+
+@pytest.fixture(scope="module")
+def wing_lap(ring):
+    return simulate_lap(load_car(ROOT / "examples" / "gt_coupe_high_wing.toml"), ring)
 
 
 @pytest.fixture(scope="module")
@@ -232,28 +238,31 @@ def test_report_opens_in_headless_chromium(tmp_path, compare_doc):
                   & (np.abs(top[..., 2] - b) < 0.05))
 
 
-def test_report_command(tmp_path, monkeypatch, loop):
-    from lapbalance.cli import main, report_cmd
+def test_report_command(tmp_path, monkeypatch):
+    from lapbalance.cli import main
 
     # The figures are tested above; one lap figure keeps this plumbing test quick.
     monkeypatch.setattr(plots, "LAP_FIGURES", {"speed": plots.LAP_FIGURES["speed"]})
-    monkeypatch.setattr(report_cmd, "load_inputs", lambda car, track, ov, step, closed:
-                        (load_car(car, ov), loop))
     base = str(ROOT / "examples" / "gt_coupe.toml")
     wing = str(ROOT / "examples" / "gt_coupe_high_wing.toml")
+    track = str(ROOT / "tracks" / "oranby_bowl.csv")
     out = tmp_path / "report.html"
     runner = CliRunner()
-    res = runner.invoke(main, ["report", base, "track.csv", "--variant", wing, "--out", str(out)])
+    res = runner.invoke(main, ["report", base, track, "--variant", wing, "--out", str(out),
+                               "--step-m", "4"])
     assert res.exit_code == 0, res.output
     assert "[1/2] Halden GT coupe" in res.stderr and "[2/2]" in res.stderr
     assert f"wrote {out}" in res.stdout
     doc = out.read_text(encoding="utf-8")
     assert 'id="comparison"' in doc and html.escape(CAUTION) in doc
-    res = runner.invoke(main, ["report", base, "track.csv", "--out", str(out)])
+    res = runner.invoke(main, ["report", base, track, "--out", str(out)])
     assert res.exit_code == 2
     assert "already exists; pass --force" in res.stderr
     assert out.read_text(encoding="utf-8") == doc
-    res = runner.invoke(main, ["report", base, "track.csv", "--out", str(out), "--force",
-                               "--set", "aero.drag_area_m2=0.9"])
+    res = runner.invoke(main, ["report", base, track, "--out", str(out), "--force",
+                               "--step-m", "4", "--set", "aero.drag_area_m2=0.9"])
     assert res.exit_code == 0, res.output
     assert 'id="comparison"' not in out.read_text(encoding="utf-8")
+    res = runner.invoke(main, ["report", base, track, "--out", str(out), "--force",
+                               "--variant", str(tmp_path / "missing.toml")])
+    assert res.exit_code == 2 and "missing.toml" in res.stderr
