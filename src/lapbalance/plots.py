@@ -450,7 +450,7 @@ def liftoff_figure(result: LapResult) -> Figure:
     ax.bar(pos + w / 2, coast, w, color=PALETTE["coast"], label="coasting (no engine braking)")
     ax.axhline(0, color=PALETTE["muted"], linewidth=0.7)
     ax.set_ylabel("worst balance shift\nB_off - B_on [-]")
-    ax.legend(loc="upper right", ncols=2)
+    ax.legend(loc="lower right", bbox_to_anchor=(1.0, 1.0), ncols=2)
     ax = axes[1]
     rear = [_field(c, "liftoff_max_usage_rear") for c in cs]
     colors = [PALETTE.get(c.get("liftoff_verdict", "not-checked"), PALETTE["not-checked"])
@@ -506,7 +506,8 @@ def overlay_figure(results: Sequence[LapResult], labels: Sequence[str] | None = 
         axes[1].plot(d, r.channels["balance_index"], color=color, label=lab,
                      linewidth=1.4 if j == 0 else 1.1)
     axes[0].set_ylabel("speed [km/h]")
-    axes[0].legend(loc="lower right")
+    fig.legend(*axes[0].get_legend_handles_labels(), loc="outside lower center",
+               ncols=min(len(results), 3))
     axes[1].axhline(0, color=PALETTE["muted"], linewidth=0.7)
     axes[1].set_ylabel("balance index u_r - u_f [-]\n(> 0 oversteer-leaning)")
     axes[1].set_xlabel("distance [m]")

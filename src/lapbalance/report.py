@@ -63,6 +63,7 @@ tr:hover td {{ background: #fafbfc; }}
 td.verdict {{ text-align: left; font-weight: 600; white-space: nowrap;
   border-left: 5px solid transparent; }}
 {verdict_css}
+td.why {{ min-width: 16em; }}
 .neg {{ color: var(--front); }}
 .pos {{ color: var(--rear); }}
 figure {{ margin: 14px 0 22px; }}
@@ -203,7 +204,7 @@ def _corner_section(result: LapResult) -> str:
             _num(c.get("coast_max_shift"), "+.3f"),
             _num(c.get("liftoff_max_usage_rear"), ".3f"), _e(c.get("liftoff_reason", "")),
         ])
-        classes.append([""] * 9 + [vcls] + [""] * 4)
+        classes.append([""] * 9 + [vcls] + [""] * 3 + ["why"])
     table = _table(["corner", "dir", "apex [m]", "min radius [m]", "min speed [km/h]",
                     "limiting axle", "balance at min [-]", "u_f at min", "u_r at min",
                     "lift-off verdict", "worst shift [-]", "coasting shift [-]",
@@ -348,7 +349,7 @@ def build_report(results: Sequence[LapResult] | LapResult, labels: Sequence[str]
     tr = results[0].track
     meta = (f"{track}, {float(tr.length_m):.0f} m, "
             f"{'closed lap' if tr.closed else 'open run'}, step "
-            f"{float(tr.step_m):g} m · generated {generated} by lapbalance {__version__}")
+            f"{float(tr.step_m):.2f} m · generated {generated} by lapbalance {__version__}")
     nav = ["<nav><ul>"]
     if len(results) > 1:
         nav.append('<li><a href="#comparison">Comparison</a></li>')
