@@ -8,7 +8,7 @@ import click
 
 from lapbalance.car import load_car
 from lapbalance.cli import main
-from lapbalance.cli.common import force_option, set_option
+from lapbalance.cli.common import set_option
 from lapbalance.cli.lap_cmd import load_inputs, track_options
 
 
@@ -21,7 +21,7 @@ from lapbalance.cli.lap_cmd import load_inputs, track_options
 @set_option
 @click.option("--out", "out_file", required=True, type=click.Path(dir_okay=False),
               help="HTML file to write, e.g. report.html.")
-@force_option
+@click.option("--force", is_flag=True, help="Replace an existing report file.")
 @track_options
 def report_command(car_file, track_file, variants, overrides, out_file, force, step_m, closed,
                    start_speed_kph):
