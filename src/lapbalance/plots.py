@@ -1,0 +1,642 @@
+"""Figures of a lap result: each function takes a :class:`~lapbalance.lap.LapResult` and returns
+a :class:`matplotlib.figure.Figure`.
+
+No physics is computed here: every quantity drawn is a channel or a corner field of the result
+(the only arithmetic is display work: unit scaling to km/h and g, stacking the axle-load parts
+the solver already separated, interpolating one lap's time on another's distance).
+
+Figures are built as bare :class:`~matplotlib.figure.Figure` objects (never through
+``pyplot``), so nothing is registered with a GUI backend and nothing needs a display; PNG
+rendering goes through the Agg canvas. One palette, :data:`PALETTE`, gives every figure and the
+HTML report (:mod:`lapbalance.report`) the same look.
+"""
+
+from __future__ import annotations
+
+import functools
+import io
+import math
+from collections.abc import Callable, Sequence
+
+import matplotlib
+import numpy as np
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.collections import LineCollection
+from matplotlib.colors import LinearSegmentedColormap, TwoSlopeNorm
+from matplotlib.figure import Figure
+
+from lapbalance.lap import LIMIT_NAMES, LapResult
+from lapbalance.units import G0
+
+#: The one palette of the project's figures and report (name -> hex colour).
+PALETTE: dict[str, str] = {
+    "ink": "#1f2933",
+    "muted": "#7b8794",
+    "grid": "#e4e7eb",
+    "paper": "#ffffff",
+    "panel": "#f5f7fa",
+    "front": "#2b6cb0",  # front axle, understeer-leaning side of the balance scale
+    "rear": "#c05621",  # rear axle, oversteer-leaning side
+    "engine": "#d69e2e",
+    "speed": "#1f2933",
+    "limit": "#9aa5b1",
+    "static": "#a0aec0",
+    "aero": "#2f855a",
+    "ground": "#6b46c1",
+    "lateral": "#dd6b20",
+    "coast": "#718096",
+    "rear-saturates": "#c53030",
+    "watch": "#d69e2e",
+    "stable": "#38a169",
+    "not-checked": "#a0aec0",
+}
+
+#: Colours for overlaid variants (base first).
+SERIES = ("#1f2933", "#c05621", "#2b6cb0", "#2f855a", "#6b46c1", "#b83280")
+
+#: Diverging map for the balance index and other signed quantities: front colour below zero,
+#: white at zero, rear colour above.
+DIVERGING = LinearSegmentedColormap.from_list(
+    "lapbalance_diverging", [PALETTE["front"], "#f7f7f7", PALETTE["rear"]])
+
+#: Sequential map (light to dark) for magnitudes such as speed.
+SEQUENTIAL = LinearSegmentedColormap.from_list(
+    "lapbalance_sequential", ["#d6e4f0", "#5a8fbf", "#2c3e6b", "#1a1a2e"])
+
+_RC = {
+    "font.size": 9.0,
+    "axes.titlesize": 10.5,
+    "axes.labelsize": 9.0,
+    "axes.edgecolor": PALETTE["muted"],
+    "axes.labelcolor": PALETTE["ink"],
+    "axes.facecolor": PALETTE["paper"],
+    "axes.grid": True,
+    "axes.axisbelow": True,
+    "axes.spines.top": False,
+    "axes.spines.right": False,
+    "grid.color": PALETTE["grid"],
+    "grid.linewidth": 0.8,
+    "xtick.color": PALETTE["ink"],
+    "ytick.color": PALETTE["ink"],
+    "legend.frameon": False,
+    "legend.fontsize": 8.0,
+    "figure.facecolor": PALETTE["paper"],
+    "lines.linewidth": 1.3,
+}
+
+_VERDICT_MARKERS = {"rear-saturates": "X", "watch": "^"}
+
+
+def _styled(fn: Callable[..., Figure]) -> Callable[..., Figure]:
+    """Build the figure under the project's rc settings."""
+
+    @functools.wraps(fn)
+    def wrapper(*args, **kwargs):
+        with matplotlib.rc_context(_RC):
+            return fn(*args, **kwargs)
+
+    return wrapper
+
+
+def _figure(width: float, height: float) -> Figure:
+    fig = Figure(figsize=(width, height), layout="constrained")
+    FigureCanvasAgg(fig)
+    return fig
+
+
+def _plain(text: str) -> str:
+    """Text drawn literally (a ``$`` would otherwise start matplotlib's math mode)."""
+    return str(text).replace("$", r"\$")
+
+
+def _names(result: LapResult) -> str:
+    return _plain(f"{result.car.name} — {getattr(result.track, 'name', '') or 'track'}")
+
+
+def _distance(result: LapResult) -> np.ndarray:
+    return np.asarray(result.channels["distance_m"], float)
+
+
+def _corner_axis(ax, result: LapResult) -> None:
+    """Corner ids as ticks on a top axis at their apexes."""
+    if not result.corners:
+        return
+    top = ax.secondary_xaxis("top")
+    top.set_xticks([c["apex_m"] for c in result.corners],
+                   labels=[str(c["id"]) for c in result.corners])
+    top.tick_params(labelsize=7, colors=PALETTE["muted"], length=2)
+    top.set_xlabel("corner", color=PALETTE["muted"], fontsize=8)
+
+
+def _shade(ax, x: np.ndarray, mask: np.ndarray, color: str, label: str) -> None:
+    if np.any(mask):
+        ax.fill_between(x, 0, 1, where=mask, transform=ax.get_xaxis_transform(),
+                        color=color, alpha=0.16, linewidth=0, step="mid", label=label)
+
+
+def _symmetric_limit(values: np.ndarray) -> float:
+    v = np.abs(values[np.isfinite(values)])
+    if v.size == 0:
+        return 0.1
+    return max(float(np.percentile(v, 99.5)), 0.02)
+
+
+def _track_line(ax, x, y, values, cmap, norm, width=3.0) -> LineCollection:
+    pts = np.column_stack([x, y])
+    segs = np.stack([pts[:-1], pts[1:]], axis=1)
+    lc = LineCollection(segs, cmap=cmap, norm=norm, linewidths=width, capstyle="round")
+    lc.set_array(np.asarray(values, float)[:-1])
+    ax.add_collection(lc)
+    ax.set_aspect("equal", adjustable="datalim")
+    ax.autoscale_view()
+    ax.set_xlabel("x [m]")
+    ax.set_ylabel("y [m]")
+    return lc
+
+
+@_styled
+def track_map_figure(result: LapResult) -> Figure:
+    """Track map coloured by the balance index, corner ids at the apexes, lift-off flags.
+
+    Parameters
+    ----------
+    result : LapResult
+        A simulated lap. [-]
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
+    ch = result.channels
+    x, y, d = np.asarray(ch["x_m"]), np.asarray(ch["y_m"]), _distance(result)
+    bal = np.asarray(ch["balance_index"], float)
+    m = _symmetric_limit(bal)
+    fig = _figure(7.5, 6.0)
+    ax = fig.add_subplot()
+    lc = _track_line(ax, x, y, bal, DIVERGING, TwoSlopeNorm(0.0, -m, m))
+    cb = fig.colorbar(lc, ax=ax, shrink=0.85, extend="both")
+    cb.set_label("balance index u_r - u_f [-]  (> 0 oversteer-leaning)")
+    ax.plot(x[0], y[0], marker="s", color=PALETTE["ink"], markersize=6, linestyle="none",
+            label="start")
+    for c in result.corners:
+        xa, ya = np.interp(c["apex_m"], d, x), np.interp(c["apex_m"], d, y)
+        ax.annotate(str(c["id"]), (xa, ya), xytext=(6, 6), textcoords="offset points",
+                    fontsize=8, fontweight="bold", color=PALETTE["ink"],
+                    bbox={"boxstyle": "round,pad=0.15", "fc": "white", "ec": "none",
+                          "alpha": 0.8})
+    for verdict, marker in _VERDICT_MARKERS.items():
+        pts = [c["liftoff_worst_rear"]["distance_m"] for c in result.corners
+               if c.get("liftoff_verdict") == verdict and c.get("liftoff_worst_rear")]
+        if pts:
+            ax.plot(np.interp(pts, d, x), np.interp(pts, d, y), marker=marker,
+                    linestyle="none", markersize=10, color=PALETTE[verdict],
+                    markeredgecolor="white", label=f"lift-off: {verdict}")
+    ax.legend(loc="best")
+    ax.set_title(f"{_names(result)}: balance around the lap")
+    return fig
+
+
+@_styled
+def speed_figure(result: LapResult) -> Figure:
+    """Speed over distance with the steady corner-limit speed dashed.
+
+    Parameters
+    ----------
+    result : LapResult
+        A simulated lap. [-]
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
+    ch, d = result.channels, _distance(result)
+    v = np.asarray(ch["speed_kph"], float)
+    vlim = np.asarray(ch["speed_limit_mps"], float) * 3.6
+    fig = _figure(9.0, 3.6)
+    ax = fig.add_subplot()
+    ax.plot(d, vlim, linestyle="--", color=PALETTE["limit"], linewidth=1.0,
+            label="corner-limit speed")
+    ax.plot(d, v, color=PALETTE["speed"], label="speed")
+    ax.set_ylim(0, max(float(np.nanmax(v)) * 1.15, 10.0))
+    ax.set_xlim(d[0], d[-1])
+    ax.set_xlabel("distance [m]")
+    ax.set_ylabel("speed [km/h]")
+    _corner_axis(ax, result)
+    ax.legend(loc="lower right", ncols=2)
+    ax.set_title(f"{_names(result)}: speed, lap {result.lap_time_s:.3f} s")
+    return fig
+
+
+@_styled
+def usage_figure(result: LapResult) -> Figure:
+    """Front and rear grip usage over distance, shaded where an axle or the engine limits.
+
+    Parameters
+    ----------
+    result : LapResult
+        A simulated lap. [-]
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
+    ch, d = result.channels, _distance(result)
+    lim = np.asarray(ch["limit"]).astype(int)
+    code = {name: c for c, name in LIMIT_NAMES.items()}
+    fig = _figure(9.0, 3.6)
+    ax = fig.add_subplot()
+    _shade(ax, d, lim == code["front"], PALETTE["front"], "front axle limits")
+    _shade(ax, d, lim == code["rear"], PALETTE["rear"], "rear axle limits")
+    _shade(ax, d, lim == code["engine"], PALETTE["engine"], "engine limits")
+    ax.plot(d, ch["usage_front"], color=PALETTE["front"], label="front usage u_f")
+    ax.plot(d, ch["usage_rear"], color=PALETTE["rear"], label="rear usage u_r")
+    ax.axhline(1.0, color=PALETTE["ink"], linewidth=0.8, linestyle=":")
+    ax.set_ylim(0, 1.12)
+    ax.set_xlim(d[0], d[-1])
+    ax.set_xlabel("distance [m]")
+    ax.set_ylabel("grip usage [-]")
+    _corner_axis(ax, result)
+    fig.legend(loc="outside lower center", ncols=5)
+    ax.set_title(f"{_names(result)}: axle grip usage (friction ellipse)")
+    return fig
+
+
+def _stack_signed(ax, x, parts: Sequence[tuple[str, np.ndarray, str]]) -> None:
+    """Stack positive parts upward from zero; take negative parts off the top as hatched bands.
+
+    The top of the solid stack minus the hatched bands is the sum of the parts.
+    """
+    top = np.zeros_like(x)
+    for label, values, color in parts:
+        up = np.clip(np.asarray(values, float), 0, None)
+        if np.any(up > 0):
+            ax.fill_between(x, top, top + up, color=color, alpha=0.8, linewidth=0,
+                            label=label)
+        top = top + up
+    for label, values, color in parts:
+        dn = np.clip(np.asarray(values, float), None, 0)
+        if np.any(dn < 0):
+            ax.fill_between(x, top + dn, top, facecolor="none", edgecolor=color, hatch="////",
+                            linewidth=0, label=f"{label}, removed")
+        top = top + dn
+
+
+@_styled
+def axle_loads_figure(result: LapResult) -> Figure:
+    """Axle-load parts over distance, one panel per axle.
+
+    Static weight, aero load (CG convention) and ground-force transfer are stacked with their
+    signs (ground transfer ``X h/L`` is taken from the front and added to the rear); their sum
+    is the axle load (black line). The lateral transfer moves load from the inner to the outer
+    wheel of an axle without changing the axle total, so it is drawn as a line of its own.
+
+    Parameters
+    ----------
+    result : LapResult
+        A simulated lap. [-]
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
+    ch, d = result.channels, _distance(result)
+    gt = np.asarray(ch["ground_transfer_n"], float)
+    fig = _figure(10.5, 6.0)
+    axes = fig.subplots(2, 1, sharex=True)
+    for ax, axle, sign in ((axes[0], "front", -1.0), (axes[1], "rear", 1.0)):
+        _stack_signed(ax, d, [
+            ("static", ch[f"static_{axle}_n"], PALETTE["static"]),
+            ("aero (CG convention)", ch[f"aero_{axle}_n"], PALETTE["aero"]),
+            ("ground transfer " + ("-X h/L" if sign < 0 else "+X h/L"), sign * gt,
+             PALETTE["ground"]),
+        ])
+        ax.plot(d, ch[f"fz_{axle}_n"], color=PALETTE["ink"], linewidth=1.1,
+                label="axle load")
+        ax.plot(d, ch[f"lat_transfer_{axle}_n"], color=PALETTE["lateral"], linewidth=1.1,
+                label="lateral transfer (inner to outer wheel)")
+        ax.axhline(0.0, color=PALETTE["muted"], linewidth=0.7)
+        ax.set_ylabel(f"{axle} axle load [N]")
+        ax.set_xlim(d[0], d[-1])
+        ax.legend(loc="upper left", bbox_to_anchor=(1.0, 1.0), fontsize=7)
+    axes[1].set_xlabel("distance [m]")
+    _corner_axis(axes[0], result)
+    fig.suptitle(f"{_names(result)}: axle-load parts", fontsize=10.5)
+    return fig
+
+
+def _binned(x: np.ndarray, y: np.ndarray, width: float) -> tuple[np.ndarray, np.ndarray]:
+    ok = np.isfinite(x) & np.isfinite(y)
+    x, y = x[ok], y[ok]
+    if x.size == 0:
+        return x, y
+    idx = np.floor(x / width).astype(int)
+    keys = np.unique(idx)
+    xm = np.array([x[idx == k].mean() for k in keys])
+    ym = np.array([y[idx == k].mean() for k in keys])
+    return xm, ym
+
+
+@_styled
+def aero_balance_figure(result: LapResult) -> Figure:
+    """Aero balance (front share of downforce) against speed in both conventions.
+
+    The CG convention is the split that acts on track; the ground convention is what
+    wheel-restrained scales read (apparent front lift by ``D h/L``).
+
+    Parameters
+    ----------
+    result : LapResult
+        A simulated lap. [-]
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
+    ch = result.channels
+    v = np.asarray(ch["speed_kph"], float)
+    fig = _figure(7.0, 4.2)
+    ax = fig.add_subplot()
+    series = (("aero_balance_front", "on track (CG convention)", PALETTE["aero"]),
+              ("aero_balance_front_ground", "wheel-restrained scales (ground convention)",
+               PALETTE["ground"]))
+    any_finite = False
+    for key, label, color in series:
+        b = np.asarray(ch[key], float) * 100.0
+        ok = np.isfinite(b)
+        any_finite |= bool(ok.any())
+        ax.scatter(v[ok], b[ok], s=4, color=color, alpha=0.25, linewidths=0)
+        xb, yb = _binned(v, b, 10.0)
+        ax.plot(xb, yb, color=color, marker="o", markersize=3, label=label)
+    if not any_finite:
+        ax.text(0.5, 0.5, "no downforce: aero balance undefined", transform=ax.transAxes,
+                ha="center", color=PALETTE["muted"])
+    elif np.nanmean(np.asarray(ch["downforce_n"], float)) < 0:
+        ax.text(0.02, 0.02, "net lift: shares of a negative total can leave 0-100 %",
+                transform=ax.transAxes, fontsize=8, color=PALETTE["muted"])
+    ax.set_xlabel("speed [km/h]")
+    ax.set_ylabel("front share of downforce [%]")
+    ax.legend(loc="best")
+    ax.set_title(f"{_names(result)}: aero balance vs speed")
+    return fig
+
+
+@_styled
+def gg_figure(result: LapResult) -> Figure:
+    """Longitudinal against lateral acceleration (in g), coloured by speed.
+
+    Parameters
+    ----------
+    result : LapResult
+        A simulated lap. [-]
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
+    ch = result.channels
+    ax_g = np.asarray(ch["ax_mps2"], float) / G0
+    ay_g = np.asarray(ch["ay_mps2"], float) / G0
+    fig = _figure(5.8, 5.0)
+    ax = fig.add_subplot()
+    sc = ax.scatter(ay_g, ax_g, c=ch["speed_kph"], cmap=SEQUENTIAL, s=6, linewidths=0)
+    cb = fig.colorbar(sc, ax=ax, shrink=0.85)
+    cb.set_label("speed [km/h]")
+    lim = max(float(np.nanmax(np.abs(np.concatenate([ax_g, ay_g])))) * 1.1, 0.2)
+    ax.set_xlim(-lim, lim)
+    ax.set_ylim(-lim, lim)
+    ax.set_aspect("equal")
+    ax.axhline(0, color=PALETTE["muted"], linewidth=0.7)
+    ax.axvline(0, color=PALETTE["muted"], linewidth=0.7)
+    ax.set_xlabel("lateral acceleration a_y [g]  (left +)")
+    ax.set_ylabel("longitudinal acceleration a_x [g]  (forward +)")
+    ax.set_title(f"{_names(result)}: g-g", fontsize=10)
+    return fig
+
+
+def _field(c: dict, key: str) -> float:
+    v = c.get(key)
+    return math.nan if v is None else float(v)
+
+
+@_styled
+def liftoff_figure(result: LapResult) -> Figure:
+    """Per corner: worst balance shift on lift-off (engine braking vs coasting) and the rear
+    usage after lift-off, coloured by verdict, with the saturation line at 1.
+
+    Parameters
+    ----------
+    result : LapResult
+        A simulated lap. [-]
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
+    cs = result.corners
+    fig = _figure(9.0, 5.4)
+    axes = fig.subplots(2, 1, sharex=True)
+    if not cs:
+        for ax in axes:
+            ax.text(0.5, 0.5, "no corners on this track", transform=ax.transAxes,
+                    ha="center", color=PALETTE["muted"])
+        fig.suptitle(f"{_names(result)}: lift-off check", fontsize=10.5)
+        return fig
+    pos = np.arange(len(cs))
+    w = 0.38
+    shift = [_field(c, "liftoff_max_shift") for c in cs]
+    coast = [_field(c, "coast_max_shift") for c in cs]
+    ax = axes[0]
+    ax.bar(pos - w / 2, shift, w, color=PALETTE["rear"], label="with engine braking")
+    ax.bar(pos + w / 2, coast, w, color=PALETTE["coast"], label="coasting (no engine braking)")
+    ax.axhline(0, color=PALETTE["muted"], linewidth=0.7)
+    ax.set_ylabel("worst balance shift\nB_off - B_on [-]")
+    ax.legend(loc="lower right", bbox_to_anchor=(1.0, 1.0), ncols=2)
+    ax = axes[1]
+    rear = [_field(c, "liftoff_max_usage_rear") for c in cs]
+    colors = [PALETTE.get(c.get("liftoff_verdict", "not-checked"), PALETTE["not-checked"])
+              for c in cs]
+    ax.bar(pos, rear, 0.6, color=colors)
+    ax.axhline(1.0, color=PALETTE["ink"], linewidth=1.0, linestyle="--")
+    ax.text(1.0, 1.0, " rear saturates ", transform=ax.get_yaxis_transform(), ha="right",
+            va="bottom", fontsize=7, color=PALETTE["ink"])
+    for verdict in ("rear-saturates", "watch", "stable", "not-checked"):
+        ax.bar([0], [0], 0, color=PALETTE[verdict], label=verdict)
+    fig.legend(*ax.get_legend_handles_labels(), loc="outside lower center", ncols=4,
+               title="verdict", title_fontsize=7.5)
+    top = np.nanmax(np.asarray(rear + [1.0]))
+    ax.set_ylim(0, top * 1.15)
+    ax.set_ylabel("rear usage after\nlift-off u_r [-]")
+    ax.set_xticks(pos, labels=[f"{c['id']}\n{c['direction']}" for c in cs])
+    ax.set_xlabel("corner")
+    fig.suptitle(f"{_names(result)}: lift-off check per corner", fontsize=10.5)
+    return fig
+
+
+def _labels(results: Sequence[LapResult], labels: Sequence[str] | None) -> list[str]:
+    if labels is not None:
+        if len(labels) != len(results):
+            raise ValueError(f"{len(labels)} labels for {len(results)} results")
+        return [_plain(s) for s in labels]
+    return [_plain(r.car.name) for r in results]
+
+
+@_styled
+def overlay_figure(results: Sequence[LapResult], labels: Sequence[str] | None = None) -> Figure:
+    """Speed and balance index over distance for several results, overlaid.
+
+    Parameters
+    ----------
+    results : sequence of LapResult
+        Laps to overlay (the first is drawn as the base). [-]
+    labels : sequence of str, optional
+        Legend labels (default: car names). [-]
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
+    labels = _labels(results, labels)
+    fig = _figure(9.0, 5.6)
+    axes = fig.subplots(2, 1, sharex=True)
+    for j, (r, lab) in enumerate(zip(results, labels, strict=True)):
+        color = SERIES[j % len(SERIES)]
+        d = _distance(r)
+        axes[0].plot(d, r.channels["speed_kph"], color=color, label=f"{lab} "
+                     f"({r.lap_time_s:.3f} s)", linewidth=1.4 if j == 0 else 1.1)
+        axes[1].plot(d, r.channels["balance_index"], color=color, label=lab,
+                     linewidth=1.4 if j == 0 else 1.1)
+    axes[0].set_ylabel("speed [km/h]")
+    fig.legend(*axes[0].get_legend_handles_labels(), loc="outside lower center",
+               ncols=min(len(results), 3))
+    axes[1].axhline(0, color=PALETTE["muted"], linewidth=0.7)
+    axes[1].set_ylabel("balance index u_r - u_f [-]\n(> 0 oversteer-leaning)")
+    axes[1].set_xlabel("distance [m]")
+    axes[1].set_xlim(0, max(float(_distance(r)[-1]) for r in results))
+    _corner_axis(axes[0], results[0])
+    track = _plain(getattr(results[0].track, "name", "") or "track")
+    fig.suptitle(f"{' vs '.join(labels)} — {track}: speed and balance", fontsize=10.5)
+    return fig
+
+
+def time_delta(base: LapResult, other: LapResult) -> tuple[np.ndarray, np.ndarray]:
+    """Elapsed-time difference ``other - base`` on the base's distance grid.
+
+    Parameters
+    ----------
+    base, other : LapResult
+        Two laps on the same track. [-]
+
+    Returns
+    -------
+    distance : numpy.ndarray
+        Base distances within the range both laps cover. [m]
+    delta : numpy.ndarray
+        Time of ``other`` minus time of ``base`` at that distance (> 0: other is behind). [s]
+    """
+    db, tb = _distance(base), np.asarray(base.channels["time_s"], float)
+    do, to = _distance(other), np.asarray(other.channels["time_s"], float)
+    keep = db <= do[-1]
+    d = db[keep]
+    return d, np.interp(d, do, to) - tb[keep]
+
+
+@_styled
+def delta_figure(base: LapResult, other: LapResult, labels: Sequence[str] | None = None
+                 ) -> Figure:
+    """Time delta over distance (other minus base) and a track map coloured by its rate.
+
+    Parameters
+    ----------
+    base, other : LapResult
+        Two laps on the same track. [-]
+    labels : sequence of two str, optional
+        Names of base and other (default: car names). [-]
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
+    lb, lo = _labels([base, other], labels)
+    d, dt = time_delta(base, other)
+    rate = np.gradient(dt, d) * 1e3 if d.size > 1 else np.zeros_like(d)
+    fig = _figure(11.0, 4.6)
+    ax, axm = fig.subplots(1, 2, width_ratios=[1.6, 1.0])
+    ax.fill_between(d, 0, dt, where=dt >= 0, color=PALETTE["rear"], alpha=0.25, linewidth=0)
+    ax.fill_between(d, 0, dt, where=dt < 0, color=PALETTE["front"], alpha=0.25, linewidth=0)
+    ax.plot(d, dt, color=PALETTE["ink"])
+    ax.axhline(0, color=PALETTE["muted"], linewidth=0.7)
+    ax.set_xlim(d[0], d[-1])
+    ax.set_xlabel("distance [m]")
+    ax.set_ylabel("time delta, other - base [s]\n(> 0: other behind)")
+    _corner_axis(ax, base)
+    n = d.size
+    x = np.asarray(base.channels["x_m"], float)[:n]
+    y = np.asarray(base.channels["y_m"], float)[:n]
+    m = _symmetric_limit(rate)
+    lc = _track_line(axm, x, y, rate, DIVERGING, TwoSlopeNorm(0.0, -m, m), width=2.5)
+    cb = fig.colorbar(lc, ax=axm, shrink=0.85, extend="both")
+    cb.set_label("time delta rate [ms/m]  (> 0: losing)")
+    axm.set_title("where the time goes", fontsize=9)
+    track = _plain(getattr(base.track, "name", "") or "track")
+    total = other.lap_time_s - base.lap_time_s
+    fig.suptitle(f"{lo} (other) vs {lb} (base) — {track}: lap time delta {total:+.3f} s",
+                 fontsize=10.5)
+    return fig
+
+
+#: Figures of one lap: file stem -> (function, caption).
+LAP_FIGURES: dict[str, tuple[Callable[[LapResult], Figure], str]] = {
+    "track_map": (track_map_figure, "Balance index around the lap, corner numbers at the "
+                  "apexes, lift-off flags at the step with the highest rear usage after "
+                  "lift-off."),
+    "speed": (speed_figure, "Speed over distance; dashed: steady corner-limit speed."),
+    "usage": (usage_figure, "Front and rear grip usage; shaded where the front axle, the "
+              "rear axle or the engine sets the speed."),
+    "axle_loads": (axle_loads_figure, "Axle-load parts with their signs: static, aero (CG "
+                   "convention), ground-force transfer; lateral transfer moves load between "
+                   "the wheels of an axle."),
+    "aero_balance": (aero_balance_figure, "Aero balance vs speed on track (CG convention) "
+                     "and as wheel-restrained scales read it (ground convention)."),
+    "gg": (gg_figure, "Longitudinal vs lateral acceleration, coloured by speed."),
+    "liftoff": (liftoff_figure, "Lift-off check per corner: worst balance shift with engine "
+                "braking vs coasting, and rear usage after lift-off (1 = saturated)."),
+}
+
+
+def figure_png(fig: Figure, dpi: int = 110) -> bytes:
+    """Render ``fig`` to PNG bytes and release it.
+
+    Parameters
+    ----------
+    fig : matplotlib.figure.Figure
+        The figure (it is cleared afterwards). [-]
+    dpi : int
+        Resolution. [dots per inch]
+
+    Returns
+    -------
+    bytes
+        PNG file contents. [-]
+    """
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=dpi)
+    fig.clear()
+    return buf.getvalue()
+
+
+def lap_figures_png(result: LapResult, dpi: int = 110) -> dict[str, bytes]:
+    """Every lap figure as PNG bytes (used by ``lapbalance lap --plots``).
+
+    Parameters
+    ----------
+    result : LapResult
+        A simulated lap. [-]
+    dpi : int
+        Resolution. [dots per inch]
+
+    Returns
+    -------
+    dict of str -> bytes
+        File name (``<figure>.png``) -> PNG contents. [-]
+    """
+    return {f"{name}.png": figure_png(fn(result), dpi) for name, (fn, _) in LAP_FIGURES.items()}

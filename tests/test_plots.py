@@ -1,0 +1,250 @@
+"""Figures: every figure renders for every example car; stacking signs; time delta; --plots."""
+
+from __future__ import annotations
+
+import io
+import math
+import warnings
+from pathlib import Path
+from types import SimpleNamespace
+
+import matplotlib.image as mpimg
+import numpy as np
+import pytest
+from click.testing import CliRunner
+from matplotlib.figure import Figure
+
+from lapbalance import plots
+from lapbalance.car import load_car
+from lapbalance.errors import PhysicsWarning
+from lapbalance.lap import simulate_lap
+from lapbalance.track import load_track
+from tests.helpers import analytic_track
+
+ROOT = Path(__file__).resolve().parents[1]
+EXAMPLE_CARS = sorted(p.stem for p in (ROOT / "examples").glob("*.toml"))
+#: The aero-map variant takes ~1 s per lap; it is drawn on one demo circuit below instead.
+SLOW_CARS = ("single_seater_mapped",)
+FULL_CARS = [c for c in EXAMPLE_CARS if c not in SLOW_CARS]
+TRACKS = sorted(p.stem for p in (ROOT / "tracks").glob("*.csv"))
+MAIN_TRACK = "veldmoor_ring"  # closed, 11 corners: every car renders every figure here
+STEP_M = 2.0  # coarse resampling keeps the laps quick
+PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
+TEST_DPI = 40  # small images: the tests check that figures render, not how they look
+
+
+def rounded_loop(ds: float = 2.0, name: str = "test loop"):
+    """Closed rounded rectangle (600 m x 400 m) with four left corners of 30, 80, 50, 120 m.
+
+    The straights are chosen so that the outline closes: 120 + 450 + 30 = 80 + 470 + 50 and
+    30 + 290 + 80 = 50 + 230 + 120 (up to rounding each arc to whole steps).
+    """
+    segments = [("straight", 450), ("corner", 30), ("straight", 290), ("corner", 80),
+                ("straight", 470), ("corner", 50), ("straight", 230), ("corner", 120)]
+    k, corners, d = [], [], 0.0
+    for kind, v in segments:
+        if kind == "straight":
+            n = int(round(v / ds))
+            k += [0.0] * n
+        else:
+            n = int(round(v * math.pi / 2 / ds))
+            k += [1.0 / v] * n
+            corners.append(SimpleNamespace(id=len(corners) + 1, direction="left", entry_m=d,
+                                           apex_m=d + n * ds / 2, exit_m=d + n * ds,
+                                           min_radius_m=float(v)))
+        d += n * ds
+    return analytic_track(k, ds=ds, closed=True, name=name, corners=corners)
+
+
+def track_file(name: str) -> Path:
+    return ROOT / "tracks" / f"{name}.csv"
+
+
+def car_file(name: str) -> Path:
+    return ROOT / "examples" / f"{name}.toml"
+
+
+@pytest.fixture(scope="module")
+def loop():
+    return rounded_loop()
+
+
+@pytest.fixture(scope="module")
+def laps():
+    track = load_track(track_file(MAIN_TRACK), step_m=STEP_M)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", PhysicsWarning)  # mapped car: map edge warnings
+        return {name: simulate_lap(load_car(car_file(name)), track) for name in FULL_CARS}
+
+
+def _decoded(png: bytes) -> np.ndarray:
+    assert png.startswith(PNG_SIGNATURE)
+    return mpimg.imread(io.BytesIO(png), format="png")
+
+
+def _check_all_figures(result):
+    pngs = plots.lap_figures_png(result, dpi=TEST_DPI)
+    assert set(pngs) == {f"{name}.png" for name in plots.LAP_FIGURES}
+    for name, png in pngs.items():
+        img = _decoded(png)
+        assert img.ndim == 3 and img.shape[0] > 100 and img.shape[1] > 100, name
+        # Not blank: something other than the white background was drawn.
+        assert float(img[..., :3].std()) > 0.02, name
+
+
+@pytest.mark.parametrize("car", FULL_CARS)
+def test_every_lap_figure_renders_for_every_example_car(laps, car):
+    _check_all_figures(laps[car])
+
+
+#: Figures whose content depends on the track (geometry, corners, limits); rendered for every
+#: demo circuit. The others are built (not rendered) there to keep the test quick.
+TRACK_FIGURES = ("track_map", "speed", "liftoff")
+
+
+@pytest.mark.parametrize("track", [t for t in TRACKS if t != MAIN_TRACK])
+def test_figures_render_for_every_track(track):
+    # A different example car on each circuit (slow ones first), so that cars x tracks is
+    # sampled too and every car is drawn somewhere.
+    others = [t for t in TRACKS if t != MAIN_TRACK]
+    order = list(SLOW_CARS) + FULL_CARS[::-1]
+    car = order[others.index(track) % len(order)]
+    tr = load_track(track_file(track), step_m=STEP_M)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", PhysicsWarning)
+        result = simulate_lap(load_car(car_file(car)), tr)
+    assert result.corners  # every demo circuit has corners to label
+    for name, (fn, _) in plots.LAP_FIGURES.items():
+        fig = fn(result)
+        if name in TRACK_FIGURES:
+            img = _decoded(plots.figure_png(fig, TEST_DPI))
+            assert float(img[..., :3].std()) > 0.02, name
+
+
+def test_titles_name_car_and_track(laps):
+    r = laps["gt_coupe"]
+    for name, (fn, _) in plots.LAP_FIGURES.items():
+        fig = fn(r)
+        assert isinstance(fig, Figure)
+        titles = [ax.get_title() for ax in fig.axes]
+        titles.append(fig._suptitle.get_text() if fig._suptitle else "")
+        assert any(r.car.name in t and r.track.name in t for t in titles), name
+
+
+def test_track_map_colourbar_is_centred_on_zero_and_labelled(laps):
+    fig = plots.track_map_figure(laps["gt_coupe"])
+    labels = [ax.get_ylabel() for ax in fig.axes]
+    assert "balance index u_r - u_f [-]  (> 0 oversteer-leaning)" in labels
+    (lc,) = [c for c in fig.axes[0].collections if c.get_array() is not None]
+    assert lc.norm.vcenter == 0.0
+    assert lc.norm.vmin == pytest.approx(-lc.norm.vmax)
+
+
+def test_track_map_marks_flagged_corners_by_verdict(laps):
+    r = laps["gt_coupe"]
+    verdicts = {c["liftoff_verdict"] for c in r.corners}
+    fig = plots.track_map_figure(r)
+    legend = [t.get_text() for t in fig.axes[0].get_legend().get_texts()]
+    for v in ("rear-saturates", "watch"):
+        assert (f"lift-off: {v}" in legend) == (v in verdicts)
+
+
+def test_usage_figure_shades_the_limiting_constraint(laps):
+    r = laps["gt_coupe"]
+    names = set(r.limit_names())
+    fig = plots.usage_figure(r)
+    labels = set(fig.legends[0].texts[i].get_text() for i in range(len(fig.legends[0].texts)))
+    for lim in ("front", "rear"):
+        assert (f"{lim} axle limits" in labels) == (lim in names)
+    assert ("engine limits" in labels) == ("engine" in names)
+
+
+def _band(coll) -> tuple[float, float]:
+    y = np.concatenate([p.vertices[:, 1] for p in coll.get_paths()])
+    return float(y.min()), float(y.max())
+
+
+def test_stacked_parts_sum_to_the_total_with_signs():
+    # Source: DESIGN.md load decomposition, Fz_f = static + aero - X h/L (sum of the parts);
+    # the drawing must end at that sum: 10 + 2 - 3 = 9.
+    fig = Figure()
+    ax = fig.add_subplot()
+    x = np.array([0.0, 1.0])
+    plots._stack_signed(ax, x, [("static", np.array([10.0, 10.0]), "k"),
+                                ("aero", np.array([2.0, 2.0]), "g"),
+                                ("ground", np.array([-3.0, -3.0]), "b")])
+    by_label = {c.get_label(): c for c in ax.collections}
+    assert set(by_label) == {"static", "aero", "ground, removed"}
+    assert _band(by_label["static"]) == (0.0, 10.0)
+    assert _band(by_label["aero"]) == (10.0, 12.0)
+    assert _band(by_label["ground, removed"]) == (9.0, 12.0)
+
+
+def test_axle_loads_front_loses_and_rear_gains_ground_transfer(laps):
+    r = laps["gt_coupe"]
+    gt = r.channels["ground_transfer_n"]
+    assert gt.max() > 0 and gt.min() < 0  # the lap both drives and brakes
+    front, rear = plots.axle_loads_figure(r).axes[:2]
+
+    def labels(ax):
+        return {c.get_label() for c in ax.collections}
+
+    # Driving (X > 0) takes X h/L off the front (hatched, removed) and adds it to the rear.
+    assert "ground transfer -X h/L, removed" in labels(front)
+    assert "ground transfer +X h/L" in labels(rear)
+    # Braking (X < 0) is the mirror image.
+    assert "ground transfer -X h/L" in labels(front)
+    assert "ground transfer +X h/L, removed" in labels(rear)
+    line = [ln for ln in front.get_lines() if ln.get_label() == "axle load"][0]
+    np.testing.assert_array_equal(line.get_ydata(), r.channels["fz_front_n"])
+
+
+def test_time_delta_of_a_lap_with_itself_is_zero_and_matches_time_channels(laps):
+    base, other = laps["gt_coupe"], laps["gt_coupe_high_wing"]
+    d, dt = plots.time_delta(base, base)
+    assert np.all(dt == 0.0)
+    d, dt = plots.time_delta(base, other)
+    # Same distance grid: the interpolation returns the other lap's own times.
+    np.testing.assert_allclose(dt, other.channels["time_s"] - base.channels["time_s"],
+                               atol=1e-12)
+
+
+def test_overlay_and_delta_figures_render(laps):
+    rs = [laps["gt_coupe"], laps["gt_coupe_high_wing"], laps["fwd_hatch"]]
+    fig = plots.overlay_figure(rs, ["base", "wing", "hatch"])
+    assert [ln.get_label() for ln in fig.axes[1].get_lines()][:3] == ["base", "wing", "hatch"]
+    _decoded(plots.figure_png(fig, TEST_DPI))
+    fig = plots.delta_figure(rs[0], rs[1], ["base", "wing"])
+    assert "base" in fig._suptitle.get_text() and "wing" in fig._suptitle.get_text()
+    _decoded(plots.figure_png(fig, TEST_DPI))
+    with pytest.raises(ValueError, match="labels"):
+        plots.overlay_figure(rs, ["only one"])
+
+
+def test_figures_without_corners_or_downforce(loop):
+    # A track with no corner table and a car without aero: no crash, figures still render.
+    from tests.helpers import make_car
+
+    bare = analytic_track(loop.curvature_1pm, ds=loop.step_m, closed=True, name="no corners")
+    r = simulate_lap(make_car(), bare)
+    assert r.corners == []
+    assert np.all(np.isnan(r.channels["aero_balance_front"]))
+    for name, (fn, _) in plots.LAP_FIGURES.items():
+        fig = fn(r)
+        if name in ("track_map", "aero_balance", "liftoff"):  # the branches for missing data
+            _decoded(plots.figure_png(fig, TEST_DPI))
+
+
+def test_lap_command_writes_plots(tmp_path, monkeypatch):
+    from lapbalance.cli import main
+
+    # The figures are tested above; two keep this plumbing test quick.
+    monkeypatch.setattr(plots, "LAP_FIGURES", {k: plots.LAP_FIGURES[k]
+                                               for k in ("track_map", "usage")})
+    out = tmp_path / "lap"
+    res = CliRunner().invoke(main, ["lap", str(car_file("fwd_hatch")),
+                                    str(track_file("oranby_bowl")), "--step-m", "4",
+                                    "--out", str(out), "--plots"])
+    assert res.exit_code == 0, res.output
+    for name in ("track_map", "usage"):
+        assert (out / f"{name}.png").read_bytes().startswith(PNG_SIGNATURE)
