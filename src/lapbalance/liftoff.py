@@ -99,7 +99,10 @@ def verdict(worst_shift: dict | None, worst_rear: dict | None,
         return "rear-saturates", (f"rear usage {u:.3f} after lift-off at "
                                   f"{worst_rear['speed_kph']:.0f} km/h")
     if u >= t.watch_usage:
-        return "watch", f"rear keeps only {max(0.0, 1 - u) * 100:.1f} % grip after lift-off"
+        if u >= 1.0:
+            return "watch", (f"rear at its limit after lift-off (usage {u:.3f}, within the "
+                             f"{t.saturation_margin * 100:.0f} % margin)")
+        return "watch", f"rear keeps only {(1 - u) * 100:.1f} % grip after lift-off"
     if worst_shift["balance_shift"] >= t.watch_shift and \
             worst_shift["speed_kph"] >= t.watch_speed_kph and \
             worst_shift["usage_rear_off"] >= t.shift_rear_usage:

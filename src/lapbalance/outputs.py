@@ -20,6 +20,18 @@ from pathlib import Path
 from lapbalance.errors import InputError
 
 
+def _umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
+
+
+def _default_mode(directory: bool = False) -> int:
+    """Mode a plain ``open()``/``mkdir()`` would give (0666/0777 minus the umask); temporary
+    files are created private and get this mode before they are renamed into place."""
+    return (0o777 if directory else 0o666) & ~_umask()
+
+
 def write_bytes_atomic(path: str | Path, data: bytes) -> Path:
     """Write ``data`` to ``path`` through a temporary file and an atomic rename."""
     path = Path(path)
@@ -30,6 +42,7 @@ def write_bytes_atomic(path: str | Path, data: bytes) -> Path:
             fh.write(data)
             fh.flush()
             os.fsync(fh.fileno())
+        os.chmod(tmp, _default_mode())
         os.replace(tmp, path)
     except BaseException:
         if os.path.exists(tmp):
@@ -100,6 +113,7 @@ def staged_dir(path: str | Path, force: bool = False, option: str = "--out"):
     check_output_dir(path, force, option)
     path.parent.mkdir(parents=True, exist_ok=True)
     tmp = Path(tempfile.mkdtemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent))
+    os.chmod(tmp, _default_mode(directory=True))
     try:
         yield tmp
     except BaseException:

@@ -91,7 +91,7 @@ def demo_command(out_dir, force):
         results = [result]
         if variant.exists():
             results.append(simulate_lap(load_car(variant), track))
-        report_html = _report.build_report(results)
+        report_html = _report.build_report(results, dpi=70)
 
     with staged_dir(out, force=force or own, option="--out") as tmp:
         (tmp / DEMO_MARKER).write_text("written by lapbalance demo; the demo may replace "
