@@ -636,19 +636,26 @@ def _convert(spec: Key, sec: str, key: str, value, src: str):
             cand = si * factor
             c_lo = spec.lo is None or (cand > spec.lo if spec.lo_open else cand >= spec.lo)
             c_hi = spec.hi is None or (cand < spec.hi if spec.hi_open else cand <= spec.hi)
-            if c_lo and c_hi:
+            # a unit slip is off by a large factor: only suggest it when the value is at least
+            # 10x beyond the bound it breaks (2.5 m of CG height is not 2.5 mm)
+            far = ((factor < 1 and spec.hi is not None and spec.hi > 0 and si >= 10 * spec.hi)
+                   or (factor > 1 and spec.lo is not None and spec.lo > 0
+                       and 0 < si <= spec.lo / 10))
+            if c_lo and c_hi and far:
                 alt = next((k for k, s, u in spec.alts if k != key), None)
                 also = f" or use {alt}" if alt else ""
+                is_in = "a fraction" if unit in ("", "-") else f"in {unit}"
                 raise InputError(
-                    f"= {value:g} looks like {looks}, but the key is in {unit}; "
+                    f"= {value:g} looks like {looks}, but the key is {is_in}; "
                     f"write {cand / scale:g}{also}", src, dotted)
         rng = []
         if spec.lo is not None:
             rng.append(f"{'>' if spec.lo_open else '>='} {spec.lo / spec.scale_of(key):g}")
         if spec.hi is not None:
             rng.append(f"{'<' if spec.hi_open else '<='} {spec.hi / spec.scale_of(key):g}")
-        raise InputError(f"= {value:g} {unit} is not physical; it must be "
-                         f"{' and '.join(rng)} {unit}", src, dotted)
+        u = "" if unit in ("", "-") else f" {unit}"
+        raise InputError(f"= {value:g}{u} is not physical; it must be "
+                         f"{' and '.join(rng)}{u}", src, dotted)
     if spec.kind == "int":
         return int(round(si))
     return si
@@ -931,6 +938,12 @@ def _build_suspension(v: dict, src: str) -> Suspension:
     elif kf is not None or kr is not None:
         raise InputError("give roll_stiffness_front_share or the two roll stiffnesses, not "
                          "both", src, "suspension.roll_stiffness_front_share")
+    for attr in ("static_ride_height_front", "static_ride_height_rear"):
+        rh = v[attr]
+        if rh is not None and 0 < abs(rh) < 1e-3:  # under 1 mm: a value in metres
+            raise InputError(f"= {rh / MM:g} looks like metres, but the key is in mm; write "
+                             f"{rh / MM * 1e3:g}", _src(v, attr, src),
+                             f"suspension.{attr}_mm")
     hf = v["heave_rate_front"] if v["heave_rate_front"] is not None else math.inf
     hr = v["heave_rate_rear"] if v["heave_rate_rear"] is not None else math.inf
     return Suspension(share, v["roll_centre_front"], v["roll_centre_rear"], hf, hr,

@@ -23,7 +23,7 @@ def track_options(f):
 def load_inputs(car_file, track_file, overrides, step_m, closed):
     from lapbalance.track import load_track
 
-    if step_m <= 0 or step_m > 50:
+    if not 0 < step_m <= 50:
         from lapbalance.errors import InputError
 
         raise InputError(f"= {step_m} must be between 0 and 50 m", "--step-m")
