@@ -612,7 +612,8 @@ def _convert(spec: Key, sec: str, key: str, value, src: str):
             if isinstance(v, bool) or not isinstance(v, int | float):
                 raise InputError(f"item {i + 1} = {v!r} is not a number", src, dotted)
             if not math.isfinite(v):
-                raise InputError(f"item {i + 1} = {v} is not finite", src, dotted)
+                raise InputError(f"item {i + 1} = {v} is not finite; give a plain number", src,
+                                 dotted)
             out.append(float(v) * spec.scale_of(key))
         return tuple(out)
     if isinstance(value, bool) or not isinstance(value, int | float):
@@ -625,7 +626,7 @@ def _convert(spec: Key, sec: str, key: str, value, src: str):
                 hint = "; give a number"
         raise InputError(f"= {value!r} is not a number{hint}", src, dotted)
     if not math.isfinite(value):
-        raise InputError(f"= {value} is not a finite number", src, dotted)
+        raise InputError(f"= {value} is not a finite number; give a plain number", src, dotted)
     si = float(value) * spec.scale_of(key)
     unit = next((u for k, s, u in spec.alts if k == key), spec.unit)
     lo_ok = spec.lo is None or (si > spec.lo if spec.lo_open else si >= spec.lo)
