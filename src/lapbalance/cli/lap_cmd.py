@@ -105,6 +105,10 @@ def lap_command(car_file, track_file, out_dir, overrides, as_json, force, step_m
     from lapbalance.export import write_lap_folder
     from lapbalance.lap import simulate_lap
 
+    if out_dir:  # refuse an occupied folder before the lap is run, not after
+        from lapbalance.outputs import check_output_dir
+
+        check_output_dir(out_dir, force)
     car, track = load_inputs(car_file, track_file, overrides, step_m, closed)
     result = simulate_lap(car, track, start_speed_kph=start_speed_kph)
     if out_dir:
