@@ -103,6 +103,9 @@ EXPECT: dict[str, str] = {
         r"car_variant_loop_b\.toml\); make one file the plain base",
     "car_variant_bad_override.toml":
         r"car_variant_bad_override\.toml: chassis\.cg_height_m: = -0\.4 m is not physical",
+    "car_aero_map_missing.toml":
+        r'aero\.map_file: aero map "no_such_aero_map\.csv" not found .*give a path relative '
+        r"to the car file",
     # track files ----------------------------------------------------------------------------
     "track_empty.csv": r"the file is empty; give a header row",
     "track_binary.csv": r"binary file, not CSV text; export the track as CSV",
@@ -161,6 +164,7 @@ EXPECT: dict[str, str] = {
     "tunnel_misspelt_column.csv": LINE + r'unknown column "frnt_n"; did you mean "front_n"',
     "tunnel_negative_drag.csv":
         LINE + r"drag_n = -\d+\.?\d* is negative; drag is positive rearward",
+    "tunnel_negative_speed.csv": LINE + r"speed_kph = -100 is negative; .*speed >= 0",
     "tunnel_decimal_comma.csv": r"line 4: has 8 values but the header has 7 columns",
     "tunnel_semicolon_delimiter.csv":
         LINE + r'missing column "front_n"; the header needs front_n, rear_n, drag_n',

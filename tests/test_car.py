@@ -216,6 +216,20 @@ def test_variant_with_the_other_unit_spelling_replaces_the_base_key(tmp_path):
     assert load_car(p).chassis.wheelbase == pytest.approx(2.710, rel=1e-12)
 
 
+def test_variant_in_another_folder_keeps_its_base_aero_map(tmp_path):
+    mapped = ROOT / "examples" / "single_seater_mapped.toml"
+    p = tmp_path / "elsewhere" / "heavier.toml"
+    p.parent.mkdir()
+    p.write_text(f'base = "{mapped.as_posix()}"\nname = "heavier"\n\n[chassis]\n'
+                 "mass_kg = 660.0\n", encoding="utf-8")
+    car, base = load_car(p), load_car(mapped)
+    assert car.chassis.mass == 660.0
+    assert car.aero.aero_map is not None
+    assert Path(car.aero.aero_map.source).resolve() == \
+        (ROOT / "examples" / "single_seater_aero_map.csv").resolve()
+    assert car.aero.front_area_cg == pytest.approx(base.aero.front_area_cg, rel=1e-12)
+
+
 def test_set_override_changes_only_its_key():
     base = load_car(GT)
     car = load_car(GT, ["aero.drag_area_m2=0.9", "brakes.bias_front=0.62"])

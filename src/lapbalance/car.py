@@ -808,7 +808,14 @@ def _build_aero(v: dict, ch: Chassis, sus: Suspension, air: Air, src: str, folde
         if sus.static_ride_height_front is None or sus.static_ride_height_rear is None:
             raise InputError("an aero map needs suspension.static_ride_height_front_mm and "
                              "static_ride_height_rear_mm", src, "suspension")
-        mpath = folder / v["map_file"]
+        # relative to the file that names the map (a base file may sit in another folder)
+        key_src = _src(v, "map_file", src)
+        mfolder = Path(key_src).parent if Path(key_src).is_file() else folder
+        mpath = mfolder / v["map_file"]
+        if not mpath.is_file():
+            raise InputError(f'aero map "{v["map_file"]}" not found (looked for {mpath}); give '
+                             "a path relative to the car file that names it", key_src,
+                             "aero.map_file")
         amap = aeromap.load_aero_map(mpath, cg_height=h, wheelbase=L)
         fa, ra, da = amap.areas_at(sus.static_ride_height_front, sus.static_ride_height_rear)
         f_cg, r_cg, drag_area = fa, ra, da
