@@ -612,7 +612,8 @@ def _convert(spec: Key, sec: str, key: str, value, src: str):
             if isinstance(v, bool) or not isinstance(v, int | float):
                 raise InputError(f"item {i + 1} = {v!r} is not a number", src, dotted)
             if not math.isfinite(v):
-                raise InputError(f"item {i + 1} = {v} is not finite", src, dotted)
+                raise InputError(f"item {i + 1} = {v} is not finite; give a plain number", src,
+                                 dotted)
             out.append(float(v) * spec.scale_of(key))
         return tuple(out)
     if isinstance(value, bool) or not isinstance(value, int | float):
@@ -625,7 +626,7 @@ def _convert(spec: Key, sec: str, key: str, value, src: str):
                 hint = "; give a number"
         raise InputError(f"= {value!r} is not a number{hint}", src, dotted)
     if not math.isfinite(value):
-        raise InputError(f"= {value} is not a finite number", src, dotted)
+        raise InputError(f"= {value} is not a finite number; give a plain number", src, dotted)
     si = float(value) * spec.scale_of(key)
     unit = next((u for k, s, u in spec.alts if k == key), spec.unit)
     lo_ok = spec.lo is None or (si > spec.lo if spec.lo_open else si >= spec.lo)
@@ -636,19 +637,26 @@ def _convert(spec: Key, sec: str, key: str, value, src: str):
             cand = si * factor
             c_lo = spec.lo is None or (cand > spec.lo if spec.lo_open else cand >= spec.lo)
             c_hi = spec.hi is None or (cand < spec.hi if spec.hi_open else cand <= spec.hi)
-            if c_lo and c_hi:
+            # a unit slip is off by a large factor: only suggest it when the value is at least
+            # 10x beyond the bound it breaks (2.5 m of CG height is not 2.5 mm)
+            far = ((factor < 1 and spec.hi is not None and spec.hi > 0 and si >= 10 * spec.hi)
+                   or (factor > 1 and spec.lo is not None and spec.lo > 0
+                       and 0 < si <= spec.lo / 10))
+            if c_lo and c_hi and far:
                 alt = next((k for k, s, u in spec.alts if k != key), None)
                 also = f" or use {alt}" if alt else ""
+                is_in = "a fraction" if unit in ("", "-") else f"in {unit}"
                 raise InputError(
-                    f"= {value:g} looks like {looks}, but the key is in {unit}; "
+                    f"= {value:g} looks like {looks}, but the key is {is_in}; "
                     f"write {cand / scale:g}{also}", src, dotted)
         rng = []
         if spec.lo is not None:
             rng.append(f"{'>' if spec.lo_open else '>='} {spec.lo / spec.scale_of(key):g}")
         if spec.hi is not None:
             rng.append(f"{'<' if spec.hi_open else '<='} {spec.hi / spec.scale_of(key):g}")
-        raise InputError(f"= {value:g} {unit} is not physical; it must be "
-                         f"{' and '.join(rng)} {unit}", src, dotted)
+        u = "" if unit in ("", "-") else f" {unit}"
+        raise InputError(f"= {value:g}{u} is not physical; it must be "
+                         f"{' and '.join(rng)}{u}", src, dotted)
     if spec.kind == "int":
         return int(round(si))
     return si
@@ -800,7 +808,14 @@ def _build_aero(v: dict, ch: Chassis, sus: Suspension, air: Air, src: str, folde
         if sus.static_ride_height_front is None or sus.static_ride_height_rear is None:
             raise InputError("an aero map needs suspension.static_ride_height_front_mm and "
                              "static_ride_height_rear_mm", src, "suspension")
-        mpath = folder / v["map_file"]
+        # relative to the file that names the map (a base file may sit in another folder)
+        key_src = _src(v, "map_file", src)
+        mfolder = Path(key_src).parent if Path(key_src).is_file() else folder
+        mpath = mfolder / v["map_file"]
+        if not mpath.is_file():
+            raise InputError(f'aero map "{v["map_file"]}" not found (looked for {mpath}); give '
+                             "a path relative to the car file that names it", key_src,
+                             "aero.map_file")
         amap = aeromap.load_aero_map(mpath, cg_height=h, wheelbase=L)
         fa, ra, da = amap.areas_at(sus.static_ride_height_front, sus.static_ride_height_rear)
         f_cg, r_cg, drag_area = fa, ra, da
@@ -931,6 +946,12 @@ def _build_suspension(v: dict, src: str) -> Suspension:
     elif kf is not None or kr is not None:
         raise InputError("give roll_stiffness_front_share or the two roll stiffnesses, not "
                          "both", src, "suspension.roll_stiffness_front_share")
+    for attr in ("static_ride_height_front", "static_ride_height_rear"):
+        rh = v[attr]
+        if rh is not None and 0 < abs(rh) < 1e-3:  # under 1 mm: a value in metres
+            raise InputError(f"= {rh / MM:g} looks like metres, but the key is in mm; write "
+                             f"{rh / MM * 1e3:g}", _src(v, attr, src),
+                             f"suspension.{attr}_mm")
     hf = v["heave_rate_front"] if v["heave_rate_front"] is not None else math.inf
     hr = v["heave_rate_rear"] if v["heave_rate_rear"] is not None else math.inf
     return Suspension(share, v["roll_centre_front"], v["roll_centre_rear"], hf, hr,

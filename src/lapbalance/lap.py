@@ -269,6 +269,16 @@ def simulate_lap(car: Car, track, *, start_speed_kph: float | None = None,
     -------
     LapResult
     """
+    if start_speed_kph is not None and not (math.isfinite(start_speed_kph)
+                                            and start_speed_kph >= 0.0):
+        raise InputError(f"= {start_speed_kph:g} km/h must be a finite speed >= 0 km/h "
+                         "(0 = standing start)", "start_speed_kph")
+    pt = car.powertrain
+    if (pt.power <= 0.0 if pt.mode == "power" else max(pt.torque_curve_nm) <= 0.0):
+        key = "power_kw" if pt.mode == "power" else "torque_curve_nm"
+        raise InfeasibleError("the engine gives no drive force (zero power or torque), so the "
+                              "car cannot drive a lap; give the engine's power or torque",
+                              car.source or "car", f"powertrain.{key}")
     p, gears, trpm, tnm, mx, my, mt = car_parameters(car)
     n = len(track.distance_m)
     if n < 3:

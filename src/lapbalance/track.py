@@ -78,6 +78,12 @@ MIN_POINTS = 10
 #: Smallest radius a car can drive after smoothing; below it the trace zig-zags or crosses
 #: itself. Common practice: the tightest road hairpins are about 5-10 m radius. [m]
 MIN_RADIUS_M = 3.0
+#: Largest accepted position noise across the path, as a share of the median point spacing
+#: (and at least ``ZIGZAG_MIN_M``). Random position noise estimates at most about 0.5 spacings
+#: (the spacing itself grows with the noise); a trace that steps sideways by more than this
+#: zig-zags point to point and is not a centreline. Engineering judgement. [-], [m]
+ZIGZAG_NOISE_SPACINGS = 0.65
+ZIGZAG_MIN_M = 0.5
 #: Largest |bank| accepted; steeper than the steepest banked ovals (about 30-35 deg). [deg]
 MAX_BANK_DEG = 60.0
 #: ``bank_deg`` values all below this (and not all zero) look like radians. [deg]
@@ -622,6 +628,10 @@ def _build(x, y, z, bank_deg, width, *, closed, step_m, name, source, sector_sta
     if z is not None:
         _check_grade(z, u, closed, gap, src, rws)
     noise = _estimate_noise(x, y, u, closed)
+    if noise > max(ZIGZAG_NOISE_SPACINGS * med, ZIGZAG_MIN_M):
+        raise InputError(f"the points step sideways by about {noise:.1f} m from one to the next "
+                         f"(median spacing {med:.2g} m): the trace zig-zags; give the points "
+                         "in driving order along the centreline", src)
     w1, sig_k = _smoothing_windows(noise, med)
     xs, ys, us = x, y, u
     if w1 > 0:

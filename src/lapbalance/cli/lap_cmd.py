@@ -23,7 +23,7 @@ def track_options(f):
 def load_inputs(car_file, track_file, overrides, step_m, closed):
     from lapbalance.track import load_track
 
-    if step_m <= 0 or step_m > 50:
+    if not 0 < step_m <= 50:
         from lapbalance.errors import InputError
 
         raise InputError(f"= {step_m} must be between 0 and 50 m", "--step-m")
@@ -114,6 +114,10 @@ def lap_command(car_file, track_file, out_dir, overrides, as_json, force, step_m
     from lapbalance.export import write_lap_folder
     from lapbalance.lap import simulate_lap
 
+    if out_dir:  # refuse an occupied folder before the lap is run, not after
+        from lapbalance.outputs import check_output_dir
+
+        check_output_dir(out_dir, force)
     car, track = load_inputs(car_file, track_file, overrides, step_m, closed)
     result = simulate_lap(car, track, start_speed_kph=start_speed_kph)
     if out_dir:

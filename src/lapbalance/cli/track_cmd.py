@@ -11,6 +11,7 @@ import numpy as np
 
 from lapbalance.cli import main
 from lapbalance.cli.common import echo_json, json_option, table
+from lapbalance.errors import InputError
 from lapbalance.outputs import write_bytes_atomic
 
 if TYPE_CHECKING:
@@ -99,6 +100,8 @@ def track_command(track_file, step_m, closed, map_png, as_json):
     """Load TRACK_FILE (CSV), print its length, corners and sectors."""
     from lapbalance.track import load_track
 
+    if not 0 < step_m <= 50:
+        raise InputError(f"= {step_m} must be between 0 and 50 m", "--step-m")
     tr = load_track(track_file, step_m=step_m, closed=closed)
     info = track_summary(tr)
     if map_png:

@@ -1,0 +1,319 @@
+"""Every file in the bad-input corpus (tests/data/bad) gets one clear line and exit status 2.
+
+Each corpus file is paired with good other inputs (demo cars in ``examples/``, demo tracks in
+``tracks/``) and run through every command that reads that kind of file. The answer must be
+exactly one line on stderr starting with ``lapbalance: ``, name the bad file, match the
+expected "what is wrong + how to fix it" pattern below, and show no traceback.
+
+File kinds by name prefix: ``car_`` (TOML car file), ``track_`` (track CSV), ``aeromap_``
+(aero-map CSV, read through a car file's ``aero.map_file``), ``tunnel_`` (tunnel readings
+table), ``targets_`` (handling targets, ``lapbalance check``).
+"""
+
+from __future__ import annotations
+
+import importlib.util
+import re
+from pathlib import Path
+
+import pytest
+from click.testing import CliRunner
+
+from lapbalance.car import load_car
+from lapbalance.cli import main
+from lapbalance.errors import InputError
+from lapbalance.track import load_track
+
+ROOT = Path(__file__).resolve().parents[1]
+BAD = ROOT / "tests" / "data" / "bad"
+GOOD_CAR = ROOT / "examples" / "gt_coupe.toml"
+GOOD_VARIANT = ROOT / "examples" / "gt_coupe_high_wing.toml"
+MAPPED_CAR = ROOT / "examples" / "single_seater_mapped.toml"
+GOOD_TRACK = ROOT / "tracks" / "veldmoor_ring.csv"
+GOOD_READINGS = ROOT / "examples" / "gt_coupe_tunnel_sweep.csv"
+GOOD_TARGETS = """\
+[[target]]
+name = "aero balance window"
+quantity = "aero_balance_front"
+condition = { range = [0.30, 0.60] }
+"""
+
+LINE = r"line \d+: "
+
+#: corpus file -> regex the one-line message must match (field/row, what is wrong, the fix).
+EXPECT: dict[str, str] = {
+    # car files ------------------------------------------------------------------------------
+    "car_empty.toml": r"is empty; a car file needs .*sections",
+    "car_binary.toml": r"is a binary file, not a TOML car file",
+    "car_not_utf8.toml": r"is not UTF-8 text; save the car file as UTF-8",
+    "car_half_edited_syntax_error.toml": r"is not valid TOML \(.*line 3\d.*\); check quotes",
+    "car_unknown_key.toml": r"chassis\.paint_colour: unknown key .*; valid: .*mass_kg",
+    "car_misspelt_key.toml": r'chassis\.wheelbse_m: unknown key .*did you mean "wheelbase_m"',
+    "car_unknown_section.toml": r'brake: unknown section \[brake\]; did you mean "brakes"',
+    "car_missing_section.toml": r"brakes: missing section \[brakes\]",
+    "car_missing_key.toml": r'chassis\.mass_kg: missing key "chassis\.mass_kg" \(.*kg\)',
+    "car_negative_mass.toml": r"chassis\.mass_kg: = -1300 kg is not physical; it must be >= 50",
+    "car_mass_in_tonnes.toml": r"chassis\.mass_kg: = 1\.3 looks like tonnes.*write 1300",
+    "car_wheelbase_in_mm.toml":
+        r"chassis\.wheelbase_m: = 2650 looks like millimetres.*write 2\.65 or use wheelbase_mm",
+    "car_cg_height_in_mm.toml":
+        r"chassis\.cg_height_m: = 420 looks like millimetres.*write 0\.42",
+    "car_cg_height_above_2m.toml":
+        r"chassis\.cg_height_m: = 2\.5 m is not physical; it must be > 0 and <= 2 m",
+    "car_weight_fraction_percent.toml":
+        r"chassis\.front_weight_fraction: = 47 looks like a percentage.*write 0\.47",
+    "car_weight_fraction_above_one.toml":
+        r"chassis\.front_weight_fraction: = 1\.2 is not physical; it must be > 0 and < 1",
+    "car_weight_fraction_negative.toml":
+        r"chassis\.front_weight_fraction: = -0\.3 is not physical; it must be > 0 and < 1",
+    "car_zero_wheel_radius.toml":
+        r"powertrain\.wheel_radius_m: = 0 m is not physical; it must be >= 0\.1",
+    "car_negative_drag_area.toml": r"aero\.drag_area_m2: = -0\.8 m² is not physical; .*>= 0",
+    "car_gear_ratios_not_descending.toml":
+        r"powertrain\.gear_ratios: ratios must fall from first gear to top gear",
+    "car_torque_curve_length_mismatch.toml":
+        r"powertrain\.torque_curve_nm: torque_curve_rpm has 8 values but torque_curve_nm "
+        r"has 7; give one torque per rpm",
+    "car_text_in_number.toml": r"chassis\.mass_kg: = '1300 kg' is not a number; give a number",
+    "car_nan_value.toml": r"aero\.drag_area_m2: = nan is not a finite number; give a plain",
+    "car_inf_value.toml":
+        r"tyres\.front\.peak_friction: = inf is not a finite number; give a plain",
+    "car_bias_front_percent.toml": r"brakes\.bias_front: = 60 looks like a percentage.*0\.6",
+    "car_pressure_in_pascals.toml": r"air\.pressure_hpa: = 101300 looks like pascals.*1013",
+    "car_ride_height_in_metres.toml":
+        r"suspension\.static_ride_height_front_mm: = 0\.06 looks like metres.*write 60",
+    "car_both_wheelbase_spellings.toml":
+        r'chassis\.wheelbase_mm: gives the same quantity as "wheelbase_m"; keep one',
+    "car_drive_unknown_choice.toml":
+        r'powertrain\.drive: = "rwd" is not one of rear, front, all',
+    "car_gear_ratios_text.toml":
+        r"powertrain\.gear_ratios: must be a non-empty list of numbers, e\.g\.",
+    "car_missing_convention.toml":
+        r'aero\.balance_convention: missing key .*"cg", "ground" .* or "restraint"',
+    "car_rev_limit_below_shift.toml":
+        r"powertrain\.rev_limit_rpm: rev_limit_rpm 6500 is below shift_rpm 7200; the limiter",
+    "car_section_is_value.toml": r'powertrain\.brakes: unknown key "powertrain\.brakes"',
+    "car_variant_base_missing.toml":
+        r'base: base car "no_such_base_car\.toml" not found .*give a path relative',
+    "car_variant_loop_a.toml":
+        r"base: variant chain loops \(car_variant_loop_a\.toml -> car_variant_loop_b\.toml -> "
+        r"car_variant_loop_a\.toml\); make one file the plain base",
+    "car_variant_loop_b.toml":
+        r"base: variant chain loops \(car_variant_loop_b\.toml -> car_variant_loop_a\.toml -> "
+        r"car_variant_loop_b\.toml\); make one file the plain base",
+    "car_variant_bad_override.toml":
+        r"car_variant_bad_override\.toml: chassis\.cg_height_m: = -0\.4 m is not physical",
+    "car_aero_map_missing.toml":
+        r'aero\.map_file: aero map "no_such_aero_map\.csv" not found .*give a path relative '
+        r"to the car file",
+    # track files ----------------------------------------------------------------------------
+    "track_empty.csv": r"the file is empty; give a header row",
+    "track_binary.csv": r"binary file, not CSV text; export the track as CSV",
+    "track_not_utf8.csv": r"not UTF-8 text; export the track as CSV \(UTF-8\)",
+    "track_semicolon_delimiter.csv": LINE + r"the header uses semicolons .*; use commas",
+    "track_tab_delimiter.csv": LINE + r"the header uses tabs .*; use commas",
+    "track_missing_header.csv": LINE + r"the first row is numbers, not a header; add a header",
+    "track_unknown_columns.csv":
+        LINE + r"header needs columns x_m,y_m or lat_deg,lon_deg \(unknown: east, north\)",
+    "track_header_only.csv": r"the header has no rows of points below it; add one row",
+    "track_text_in_numeric_column.csv":
+        r"line 20: column x_m = \"12\.5 m\" is not a number; write a plain number",
+    "track_nan_value.csv": r"line 26: column x_m = nan is not a finite number; give a value",
+    "track_inf_value.csv": r"line 33: column y_m = inf is not a finite number; give a value",
+    "track_ragged_row.csv": r"line 43: 3 values but the header has 2 columns; give one value",
+    "track_two_points.csv": r"only 2 distinct point\(s\); give at least 10 distinct points",
+    "track_duplicate_points.csv": r"only 3 distinct point\(s\); give at least 10 distinct",
+    "track_zigzag.csv": r"step sideways by about .* m .*: the trace zig-zags; give the points "
+                        r"in driving order",
+    "track_doubles_back.csv":
+        r"radius .* m at \d+ m along the track .*zig-zags or crosses itself; check the points",
+    "track_1km_jump.csv": r"line 44: jump of 1000 m from the previous point .*fill the gap",
+    "track_bank_in_radians.csv": r"bank_deg: .*looks like radians; multiply by 57\.2958",
+    "track_bank_beyond_60deg.csv": r"line 15: bank_deg = 75 is beyond ±60 deg; give the bank",
+    "track_elevation_in_mm.csv":
+        LINE + r"z_m changes by .*grade .* above 35 %.*check the elevation unit \(metres\)",
+    "track_lat_lon_swapped.csv":
+        LINE + r"lat_deg = -120 is outside -90\.\.90; check the column order",
+    "track_closed_with_gap.csv":
+        r"closed track but its ends are 500 m apart; mark it open \(# closed: false / --open\)",
+    "track_bad_closed_flag.csv": r'# closed: "maybe" is not true or false; write true or false',
+    "track_sectors_not_rising.csv": r"sectors_m: sector starts .* must increase",
+    "track_negative_width.csv": r"line 12: width_m = -12 must be > 0",
+    "track_duplicate_column.csv": LINE + r"a column name appears twice in the header; keep one",
+    # aero maps ------------------------------------------------------------------------------
+    "aeromap_ragged_grid.csv":
+        r"grid: grid is not complete: 41 of 7 x 6 = 42 nodes given; missing front 10 mm with "
+        r"rear 40 mm",
+    "aeromap_duplicate_node.csv":
+        LINE + r"duplicate node \(front 8 mm, rear 60 mm\), first given on line \d+; keep one",
+    "aeromap_missing_column.csv": LINE + r'missing column "drag_area_m2"; the header needs',
+    "aeromap_no_convention.csv":
+        r'convention: missing "# convention: cg\|ground\|restraint" line before the header',
+    "aeromap_misspelt_metadata.csv":
+        LINE + r'unknown metadata "# conventon:"; did you mean "convention"',
+    "aeromap_ride_heights_in_metres.csv":
+        r"ride_height_front_mm: .*look like metres, but the column is in mm; multiply by 1000",
+    "aeromap_single_rear_ride_height.csv":
+        r"ride_height_rear_mm: .*has 1 distinct value\(s\); the map needs at least 2 per axis",
+    "aeromap_text_cell.csv":
+        LINE + r'front_downforce_area_m2 = "n/a" is not a number; give a number',
+    "aeromap_negative_drag.csv": LINE + r"drag_area_m2 = -1\.\d+ is negative; drag area is >= 0",
+    # tunnel readings ------------------------------------------------------------------------
+    "tunnel_missing_column.csv":
+        LINE + r'missing column "drag_n"; the header needs front_n, rear_n, drag_n',
+    "tunnel_misspelt_column.csv": LINE + r'unknown column "frnt_n"; did you mean "front_n"',
+    "tunnel_negative_drag.csv":
+        LINE + r"drag_n = -\d+\.?\d* is negative; drag is positive rearward",
+    "tunnel_negative_speed.csv": LINE + r"speed_kph = -100 is negative; .*speed >= 0",
+    "tunnel_decimal_comma.csv": r"line 4: has 8 values but the header has 7 columns",
+    "tunnel_semicolon_delimiter.csv":
+        LINE + r'missing column "front_n"; the header needs front_n, rear_n, drag_n',
+    "tunnel_empty.csv": r"has no header line; give columns front_n, rear_n, drag_n",
+    "tunnel_binary.csv": r"cannot be read as UTF-8 CSV text",
+    # targets --------------------------------------------------------------------------------
+    "targets_unknown_quantity.toml":
+        r'target\[1\]\.quantity: unknown quantity "aero_balanse_front"; did you mean '
+        r'"aero_balance_front"',
+    "targets_unknown_condition.toml":
+        r'target\[1\]\.condition: unknown condition "maximum"; did you mean "max"',
+    "targets_syntax_error.toml": r"not valid TOML \(.*line 3",
+    "targets_empty.toml": r"target: no targets; add at least one \[\[target\]\] table",
+}
+
+CORPUS = sorted(p.name for p in BAD.iterdir() if p.is_file())
+
+
+def _has(command: str) -> bool:
+    return command in main.commands
+
+
+def _targets_ok() -> bool:
+    return _has("check") and importlib.util.find_spec("lapbalance.targets") is not None
+
+
+def _runs(name: str, tmp: Path) -> list[tuple[str, list[str]]]:
+    """(label, argv) for every registered command that reads this kind of file."""
+    bad = str(BAD / name)
+    car, track = str(GOOD_CAR), str(GOOD_TRACK)
+    targets = tmp / "targets.toml"
+    targets.write_text(GOOD_TARGETS, encoding="utf-8")
+    kind = name.split("_", 1)[0]
+    runs: list[tuple[str, list[str]]] = []
+    if kind == "aeromap":
+        # read through a variant of the mapped demo car that points at the bad map
+        variant = tmp / "mapped_variant.toml"
+        variant.write_text(f'base = "{MAPPED_CAR.as_posix()}"\nname = "bad map variant"\n\n'
+                           f'[aero]\nmap_file = "{(BAD / name).as_posix()}"\n',
+                           encoding="utf-8")
+        kind, bad = "car", str(variant)
+    if kind == "car":
+        runs += [("car", ["car", bad]), ("lap", ["lap", bad, track]),
+                 ("tunnel", ["tunnel", str(GOOD_READINGS), "--car", bad])]
+        if _targets_ok():
+            runs.append(("check", ["check", bad, track, str(targets)]))
+        if _has("report"):
+            runs.append(("report", ["report", bad, track, "--out", str(tmp / "r.html")]))
+            runs.append(("report-variant", ["report", car, track, "--variant", bad,
+                                            "--out", str(tmp / "r.html")]))
+        if _has("compare"):
+            runs.append(("compare-base", ["compare", bad, car, "--track", track]))
+            runs.append(("compare-variant", ["compare", car, bad, "--track", track]))
+        if _has("sweep"):
+            runs.append(("sweep", ["sweep", bad, track, "--vary",
+                                   "aero.drag_area_m2=0.8:0.9:2"]))
+    elif kind == "track":
+        runs += [("track", ["track", bad]), ("lap", ["lap", car, bad])]
+        if _targets_ok():
+            runs.append(("check", ["check", car, bad, str(targets)]))
+        if _has("report"):
+            runs.append(("report", ["report", car, bad, "--out", str(tmp / "r.html")]))
+        if _has("compare"):
+            runs.append(("compare", ["compare", car, str(GOOD_VARIANT), "--track", bad]))
+        if _has("sweep"):
+            runs.append(("sweep", ["sweep", car, bad, "--vary", "aero.drag_area_m2=0.8:0.9:2"]))
+    elif kind == "tunnel":
+        runs.append(("tunnel", ["tunnel", bad, "--car", car]))
+        runs.append(("tunnel-out", ["tunnel", bad, "--car", car, "--out",
+                                    str(tmp / "corrected.csv")]))
+    elif kind == "targets":
+        if _targets_ok():
+            runs.append(("check", ["check", car, track, bad]))
+    return runs
+
+
+def test_corpus_is_large_and_every_file_has_an_expectation():
+    assert len(CORPUS) >= 40
+    assert set(CORPUS) == set(EXPECT), (set(CORPUS) ^ set(EXPECT))
+    kinds = {n.split("_", 1)[0] for n in CORPUS}
+    assert kinds == {"car", "track", "aeromap", "tunnel", "targets"}
+
+
+@pytest.mark.parametrize("name", CORPUS)
+def test_bad_file_gives_one_clear_line(name, tmp_path):
+    if name.startswith("targets_"):
+        pytest.importorskip("lapbalance.targets")
+    runs = _runs(name, tmp_path)
+    if not runs:
+        pytest.skip("no registered command reads this kind of file yet")
+    runner = CliRunner()
+    pattern = re.compile(EXPECT[name])
+    for label, argv in runs:
+        res = runner.invoke(main, argv)
+        where = f"{label}: {' '.join(argv)}\n{res.output}"
+        assert res.exit_code == 2, where
+        assert "Traceback" not in res.output, where
+        msg = res.stderr.strip()
+        assert "\n" not in msg, where
+        assert msg.startswith("lapbalance: "), where
+        assert res.output.strip() == msg, where  # nothing else printed
+        assert name in msg, where
+        assert pattern.search(msg), f"{where}\nexpected /{EXPECT[name]}/"
+        # nothing was written for a failed run
+        assert not (tmp_path / "corrected.csv").exists()
+        assert not (tmp_path / "r.html").exists()
+
+
+@pytest.mark.parametrize("name", [n for n in CORPUS if n.startswith(("car_", "track_"))])
+def test_library_loaders_raise_input_error_naming_the_file(name):
+    path = BAD / name
+    loader = load_car if name.startswith("car_") else load_track
+    with pytest.raises(InputError) as err:
+        loader(path)
+    assert err.value.source is not None
+    assert name in err.value.one_line()
+    assert re.search(EXPECT[name], err.value.one_line())
+
+
+def test_folder_given_as_car_file_is_a_usage_error():
+    res = CliRunner().invoke(main, ["car", str(ROOT / "examples")])
+    assert res.exit_code == 2
+    assert "Traceback" not in res.output
+    assert "is a directory" in res.output
+
+
+@pytest.mark.parametrize("argv, pattern", [
+    (["lap", str(GOOD_CAR), "tracks/skarhelm_climb.csv", "--start-speed-kph", "-5"],
+     r"start_speed_kph: = -5 km/h must be a finite speed >= 0"),
+    (["lap", str(GOOD_CAR), "tracks/skarhelm_climb.csv", "--start-speed-kph", "nan"],
+     r"start_speed_kph: = nan km/h must be a finite speed >= 0"),
+    (["lap", str(GOOD_CAR), str(GOOD_TRACK), "--step-m", "nan"],
+     r"--step-m: = nan must be between 0 and 50 m"),
+    (["track", str(GOOD_TRACK), "--step-m", "1e9"],
+     r"--step-m: = 1000000000.0 must be between 0 and 50 m"),
+    (["lap", str(GOOD_CAR), str(GOOD_TRACK), "--set", "chassis.mass=1000"],
+     r'--set: chassis\.mass: unknown key "chassis\.mass"; did you mean "mass_kg"'),
+    (["lap", str(GOOD_CAR), str(GOOD_TRACK), "--set", "nonsense"],
+     r'--set: "nonsense" is not section\.key=value'),
+    (["lap", str(GOOD_CAR), str(GOOD_TRACK), "--set",
+      "powertrain.torque_curve_nm=[0, 0, 0, 0, 0, 0, 0, 0]"],
+     r"powertrain\.torque_curve_nm: the engine gives no drive force .*give the engine's"),
+    (["car", "no_such_car.toml"], r"no_such_car\.toml: file not found; check the path"),
+    (["track", "no_such_track.csv"], r"no_such_track\.csv: file not found; check the path"),
+])
+def test_bad_options_give_one_clear_line(argv, pattern, monkeypatch):
+    monkeypatch.chdir(ROOT)
+    res = CliRunner().invoke(main, argv)
+    assert res.exit_code == 2, res.output
+    msg = res.stderr.strip()
+    assert "\n" not in msg and msg.startswith("lapbalance: "), res.output
+    assert re.search(pattern, msg), msg
