@@ -416,10 +416,12 @@ def _channels(car: Car, track, v, vlim, res, time) -> dict[str, np.ndarray]:
     ch["balance_index"] = res[:, K.O_UR] - res[:, K.O_UF]
     claf, clar, cda = res[:, K.O_CLAF], res[:, K.O_CLAR], res[:, K.O_CDA]
     tot = claf + clar
-    with np.errstate(invalid="ignore", divide="ignore"):
-        ch["aero_balance_front"] = np.where(tot != 0, claf / tot, np.nan)
-        shift = cda * car.chassis.cg_height / car.chassis.wheelbase
-        ch["aero_balance_front_ground"] = np.where(tot != 0, (claf - shift) / tot, np.nan)
+    shift = cda * car.chassis.cg_height / car.chassis.wheelbase
+    defined = np.abs(tot) > 1e-9  # no downforce: the split is undefined (NaN)
+    ch["aero_balance_front"] = np.divide(claf, tot, out=np.full_like(tot, np.nan),
+                                         where=defined)
+    ch["aero_balance_front_ground"] = np.divide(claf - shift, tot, out=np.full_like(tot, np.nan),
+                                                where=defined)
     ch["ride_height_front_mm"] = res[:, K.O_RHF] * 1e3
     ch["ride_height_rear_mm"] = res[:, K.O_RHR] * 1e3
     with np.errstate(invalid="ignore"):
