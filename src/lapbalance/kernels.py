@@ -349,7 +349,7 @@ def state(v, kappa, grade, bank, f_drive, f_brake, p, mx, my, mt, out):
     return st
 
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
 def state_control(v, kappa, grade, bank, F, p, mx, my, mt, out):
     """:func:`state` with one signed control force F [N] (>= 0 drive, < 0 brake)."""
     if F >= 0.0:
@@ -357,7 +357,7 @@ def state_control(v, kappa, grade, bank, F, p, mx, my, mt, out):
     return state(v, kappa, grade, bank, 0.0, -F, p, mx, my, mt, out)
 
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
 def max_usage(out):
     u = out[O_UF]
     if out[O_UR] > u:
@@ -427,7 +427,7 @@ def overrun_force(v, p, gears):
     return p[P_OVERRUN] * gears[g] * p[P_FINAL] / p[P_RW]
 
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
 def _resistance_nomap(v, kappa, grade, bank, p):
     """Drag + rolling resistance + grade force [N] without an aero map (independent of the
     control force, since the total normal load does not depend on it)."""
@@ -440,7 +440,7 @@ def _resistance_nomap(v, kappa, grade, bank, p):
     return f
 
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
 def ax_of_control(v, kappa, grade, bank, F, p, mx, my, mt, out):
     """Longitudinal acceleration [m/s²] at control F [N] (a closed form without a map)."""
     if p[P_USEMAP] == 0.0:
@@ -449,7 +449,7 @@ def ax_of_control(v, kappa, grade, bank, F, p, mx, my, mt, out):
     return out[O_AX]
 
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
 def steady_control(v, kappa, grade, bank, p, mx, my, mt, out):
     """Control force [N] holding speed (a_x = 0); ``out`` holds that state."""
     if p[P_USEMAP] != 0.0:
@@ -472,7 +472,7 @@ def _feasible_at(v, kappa, grade, bank, F, p, mx, my, mt, out):
     return st == 0 and max_usage(out) <= 1.0
 
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
 def _g_control(v, kappa, grade, bank, F, p, mx, my, mt, out):
     """Usage excess max(u_f, u_r) - 1 at control F [N]; BIG when an axle unloads."""
     st = state_control(v, kappa, grade, bank, F, p, mx, my, mt, out)
@@ -481,7 +481,7 @@ def _g_control(v, kappa, grade, bank, F, p, mx, my, mt, out):
     return max_usage(out) - 1.0
 
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
 def _g_speed(v, kappa, grade, bank, p, mx, my, mt, out):
     """Usage excess at steady speed v [m/s]; BIG when an axle unloads or the car rolls."""
     steady_control(v, kappa, grade, bank, p, mx, my, mt, out)
@@ -851,67 +851,79 @@ def final_pass(v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm, tnm
     """
     n = v.shape[0]
     res = np.zeros((n, NOUT + NCH))
-    for i in prange(n):
+    nchunks = 8 if n > 400 else 1
+    size = (n + nchunks - 1) // nchunks
+    for ch in prange(nchunks):
         out = np.empty(NOUT)
         tmp = np.empty(NOUT)
-        vi = v[i]
-        if i < n - 1:
-            a_req = (v[i + 1] ** 2 - vi * vi) / (2.0 * ds)
-        elif not math.isnan(closed_tail):
-            a_req = (closed_tail ** 2 - vi * vi) / (2.0 * ds)
-        else:
-            a_req = (vi * vi - v[i - 1] ** 2) / (2.0 * ds) if n > 1 else 0.0
-        F = control_for_ax(vi, kappa[i], grade[i], bank[i], a_req, p, mx, my, mt, out)
-        feng = engine_force(vi, p, gears, trpm, tnm)
-        if F > feng:
-            F = feng
-            state_control(vi, kappa[i], grade[i], bank[i], F, p, mx, my, mt, out)
-        if out[O_STATUS] != 0.0 or max_usage(out) > 1.0:
-            fs = steady_control(vi, kappa[i], grade[i], bank[i], p, mx, my, mt, tmp)
-            if tmp[O_STATUS] == 0.0 and max_usage(tmp) <= 1.0:
-                F = largest_feasible_control(vi, kappa[i], grade[i], bank[i], fs, F, p, mx, my,
-                                             mt, tmp, ftol)
-            state_control(vi, kappa[i], grade[i], bank[i], F, p, mx, my, mt, out)
-        for k in range(NOUT):
-            res[i, k] = out[k]
-        g, rpm = gear_and_rpm(vi, p, gears)
-        c = NOUT
-        res[i, c + 0] = g + 1
-        res[i, c + 1] = rpm
-        res[i, c + 2] = F if F > 0.0 else 0.0  # drive force
-        res[i, c + 3] = -F if F < 0.0 else 0.0  # brake force
-        res[i, c + 4] = feng
-        lim = LIM_NONE
-        uf = out[O_UF]
-        ur = out[O_UR]
-        if uf >= 0.998 or ur >= 0.998:
-            lim = LIM_FRONT if uf >= ur else LIM_REAR
-        elif F > 0.0 and F >= feng * (1.0 - 1e-6):
-            lim = LIM_REV if rpm >= p[P_REVLIM] * (1.0 - 1e-3) else LIM_ENGINE
-        elif vi >= vcap * (1.0 - 1e-6):
-            lim = LIM_SPEEDCAP
-        res[i, c + 5] = lim
-        # lift-off: same speed and curvature, drive replaced by engine overrun
-        holds = F > 0.0 and abs(out[O_AY]) >= ay_liftoff
-        res[i, c + 6] = 1.0 if holds else 0.0
-        fo = overrun_force(vi, p, gears)
-        res[i, c + 7] = fo
-        if holds:
-            b_on = ur - uf
-            state(vi, kappa[i], grade[i], bank[i], -fo, 0.0, p, mx, my, mt, tmp)
-            res[i, c + 8] = (tmp[O_UR] - tmp[O_UF]) - b_on  # dB
-            res[i, c + 9] = tmp[O_FZF] - out[O_FZF]  # front-load shift
-            res[i, c + 10] = tmp[O_UF]
-            res[i, c + 11] = tmp[O_UR]
-            res[i, c + 12] = tmp[O_AX]
-            res[i, c + 13] = tmp[O_STATUS]
-            state(vi, kappa[i], grade[i], bank[i], 0.0, 0.0, p, mx, my, mt, tmp)
-            res[i, c + 14] = (tmp[O_UR] - tmp[O_UF]) - b_on
-            res[i, c + 15] = tmp[O_FZF] - out[O_FZF]
-            res[i, c + 16] = tmp[O_UF]
-            res[i, c + 17] = tmp[O_UR]
-            res[i, c + 18] = tmp[O_AX]
-        else:
-            for k in range(8, 19):
-                res[i, c + k] = math.nan
+        for i in range(ch * size, min(n, (ch + 1) * size)):
+            _final_step(i, v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm, tnm,
+                        mx, my, mt, ftol, ay_liftoff, res, out, tmp)
     return res
+
+
+@njit(cache=True)
+def _final_step(i, v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm, tnm, mx, my,
+                mt, ftol, ay_liftoff, res, out, tmp):
+    """One step of :func:`final_pass` (fills row ``i`` of ``res``)."""
+    n = v.shape[0]
+    vi = v[i]
+    if i < n - 1:
+        a_req = (v[i + 1] ** 2 - vi * vi) / (2.0 * ds)
+    elif not math.isnan(closed_tail):
+        a_req = (closed_tail ** 2 - vi * vi) / (2.0 * ds)
+    else:
+        a_req = (vi * vi - v[i - 1] ** 2) / (2.0 * ds) if n > 1 else 0.0
+    F = control_for_ax(vi, kappa[i], grade[i], bank[i], a_req, p, mx, my, mt, out)
+    feng = engine_force(vi, p, gears, trpm, tnm)
+    if F > feng:
+        F = feng
+        state_control(vi, kappa[i], grade[i], bank[i], F, p, mx, my, mt, out)
+    if out[O_STATUS] != 0.0 or max_usage(out) > 1.0:
+        fs = steady_control(vi, kappa[i], grade[i], bank[i], p, mx, my, mt, tmp)
+        if tmp[O_STATUS] == 0.0 and max_usage(tmp) <= 1.0:
+            F = largest_feasible_control(vi, kappa[i], grade[i], bank[i], fs, F, p, mx, my,
+                                         mt, tmp, ftol)
+        state_control(vi, kappa[i], grade[i], bank[i], F, p, mx, my, mt, out)
+    for k in range(NOUT):
+        res[i, k] = out[k]
+    g, rpm = gear_and_rpm(vi, p, gears)
+    c = NOUT
+    res[i, c + 0] = g + 1
+    res[i, c + 1] = rpm
+    res[i, c + 2] = F if F > 0.0 else 0.0  # drive force
+    res[i, c + 3] = -F if F < 0.0 else 0.0  # brake force
+    res[i, c + 4] = feng
+    lim = LIM_NONE
+    uf = out[O_UF]
+    ur = out[O_UR]
+    if uf >= 0.998 or ur >= 0.998:
+        lim = LIM_FRONT if uf >= ur else LIM_REAR
+    elif F > 0.0 and F >= feng * (1.0 - 1e-6):
+        lim = LIM_REV if rpm >= p[P_REVLIM] * (1.0 - 1e-3) else LIM_ENGINE
+    elif vi >= vcap * (1.0 - 1e-6):
+        lim = LIM_SPEEDCAP
+    res[i, c + 5] = lim
+    # lift-off: same speed and curvature, drive replaced by engine overrun
+    holds = F > 0.0 and abs(out[O_AY]) >= ay_liftoff
+    res[i, c + 6] = 1.0 if holds else 0.0
+    fo = overrun_force(vi, p, gears)
+    res[i, c + 7] = fo
+    if holds:
+        b_on = ur - uf
+        state(vi, kappa[i], grade[i], bank[i], -fo, 0.0, p, mx, my, mt, tmp)
+        res[i, c + 8] = (tmp[O_UR] - tmp[O_UF]) - b_on  # dB
+        res[i, c + 9] = tmp[O_FZF] - out[O_FZF]  # front-load shift
+        res[i, c + 10] = tmp[O_UF]
+        res[i, c + 11] = tmp[O_UR]
+        res[i, c + 12] = tmp[O_AX]
+        res[i, c + 13] = tmp[O_STATUS]
+        state(vi, kappa[i], grade[i], bank[i], 0.0, 0.0, p, mx, my, mt, tmp)
+        res[i, c + 14] = (tmp[O_UR] - tmp[O_UF]) - b_on
+        res[i, c + 15] = tmp[O_FZF] - out[O_FZF]
+        res[i, c + 16] = tmp[O_UF]
+        res[i, c + 17] = tmp[O_UR]
+        res[i, c + 18] = tmp[O_AX]
+    else:
+        for k in range(8, 19):
+            res[i, c + k] = math.nan
