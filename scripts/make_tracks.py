@@ -138,7 +138,7 @@ def write_csv(path, name, closed, cols, sectors=None, note=""):
                   for a, c in zip(arrays, cols, strict=True)]
     fmt = {"lat_deg": "{:.8f}", "lon_deg": "{:.8f}"}
     for row in zip(*arrays, strict=True):
-        lines.append(",".join(fmt.get(c, "{:.3f}").format(v)
+        lines.append(",".join(fmt.get(c, "{:.4f}").format(v)  # 0.1 mm: no curvature ripple
                               for c, v in zip(cols, row, strict=True)))
     Path(path).write_text("\n".join(lines) + "\n")
 
