@@ -76,3 +76,12 @@ def test_magic_formula_peak_option_maps_to_linear_law():
     # at 4500 N: mu = 1.5 - 0.15 * 0.5 = 1.425
     cap = tyre.tyre_capacity(4500.0, t.mu_lateral, t.k_lateral, t.reference_load)
     assert cap == pytest.approx(1.425 * 4500.0)
+
+
+@given(fz=st.floats(-100, 1e5), k=st.floats(0, 0.9), fz0=st.floats(500, 1e4))
+def test_precomputed_load_factor_equals_capacity_law(fz, k, fz0):
+    # Source: algebraic identity mu0 Fz (1 - k (Fz - Fz0)/Fz0) = mu0 Fz ((1 + k) - (k/Fz0) Fz);
+    # the solver's division-free form must match the documented law to rounding.
+    peak = tyre.peak_load(k, fz0)
+    fast = 1.5 * tyre.load_factor(fz, 1.0 + k, k / fz0, peak)
+    assert fast == pytest.approx(tyre.tyre_capacity(fz, 1.5, k, fz0), rel=1e-12, abs=1e-9)

@@ -20,7 +20,7 @@ import numpy as np
 from numba import njit, prange
 
 from lapbalance.loads import axle_loads, road_accelerations
-from lapbalance.tyre import axle_capacity, usage
+from lapbalance.tyre import load_factor, usage
 
 G = 9.80665
 
@@ -66,7 +66,10 @@ P_HEAVEF = 37  # N/m
 P_HEAVER = 38
 P_RHF0 = 39  # m
 P_RHR0 = 40
-P_NPARAM = 41
+# precomputed tyre constants per axle: 1 + k, k / Fz0, peak load (lateral; longitudinal)
+P_TYF = 41  # front: 1+ky, ky/fz0, fz_peak_y, 1+kx, kx/fz0, fz_peak_x
+P_TYR = 47  # rear: same layout
+P_NPARAM = 53
 
 # ---- state output indices -----------------------------------------------------------------
 O_AX = 0
@@ -265,10 +268,27 @@ def _state_once(v, kappa, grade, bank, f_drive, f_brake, p, claf, clar, cda, out
         out[O_UR] = BIG
         out[O_STATUS] = status
         return status
-    cxf = axle_capacity(res[9], res[10], p[P_MUXF], p[P_KXF], p[P_FZ0F])
-    cyf = axle_capacity(res[9], res[10], p[P_MUYF], p[P_KYF], p[P_FZ0F])
-    cxr = axle_capacity(res[11], res[12], p[P_MUXR], p[P_KXR], p[P_FZ0R])
-    cyr = axle_capacity(res[11], res[12], p[P_MUYR], p[P_KYR], p[P_FZ0R])
+    # axle capacities: sum of the two tyres (tyre.tyre_capacity with constants precomputed)
+    t = P_TYF
+    gyf = (load_factor(res[9], p[t], p[t + 1], p[t + 2])
+           + load_factor(res[10], p[t], p[t + 1], p[t + 2]))
+    if p[P_KXF] == p[P_KYF]:
+        gxf = gyf
+    else:
+        gxf = (load_factor(res[9], p[t + 3], p[t + 4], p[t + 5])
+               + load_factor(res[10], p[t + 3], p[t + 4], p[t + 5]))
+    t = P_TYR
+    gyr = (load_factor(res[11], p[t], p[t + 1], p[t + 2])
+           + load_factor(res[12], p[t], p[t + 1], p[t + 2]))
+    if p[P_KXR] == p[P_KYR]:
+        gxr = gyr
+    else:
+        gxr = (load_factor(res[11], p[t + 3], p[t + 4], p[t + 5])
+               + load_factor(res[12], p[t + 3], p[t + 4], p[t + 5]))
+    cxf = p[P_MUXF] * gxf
+    cyf = p[P_MUYF] * gyf
+    cxr = p[P_MUXR] * gxr
+    cyr = p[P_MUYR] * gyr
     out[O_CAPXF] = cxf
     out[O_CAPYF] = cyf
     out[O_CAPXR] = cxr

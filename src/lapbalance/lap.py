@@ -206,6 +206,11 @@ def car_parameters(car: Car) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.nda
         p[base + 2] = t.mu_lateral
         p[base + 3] = t.k_lateral
         p[base + 4] = t.reference_load
+    for base, t in ((_k.P_TYF, ty.front), (_k.P_TYR, ty.rear)):
+        for off, k in ((0, t.k_lateral), (3, t.k_longitudinal)):
+            p[base + off] = 1.0 + k
+            p[base + off + 1] = k / t.reference_load
+            p[base + off + 2] = (1.0 + k) * t.reference_load / (2.0 * k) if k > 0 else math.inf
     p[_k.P_DRIVEF] = pt.front_drive_share
     p[_k.P_BIASF] = car.brakes.bias_front
     p[_k.P_ETA] = pt.efficiency

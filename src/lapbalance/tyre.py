@@ -68,6 +68,20 @@ def tyre_capacity(fz, mu0, k, fz0):
 
 
 @njit(cache=True)
+def load_factor(fz, one_plus_k, k_over_fz0, fz_peak):
+    """mu(Fz)·Fz / mu0 [N] with the constants of :func:`tyre_capacity` precomputed.
+
+    ``one_plus_k = 1 + k``, ``k_over_fz0 = k / Fz0`` [1/N], ``fz_peak`` [N] (inf when k = 0);
+    the same law without divisions, for the solver's hot loop.
+    """
+    if fz <= 0.0:
+        return 0.0
+    if fz > fz_peak:
+        fz = fz_peak
+    return fz * (one_plus_k - k_over_fz0 * fz)
+
+
+@njit(cache=True)
 def friction_coefficient(fz, mu0, k, fz0):
     """Effective friction coefficient capacity/Fz [-] at load ``fz`` [N]."""
     if fz <= 0.0:
