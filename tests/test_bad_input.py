@@ -165,9 +165,10 @@ EXPECT: dict[str, str] = {
     "tunnel_negative_drag.csv":
         LINE + r"drag_n = -\d+\.?\d* is negative; drag is positive rearward",
     "tunnel_negative_speed.csv": LINE + r"speed_kph = -100 is negative; .*speed >= 0",
-    "tunnel_decimal_comma.csv": r"line 4: has 8 values but the header has 7 columns",
+    "tunnel_decimal_comma.csv":
+        r"line 4: has 8 values but the header has 7 columns; write decimals with a point",
     "tunnel_semicolon_delimiter.csv":
-        LINE + r'missing column "front_n"; the header needs front_n, rear_n, drag_n',
+        LINE + r"the header is separated by semicolons; save the file with commas",
     "tunnel_empty.csv": r"has no header line; give columns front_n, rear_n, drag_n",
     "tunnel_binary.csv": r"cannot be read as UTF-8 CSV text",
     # targets --------------------------------------------------------------------------------

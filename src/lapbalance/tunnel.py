@@ -357,7 +357,14 @@ def read_readings(path: str | Path) -> ReadingsTable:
         raise InputError("has no header line; give columns " + ", ".join(REQUIRED_COLUMNS),
                          path)
     hline, header = records[0]
+    if "\x00" in text:
+        raise InputError("is a binary file, not a CSV of readings", path)
     names = [c.strip() for c in next(csv.reader(io.StringIO(header)))]
+    if len(names) == 1:
+        for sep, what in ((";", "semicolons"), ("\t", "tabs")):
+            if sep in header:
+                raise InputError(f"the header is separated by {what}; save the file with "
+                                 "commas (front_n,rear_n,drag_n)", path, f"line {hline}")
     known = REQUIRED_COLUMNS + OPTIONAL_COLUMNS
     for n in names:
         if n not in known and closest(n, known):
@@ -378,8 +385,10 @@ def read_readings(path: str | Path) -> ReadingsTable:
     for r, (lineno, line) in enumerate(rows):
         cells = [c.strip() for c in next(csv.reader(io.StringIO(line)))]
         if len(cells) != len(names):
+            hint = ("; write decimals with a point (0.5, not 0,5)"
+                    if len(cells) > len(names) else "; fill in the missing values")
             raise InputError(f"has {len(cells)} values but the header has {len(names)} "
-                             "columns", path, f"line {lineno}")
+                             f"columns{hint}", path, f"line {lineno}")
         for n, cell in zip(names, cells, strict=True):
             if n in extra:
                 extra[n].append(cell)
