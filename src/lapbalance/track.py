@@ -54,7 +54,6 @@ from pathlib import Path
 import numpy as np
 from scipy.interpolate import CubicSpline
 from scipy.ndimage import gaussian_filter1d
-from scipy.signal import savgol_filter
 
 from lapbalance.errors import InputError
 
@@ -740,6 +739,8 @@ def _interp(a, u, ut, period):
 
 def _presmooth(x, y, u, closed, gap, spacing, w1):
     """Resample the polyline uniformly and smooth it with a local cubic (Savitzky-Golay)."""
+    from scipy.signal import savgol_filter  # only noisy traces need it (a slow import)
+
     total = u[-1] + (gap if closed else 0.0)
     m = max(int(round(total / spacing)), MIN_POINTS)
     if closed:
