@@ -15,7 +15,7 @@ from __future__ import annotations
 
 import math
 import tomllib
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
@@ -396,9 +396,9 @@ class Car:
 
     def with_overrides(self, overrides: list[str] | dict[str, Any]) -> Car:
         """A new Car with ``section.key=value`` overrides applied to the merged raw file."""
-        raw, prov = _deep_copy(self.raw), {}
-        apply_overrides(raw, prov, overrides)
-        return build_car(raw, prov, self.source, Path(self.source).parent if self.source else
+        raw = _deep_copy(self.raw)
+        apply_overrides(raw, overrides)
+        return build_car(raw, self.source, Path(self.source).parent if self.source else
                          Path("."))
 
 
@@ -514,7 +514,7 @@ def _parse_override(text: str) -> tuple[str, str, Any]:
     return sec, key, value
 
 
-def apply_overrides(flat_or_raw: dict, prov: dict, overrides) -> None:
+def apply_overrides(flat_or_raw: dict, overrides) -> None:
     """Apply ``section.key=value`` overrides (strings) or a {dotted: value} mapping in place.
 
     ``flat_or_raw`` is the flat mapping {(section, key): (value, source)}.
@@ -560,8 +560,8 @@ def load_car(path: str | Path, overrides=None) -> Car:
     """
     path = Path(path)
     flat = _load_flat(path)
-    apply_overrides(flat, {}, overrides)
-    return build_car(flat, {}, str(path), path.parent)
+    apply_overrides(flat, overrides)
+    return build_car(flat, str(path), path.parent)
 
 
 def car_from_dict(raw: dict, source: str = "<dict>", folder: str | Path = ".",
@@ -581,8 +581,8 @@ def car_from_dict(raw: dict, source: str = "<dict>", folder: str | Path = ".",
     """
     flat = _flatten(raw, source)
     flat.pop(("", "base"), None)
-    apply_overrides(flat, {}, overrides)
-    return build_car(flat, {}, source, Path(folder))
+    apply_overrides(flat, overrides)
+    return build_car(flat, source, Path(folder))
 
 
 # --------------------------------------------------------------------------------------------
@@ -706,7 +706,7 @@ def _check_structure(flat: dict, src: str) -> None:
             raise InputError(f"missing section [{sec}]", src, sec)
 
 
-def build_car(flat: dict, prov: dict, source: str, folder: Path) -> Car:
+def build_car(flat: dict, source: str, folder: Path) -> Car:
     """Validate the flat key mapping and build a :class:`Car` (SI)."""
     src = source or "car"
     _check_structure(flat, src)
@@ -1015,8 +1015,3 @@ def schema_markdown() -> str:
             lines.append(f"| {names} | {k.unit} | {rng} | {dflt} | {k.doc} |")
         lines.append("")
     return "\n".join(lines)
-
-
-def replace_chassis(car: Car, **kw) -> Car:
-    """A copy of ``car`` with chassis fields replaced (SI); aero split is not re-derived."""
-    return replace(car, chassis=replace(car.chassis, **kw))

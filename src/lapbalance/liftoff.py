@@ -28,7 +28,6 @@ Corners where no step qualifies (no cornering on throttle) get ``not-checked``.
 
 from __future__ import annotations
 
-import math
 from dataclasses import asdict, dataclass, replace
 
 import numpy as np
@@ -187,7 +186,3 @@ def first_principles_front_shift(drag: float, rolling_resistance: float, overrun
     -(D + R + F_o), so the front gains (D + R + F_o)·h/L.
     """
     return (drag + rolling_resistance + overrun) * cg_height / wheelbase
-
-
-def _finite(x) -> bool:
-    return x is not None and math.isfinite(x)

@@ -223,9 +223,9 @@ def sweep_points(vary: Mapping[str, Sequence[float]], method: str = "grid",
 
 def _car_at(raw: dict, source: str, point: Mapping[str, float]) -> Car:
     flat = copy.deepcopy(raw)
-    apply_overrides(flat, {}, dict(point))
+    apply_overrides(flat, dict(point))
     folder = Path(source).parent if source and not source.startswith("<") else Path(".")
-    return build_car(flat, {}, source, folder)
+    return build_car(flat, source, folder)
 
 
 def run_point(raw: dict, source: str, track, point: Mapping[str, float],
