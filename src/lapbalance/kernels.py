@@ -516,7 +516,7 @@ def _refine(kind, x_ok, g_ok, x_bad, g_bad, v, kappa, grade, bank, p, mx, my, mt
 
     ``kind`` 0: x is the speed [m/s] (steady state); 1: x is the control force [N] at speed
     ``v``. Requires g(x_ok) <= 0 < g(x_bad); returns a feasible x within ``xtol`` of the
-    boundary (or whose usage is within 1e-7 of 1). Falls back to bisection while g(x_bad) is
+    boundary (or whose usage is within 2e-5 of 1). Falls back to bisection while g(x_bad) is
     not finite (an unloaded axle).
     """
     lo = x_ok
@@ -527,7 +527,7 @@ def _refine(kind, x_ok, g_ok, x_bad, g_bad, v, kappa, grade, bank, p, mx, my, mt
     whi = g_bad
     last = 0
     for _ in range(80):
-        if abs(hi - lo) <= xtol or glo > -1e-7:
+        if abs(hi - lo) <= xtol or glo > -2e-5:  # usage within 2e-5 of its limit
             break
         w = hi - lo
         if ghi >= 0.5 * BIG:
@@ -727,7 +727,24 @@ def _search_from_hint(v, kappa, grade, bank, f_ok, g_ok, hint, direction, f_stop
             (f_stop - hint) * direction > 0.0:
         g_h = _g_control(v, kappa, grade, bank, hint, p, mx, my, mt, out)
         if g_h > 0.0:
-            return _refine(1, f_ok, g_ok, hint, g_h, v, kappa, grade, bank, p, mx, my, mt,
+            # the boundary is just short of the hint: step back from it (doubling) to a
+            # feasible point, so the bracket is narrow
+            f_bad = hint
+            g_bad = g_h
+            step = 0.005 * m * G
+            while True:
+                f_try = f_bad - direction * step
+                if (f_try - f_ok) * direction <= 0.0:
+                    break  # back at f_ok: use the wide bracket
+                g_try = _g_control(v, kappa, grade, bank, f_try, p, mx, my, mt, out)
+                if g_try <= 0.0:
+                    f_ok = f_try
+                    g_ok = g_try
+                    break
+                f_bad = f_try
+                g_bad = g_try
+                step *= 2.0
+            return _refine(1, f_ok, g_ok, f_bad, g_bad, v, kappa, grade, bank, p, mx, my, mt,
                            out, ftol)
         f_ok = hint
         g_ok = g_h
