@@ -144,35 +144,8 @@ def _bracket_index(grid, x):
 
 @njit(cache=True)
 def map_lookup(mx, my, mt, k, x, y):
-    """Clamped bilinear lookup of table ``mt[k]`` on grid (mx, my) at (x, y)."""
-    i, tx = _bracket_index(mx, x)
-    j, ty = _bracket_index(my, y)
-    t = mt[k]
-    return ((1 - tx) * (1 - ty) * t[i, j] + tx * (1 - ty) * t[i + 1, j]
-            + (1 - tx) * ty * t[i, j + 1] + tx * ty * t[i + 1, j + 1])
-
-
-@njit(cache=True)
-def map_lookup_grad(mx, my, mt, k, x, y):
-    """Clamped bilinear lookup of ``mt[k]`` and its partial derivatives (zero outside)."""
-    i, tx = _bracket_index(mx, x)
-    j, ty = _bracket_index(my, y)
-    t = mt[k]
-    t00 = t[i, j]
-    t10 = t[i + 1, j]
-    t01 = t[i, j + 1]
-    t11 = t[i + 1, j + 1]
-    val = (1 - tx) * (1 - ty) * t00 + tx * (1 - ty) * t10 + (1 - tx) * ty * t01 + tx * ty * t11
-    nx = mx.shape[0]
-    ny = my.shape[0]
-    dx = 0.0
-    dy = 0.0
-    if mx[0] < x < mx[nx - 1]:
-        dx = ((1 - ty) * (t10 - t00) + ty * (t11 - t01)) / (mx[i + 1] - mx[i])
-    if my[0] < y < my[ny - 1]:
-        dy = ((1 - tx) * (t01 - t00) + tx * (t11 - t10)) / (my[j + 1] - my[j])
-    return val, dx, dy
-
+    """Clamped bilinear lookup of table ``mt[k]`` (0 front, 1 rear, 2 drag area) at (x, y)."""
+    return map_eval(mx, my, mt, x, y)[k]
 
 @njit(cache=True)
 def map_eval(mx, my, mt, x, y):
@@ -478,18 +451,6 @@ def steady_control(v, kappa, grade, bank, p, mx, my, mt, out):
     F = _resistance_nomap(v, kappa, grade, bank, p)
     state_control(v, kappa, grade, bank, F, p, mx, my, mt, out)
     return F
-
-
-@njit(cache=True)
-def feasible_steady(v, kappa, grade, bank, p, mx, my, mt, out):
-    steady_control(v, kappa, grade, bank, p, mx, my, mt, out)
-    return out[O_STATUS] == 0.0 and max_usage(out) <= 1.0
-
-
-@njit(cache=True)
-def _feasible_at(v, kappa, grade, bank, F, p, mx, my, mt, out):
-    st = state_control(v, kappa, grade, bank, F, p, mx, my, mt, out)
-    return st == 0 and max_usage(out) <= 1.0
 
 
 @njit(cache=True, inline="always")
