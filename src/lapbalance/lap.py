@@ -22,6 +22,7 @@ from lapbalance.errors import InfeasibleError, InputError, PhysicsWarning
 from lapbalance.kernels import corner_limits as _corner_limits_kernel
 from lapbalance.kernels import final_pass as _final_pass_kernel
 from lapbalance.kernels import speed_passes as _speed_passes_kernel
+from lapbalance.liftoff import corner_mask as _corner_mask
 from lapbalance.units import G0
 
 #: Names of the ``limit`` channel codes.
@@ -445,13 +446,6 @@ def _channels(car: Car, track, v, vlim, res, time) -> dict[str, np.ndarray]:
     ch["coast_usage_front"] = res[:, c + 16]
     ch["coast_usage_rear"] = res[:, c + 17]
     return ch
-
-
-def _corner_mask(track, cr) -> np.ndarray:
-    d = np.asarray(track.distance_m)
-    if cr.exit_m >= cr.entry_m:
-        return (d >= cr.entry_m) & (d <= cr.exit_m)
-    return (d >= cr.entry_m) | (d <= cr.exit_m)
 
 
 def _sectors(track, time, lap_time) -> list[dict]:

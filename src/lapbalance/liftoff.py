@@ -87,6 +87,15 @@ def _step_record(ch, i: int) -> dict:
     }
 
 
+def corner_mask(track, cr) -> np.ndarray:
+    """Steps of ``track`` inside corner ``cr`` (entry to exit; a corner over the start line of
+    a closed track wraps), as a boolean array over ``track.distance_m``."""
+    d = np.asarray(track.distance_m)
+    if cr.exit_m >= cr.entry_m:
+        return (d >= cr.entry_m) & (d <= cr.exit_m)
+    return (d >= cr.entry_m) | (d <= cr.exit_m)
+
+
 def verdict(worst_shift: dict | None, worst_rear: dict | None,
             thresholds: Thresholds = DEFAULT_THRESHOLDS) -> tuple[str, str]:
     """Verdict and a one-line reason from a corner's two worst steps (see module doc)."""
@@ -147,8 +156,6 @@ def corner_assessment(ch: dict[str, np.ndarray], mask: np.ndarray,
 def assess(result, thresholds: Thresholds = DEFAULT_THRESHOLDS):
     """Return a copy of a :class:`~lapbalance.lap.LapResult` whose corner rows carry the
     lift-off assessment (see :func:`corner_assessment`)."""
-    from lapbalance.lap import _corner_mask
-
     rows = []
     corners = {c.id: c for c in getattr(result.track, "corners", ()) or ()}
     for row in result.corners:
@@ -156,7 +163,7 @@ def assess(result, thresholds: Thresholds = DEFAULT_THRESHOLDS):
         if cr is None:
             rows.append(row)
             continue
-        mask = _corner_mask(result.track, cr)
+        mask = corner_mask(result.track, cr)
         rows.append({**row, **corner_assessment(result.channels, mask, thresholds)})
     settings = {**result.settings, "liftoff_thresholds": asdict(thresholds)}
     return replace(result, corners=rows, settings=settings)
