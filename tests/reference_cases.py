@@ -427,7 +427,8 @@ _case("aero.restrained.cpm", T_AERO, f"C_PM (ground reference), measured ({_WX})
 _case("aero.restrained.cpm_drag_free", T_AERO, f"C_PM, drag-free ({_WX})", _SW, 0.183333, "-",
       _T, lambda: _aero().j1594_total_and_moment(-1.316667, -1.683333)[1], rel=1e-5)
 _case("aero.restrained.q", T_AERO, "dynamic pressure at 50 m/s, ρ = 1.225 kg/m³",
-      "definition of dynamic pressure, q = ½ ρ v²", 1531.25, "Pa", _T, lambda: _aero().dynamic_pressure(1.225, 50.0), rel=1e-12)
+      "definition of dynamic pressure, q = ½ ρ v²", 1531.25, "Pa", _T,
+      lambda: _aero().dynamic_pressure(1.225, 50.0), rel=1e-12)
 _case("aero.restrained.couple", T_AERO, f"drag couple per axle D h_D/WB at 50 m/s ({_WX})",
       _SW, 267.9688, "N", _T,
       lambda: _aero().restraint_shift(_aero().dynamic_pressure(1.225, 50.0) * A * CD, HD, WB,
@@ -548,7 +549,8 @@ _case("handling.static_weight.front", T_HANDLING, "static front axle weight W_f"
 _case("handling.static_weight.rear", T_HANDLING, "static rear axle weight W_r", _GH, 5431.3754,
       "N", _T, lambda: _handling().static_axle_weights(gillespie_ch6_car())[1], rel=1e-7)
 _case("handling.understeer_gradient", T_HANDLING,
-      "understeer gradient K = W_f/C_αf − W_r/C_αr", _GH, 0.700475, "deg/g", _T, gillespie_k, rel=1e-5)
+      "understeer gradient K = W_f/C_αf − W_r/C_αr", _GH, 0.700475, "deg/g", _T, gillespie_k,
+      rel=1e-5)
 _T = "test_handling.py::test_gillespie_ch6_steer_and_characteristic_speed"
 _case("handling.ackermann", T_HANDLING, "Ackermann steer 57.3 L/R at R = 100 m", _GH, 1.489690,
       "deg", _T, lambda: _handling().steer_angle(2.6, 100.0, 0.0, 0.5 * G0), rel=1e-6)

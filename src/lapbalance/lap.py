@@ -1,7 +1,7 @@
 """The lap solver: car and track in, :class:`LapResult` out.
 
 validate -> build float arrays -> call the numba kernels (:mod:`lapbalance.kernels`) -> wrap.
-Method (DESIGN.md): corner-speed limit per step (steady speed, both axles u <= 1), forward pass
+Method (docs/method.md): corner-speed limit per step (steady speed, both axles u<=1), forward pass
 with the largest drive force the powertrain gives and both axles carry, backward pass with the
 fixed brake bias, speed = minimum of the three; closed laps start at the slowest point so the
 lap closes on itself. Each step's a_x comes from the force balance applied there.
@@ -36,11 +36,11 @@ LIMIT_NAMES = {
 }
 
 #: Default lateral-acceleration threshold for the lift-off check [m/s²]: ISO 9816 starts its
-#: power-off-in-a-turn runs from a steady turn at about 4 m/s² (REFERENCES.md §6b).
+#: power-off-in-a-turn runs from a steady turn at about 4 m/s² (ISO 9816:2018).
 LIFTOFF_AY_THRESHOLD = 4.0
 
 #: Speed tolerance of the corner-limit search [m/s] and force tolerance of the
-#: longitudinal searches [N] (DESIGN.md: stop at a tolerance that matters).
+#: longitudinal searches [N] (docs/method.md, the solver: stop at a tolerance that matters).
 SPEED_TOL = 1e-3
 FORCE_TOL = 0.5
 

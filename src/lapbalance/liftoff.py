@@ -6,7 +6,7 @@ at the same speed and curvature with the drive force replaced by the engine's ov
 the current gear (and once more coasting, with no engine braking). This module groups those
 results per corner and gives a verdict.
 
-Why it matters (DESIGN.md): at steady speed part of the rear axle's load comes from the tyres'
+Why it matters (docs/method.md): at steady speed part of the rear axle's load comes from the tyres'
 own tractive force (X·h/L). Lifting off removes it at once and engine braking adds more, so
 load moves forward, the rear loses capacity and the balance index ``B = u_r - u_f`` rises.
 
@@ -49,7 +49,7 @@ class Thresholds:
         peak friction).
     watch_shift : float
         Balance-index shift flagged at high speed [-]. Default 0.10 (engineering judgement;
-        the first-principles example in REFERENCES.md §6c moves 0.068 at 30 m/s).
+        the worked example in docs/validation.md, lift-off check, moves 0.068 at 30 m/s).
     watch_speed_kph : float
         Speed from which a large shift counts [km/h]. Default 150 (engineering judgement:
         fast corners, where a step-out is hardest to catch).
