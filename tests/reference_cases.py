@@ -845,6 +845,28 @@ TOPICS = (T_LOADS, T_TYRE, T_AIR, T_AERO, T_HANDLING, T_LAP, T_LIFTOFF)
 
 VALIDATION_DOC = "docs/validation.md"
 
+#: Checks against outside references that assert over many generated inputs (or on files
+#: another change is rewriting) and so have no single expected value to tabulate.
+NOT_TABULATED = (
+    "These tests also check the tool against outside references, over many inputs at once, "
+    "so they have no single row here:",
+    "",
+    "* `test_track.py`: curvature of circles at many radii, spacings and roundings against "
+    "1/R, straight lines and constant grades (analytic geometry); latitude/longitude import "
+    "against geodesic distances from geographiclib (Karney, *J. Geodesy* 87, 2013).",
+    "* `test_aero.py`, `test_tunnel.py`: the ground → CG shift `D h_cg/L` for any drag height, "
+    "the CFD force-and-moment route against the SAE J1594 route, and the lever rule for the "
+    "centre of pressure, as hypothesis properties.",
+    "* `test_loads.py`: vertical-force and roll-moment balance of every load decomposition "
+    "(hypothesis), the wheel-lift hand-over and the rollover limit.",
+    "* `test_aeromap.py`, `test_lap_aeromap.py`: interpolating-spline and bilinear identities "
+    "(Dierckx 1993) and the heave equation of the ride heights.",
+    "* `test_robustness.py`: the rev-limited top speed from gearing kinematics, the rigid-car "
+    "wheel-lift threshold `a_y = g t/(2h)` (Gillespie 1992, ch. 9) and the force balance of "
+    "every step of random laps.",
+    "* `test_kernels.py`: compiled kernels against the same code run by Python.",
+)
+
 
 def _fmt_expected(x: float) -> str:
     return f"{x:.10g}"
@@ -895,6 +917,7 @@ def render_markdown(cases: dict[str, Case] | None = None) -> str:
                 f"{_fmt_value(c, v)} | {_cell(c.unit)} | {c.tolerance_text()} | "
                 f"`{c.test}` | {mark} |")
         lines.append("")
+    lines += ["## Checks kept in their own test files", "", *NOT_TABULATED, ""]
     return "\n".join(lines)
 
 
