@@ -138,7 +138,6 @@ T_LOADS = "Axle loads and load transfer"
 @cache
 def gillespie_state():
     """steady_state of the Gillespie ch. 1 example car (drag at 0.6 m, grade 2°, a_x 2)."""
-
     # a zero-lift aero split with the drag reacted at its own height = drag acting at 0.6 m
     car = make_car(aero={"drag_area_m2": 0.7, "balance_convention": "restraint",
                          "restraint_height_m": 0.6})
@@ -162,7 +161,6 @@ _case("loads.gillespie.rear", T_LOADS, f"rear axle load ({_G1})",
 @cache
 def braking_breakdown_state():
     """steady_state of the braking-with-downforce example (a_x = -10 m/s², v = 50 m/s)."""
-
     car = make_car(chassis={"mass_kg": 1300.0, "wheelbase_m": 2.7,
                             "front_weight_fraction": 1.3 / 2.7, "cg_height_m": 0.45},
                    aero={"downforce_area_m2": 2.0, "balance_front": 0.4, "drag_area_m2": 0.85,
@@ -185,7 +183,6 @@ _case("loads.braking.sum", T_LOADS, f"sum of the axle loads = m g + q ClA ({_B1}
 
 def longitudinal_transfer(a_g):
     """(ground transfer, front-load loss) [N] for m = 1200 kg, h = 0.5, L = 2.6 at a_g [g]."""
-
     m, h, L = 1200.0, 0.5, 2.6
     x = m * a_g * G0  # level road, no drag: ground force = m a
     sf, sr, gt, fzf, fzr = loads.longitudinal_loads(m, G0, 1.2, 1.4, L, h, 0.0, 0.0, x)
@@ -202,7 +199,6 @@ for _a, _e in ((1.0, 2263.0731), (0.5, 1131.5365)):
 
 @cache
 def milliken_lateral():
-
     return loads.lateral_transfer(1200.0, G0, 1.2, 1.4, 2.6, 0.5, 1.60, 1.58, 0.05, 0.10, 0.6,
                                   1e6, 1e6)
 
@@ -270,7 +266,6 @@ for _fy, _e in ((0.0, 6000.0), (3250.0, 5196.1524), (5000.0, 3833.8264), (6500.0
 
 @cache
 def magic_formula_peak_car_tyre():
-
     mf = make_car(tyres={"front": {"peak_friction": None, "model": "magic-formula-peak",
                                    "pdy1": 1.5, "pdy2": -0.15, "pdx1": 1.6, "pdx2": -0.08,
                                    "reference_load_n": 3000.0}})
@@ -497,7 +492,6 @@ for _j, _name in enumerate(("inertial", "cg_convention", "ground_convention")):
 @cache
 def tunnel_worked_example():
     """(measured front [N], corrected reading) of the wheel-restrained worked example."""
-
     f, r, d = tunnel.reading_from_axle_coefficients(-1.20, -1.80, 1.00, 1.5, 1.225, 50.0)
     # with the CG at the drag height the corrected split is the drag-free split
     res = tunnel.correct_reading(f, r, d, cg_height=0.35, wheelbase=3.0, drag_height=0.35)
@@ -534,7 +528,6 @@ def _handling():
 
 @cache
 def gillespie_ch6_car():
-
     return make_car()
 
 
@@ -601,13 +594,11 @@ T_LAP = "Lap solver against closed forms"
 
 
 def _simulate(car, track, **kw):
-
     return simulate_lap(car, track, assess_liftoff=False, **kw)
 
 
 @cache
 def circle_lap(mu, radius):
-
     car = make_car(tyres={"front": {"peak_friction": mu}, "rear": {"peak_friction": mu}})
     return _simulate(car, circle(radius))
 
@@ -629,7 +620,6 @@ for _mu, _r in ((1.0, 50.0), (1.4, 120.0)):
 
 @cache
 def downforce_circle_lap(mu, m, radius, cla):
-
     car = make_car(chassis={"mass_kg": m},
                    aero={"downforce_area_m2": cla, "balance_front": 1.4 / 2.6},
                    tyres={"front": {"peak_friction": mu}, "rear": {"peak_friction": mu}},
@@ -689,14 +679,12 @@ _case("lap.power_straight", T_LAP,
 
 
 def top_speed_root():
-
     P, m, cda, crr, rho = 400e3, 1300.0, 0.85, 0.015, 1.225
     return brentq(lambda v: (0.5 * rho * cda * v * v + crr * m * G0) * v - P, 1.0, 500.0)
 
 
 @cache
 def top_speed_lap():
-
     car = make_car(chassis={"mass_kg": 1300.0}, aero={"drag_area_m2": 0.85},
                    tyres={"rolling_resistance": 0.015, "front": {"peak_friction": 3.0},
                           "rear": {"peak_friction": 3.0}},
@@ -721,14 +709,12 @@ BRAKE_BIAS = ((0.55, 8.81025), (0.60, 9.46849), (0.65, 10.23303), (0.70, 11.1318
 
 @cache
 def brake_limits(bias):
-
     return limits_at(make_car(brakes={"bias_front": bias}), 30.0)
 
 
 @cache
 def brake_zone(bias):
     """(lap, mask of the straight braking zone) into a 15 m hairpin."""
-
     car = make_car(brakes={"bias_front": bias})
     k = np.concatenate([np.zeros(600), np.full(80, 1 / 15.0), np.zeros(50)])
     r = _simulate(car, analytic_track(k), start_speed_kph=150.0)
@@ -761,7 +747,6 @@ _case("lap.rwd_traction", T_LAP,
 @cache
 def meeting_point():
     """(a_acc, v_meet closed form, peak of the lap trace) between two slow corners."""
-
     car = make_car(powertrain={"power_kw": 3000.0, "max_tractive_force_n": 1200.0 * 5.0},
                    tyres={"front": {"peak_friction": 3.0}, "rear": {"peak_friction": 3.0}},
                    brakes={"bias_front": 0.6})
@@ -800,7 +785,6 @@ T_LIFTOFF = "Lift-off check"
 @cache
 def rwd_liftoff_states():
     """(on, off) states of the rear-drive lift-off worked example at 30 m/s on R = 100 m."""
-
     # drag and rolling resistance booked as one resistance acting at the ground with no drag
     # pitch: a zero-lift aero split in the ground convention, drag area giving 527.091 N
     resist = 385.875 + 141.216
