@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import ast
 import importlib.util
+import re
 from pathlib import Path
 
 import pytest
@@ -100,3 +101,19 @@ def test_every_case_names_its_source_and_unit():
     for c in CASES.values():
         assert len(c.source) > 10 and c.unit and c.quantity, c.id
         assert "§" not in c.source, c.id  # a published source, not a section pointer
+
+
+def _anchor(heading: str) -> str:
+    """GitHub-style anchor of a Markdown heading."""
+    keep = "".join(ch for ch in heading.strip().lower() if ch.isalnum() or ch in " -_")
+    return keep.replace(" ", "-")
+
+
+def test_method_doc_contents_links_resolve():
+    # Every in-page link of docs/method.md's contents points at one of its headings.
+    text = (ROOT / "docs" / "method.md").read_text(encoding="utf-8")
+    anchors = {_anchor(h) for h in re.findall(r"^#+ (.+)$", text, flags=re.M)}
+    links = re.findall(r"\]\(#([^)]+)\)", text)
+    assert len(links) >= 20
+    missing = [a for a in links if a not in anchors]
+    assert not missing, f"docs/method.md links to missing sections: {missing}"
