@@ -7,7 +7,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from lapbalance import aero
-from lapbalance.units import G0
+from tests.reference_cases import (A, CASES, CD, HD, WB, drag_free_split, ids,
+                                   three_bookkeepings)
 
 # --------------------------------------------------------------------------------------------
 # SAE J1594 round trip
@@ -19,12 +20,9 @@ from lapbalance.units import G0
 # split C_LF = C_L/2 + C_PM, C_LR = C_L/2 - C_PM to the printed 7 decimals (the last digit of
 # C_LF differs by 1 from rounding, hence abs 2e-7).
 def test_j1594_split_matches_public_data_set_row():
-    clf, clr = aero.j1594_axle_lift_coefficients(0.4542572, 0.4432577)
-    assert clf == pytest.approx(0.6703862, abs=2e-7)
-    assert clr == pytest.approx(-0.2161291, abs=2e-7)
-    cl, cpm = aero.j1594_total_and_moment(0.6703862, -0.2161291)
-    assert cl == pytest.approx(0.4542572, abs=2e-7)
-    assert cpm == pytest.approx(0.4432577, abs=2e-7)
+    # values in tests/reference_cases.py ("aero.j1594_dataset")
+    for cid in ids("aero.j1594_dataset"):
+        assert CASES[cid].value() == CASES[cid].approx(), cid
 
 
 # Source: SAE J1594 (2010) split is linear and invertible; round trip holds to rounding.
@@ -79,9 +77,8 @@ def test_ground_to_cg_shift_is_d_hcg_over_l_for_any_drag_height(f1, s1, f2, s2, 
 # D (h_cg - z)/L; z = h_cg needs no correction, z = 0 equals the ground convention.
 def test_restraint_shift_limits():
     assert aero.restraint_shift(1000.0, 0.4, 2.5, 0.4) == 0.0
-    assert aero.restraint_shift(1000.0, 0.4, 2.5, 0.0) == pytest.approx(160.0, rel=1e-12)
-    f, r = aero.to_cg_convention(500.0, 700.0, 1000.0, 0.4, 2.5, "restraint", 0.1)
-    assert (f, r) == (pytest.approx(620.0), pytest.approx(580.0))
+    for cid in ids("aero.restraint_shift"):  # 160 N; 620 / 580 N with z = 0.1 m
+        assert CASES[cid].value() == CASES[cid].approx(), cid
 
 
 def test_unknown_convention_raises():
@@ -99,36 +96,33 @@ def test_unknown_convention_raises():
 # C_LR = -1.683333, front share 40.0000 % -> 43.8889 %, C_PM 0.300000 -> 0.183333; at
 # v = 50 m/s, rho = 1.225: front downforce 2756.2500 N measured, 3024.2188 N drag-free,
 # drag couple 267.9688 N per axle. Printed to 6-7 figures (rel 1e-5).
-WB, HD, CD, A = 3.0, 0.35, 1.00, 1.5
+# (inputs WB, HD, CD, A and the values are in tests/reference_cases.py, "aero.restrained")
 
 
 @pytest.mark.parametrize("cg_height", [0.25, 0.30, 0.45])
 def test_restrained_balance_worked_example_drag_free_split(cg_height):
-    # measured ground-convention downforce coefficients (positive down)
-    front_cg, rear_cg = aero.to_cg_convention(1.20, 1.80, CD, cg_height, WB, "ground")
-    # vertical force alone (drag-free) = CG convention + C_D (h_D - h_cg)/L
-    d = CD * (HD - cg_height) / WB
-    assert -(front_cg + d) == pytest.approx(-1.316667, rel=1e-5)
-    assert -(rear_cg - d) == pytest.approx(-1.683333, rel=1e-5)
-    assert aero.balance(front_cg + d, rear_cg - d) == pytest.approx(0.438889, rel=1e-5)
-    assert aero.balance(1.20, 1.80) == pytest.approx(0.400000, rel=1e-6)
+    # the drag-free split does not depend on the CG height; the registry shows h_cg = 0.30 m
+    clf, clr, share, xcp = drag_free_split(cg_height)
+    assert clf == CASES["aero.restrained.clf_drag_free"].approx()
+    assert clr == CASES["aero.restrained.clr_drag_free"].approx()
+    assert share == CASES["aero.restrained.balance_drag_free"].approx()
     # the vertical centre of pressure sits at L * rear share behind the front axle
-    xcp = aero.vertical_centre_of_pressure(front_cg, rear_cg, CD, cg_height, HD, WB)
-    assert xcp == pytest.approx(WB * 1.683333 / 3.0, rel=1e-5)
+    assert xcp == CASES["aero.restrained.centre_of_pressure"].approx()
+    case = CASES["aero.restrained.balance_measured"]
+    assert case.value() == case.approx()
+    for cid in ("aero.restrained.clf_drag_free", "aero.restrained.clr_drag_free",
+                "aero.restrained.balance_drag_free", "aero.restrained.centre_of_pressure"):
+        assert CASES[cid].value() == CASES[cid].approx(), cid
 
 
 def test_restrained_balance_worked_example_moment_coefficient_and_forces():
-    cl, cpm = aero.j1594_total_and_moment(-1.20, -1.80)
-    assert cl == pytest.approx(-3.0, rel=1e-12)
-    assert cpm == pytest.approx(0.300000, rel=1e-6)
-    _, cpm_free = aero.j1594_total_and_moment(-1.316667, -1.683333)
-    assert cpm_free == pytest.approx(0.183333, rel=1e-5)
+    for cid in ("aero.restrained.cl", "aero.restrained.cpm", "aero.restrained.cpm_drag_free",
+                "aero.restrained.q", "aero.restrained.couple"):
+        assert CASES[cid].value() == CASES[cid].approx(), cid
     q = aero.dynamic_pressure(1.225, 50.0)
-    assert q == pytest.approx(1531.25, rel=1e-12)
     drag = q * A * CD
-    assert q * A * 1.20 == pytest.approx(2756.2500, rel=1e-7)
-    assert aero.restraint_shift(drag, HD, WB, 0.0) == pytest.approx(267.9688, rel=1e-6)
-    assert q * A * 1.20 + drag * HD / WB == pytest.approx(3024.2188, rel=1e-6)
+    assert q * A * 1.20 == CASES["tunnel.worked.front_measured"].approx()
+    assert q * A * 1.20 + drag * HD / WB == CASES["tunnel.worked.front_corrected"].approx()
 
 
 # Source: same derivation, reverse case for the car of the per-component example (L = 2.7 m,
@@ -136,13 +130,9 @@ def test_restrained_balance_worked_example_moment_coefficient_and_forces():
 # wheel-restrained balance would show front C_LF·A = -0.674074 m², rear C_LR·A = -1.325926 m²,
 # apparent front share 33.7037 %. Printed to 6 figures.
 def test_wheel_restrained_reading_of_known_car():
-    L, h, ha, cda = 2.7, 0.45, 0.40, 0.85
     # drag-free split = split with the drag reacted at its own height (restraint at h_a)
-    f_cg, r_cg = aero.to_cg_convention(0.8, 1.2, cda, h, L, "restraint", ha)
-    f_g, r_g = aero.from_cg_convention(f_cg, r_cg, cda, h, L, "ground")
-    assert -f_g == pytest.approx(-0.674074, rel=1e-5)
-    assert -r_g == pytest.approx(-1.325926, rel=1e-5)
-    assert aero.balance(f_g, r_g) == pytest.approx(0.337037, rel=1e-5)
+    for cid in ids("aero.known_car_ground"):
+        assert CASES[cid].value() == CASES[cid].approx(), cid
 
 
 # --------------------------------------------------------------------------------------------
@@ -153,32 +143,15 @@ def test_wheel_restrained_reading_of_known_car():
 # kg, L = 2.7, front axle->CG 1.40, CG->rear axle 1.30, h = 0.45, h_a = 0.40, CdA = 0.85,
 # ClA = 2.0 with drag-free front share 0.40, v = 50 m/s, rho = 1.225, a_x = -10 m/s²:
 # front 9337.0791 N, rear 6474.0659 N, sum 15811.1450 N; net ground force -11698.4375 N.
-M, L1B, B1B, C1B, H1B, HA1B = 1300.0, 2.7, 1.40, 1.30, 0.45, 0.40
-CDA1B, CLA1B, AX1B = 0.85, 2.0, -10.0
-
-
 def test_axle_loads_three_bookkeepings_agree():
-    q = aero.dynamic_pressure(1.225, 50.0)
-    D = q * CDA1B
-    static_f, static_r = M * G0 * C1B / L1B, M * G0 * B1B / L1B
-    free_f, free_r = q * CLA1B * 0.40, q * CLA1B * 0.60
-    X = M * AX1B + D  # net longitudinal ground force
-    assert X == pytest.approx(-11698.4375, rel=1e-9)
-    # (A) drag-free split + inertial transfer + drag pitch D h_a / L
-    fa = static_f + free_f - M * AX1B * H1B / L1B - D * HA1B / L1B
-    ra = static_r + free_r + M * AX1B * H1B / L1B + D * HA1B / L1B
-    # (B) CG convention + ground-force transfer X h / L (DESIGN.md)
-    cf, cr = aero.to_cg_convention(free_f, free_r, D, H1B, L1B, "restraint", HA1B)
-    fb = static_f + cf - X * H1B / L1B
-    rb = static_r + cr + X * H1B / L1B
-    # (C) ground convention (wheel-restrained / J1594) + inertial transfer m a_x h / L
-    gf, gr = aero.from_cg_convention(cf, cr, D, H1B, L1B, "ground")
-    fc = static_f + gf - M * AX1B * H1B / L1B
-    rc = static_r + gr + M * AX1B * H1B / L1B
-    for f, r in ((fa, ra), (fb, rb), (fc, rc)):
-        assert f == pytest.approx(9337.0791, rel=1e-8)
-        assert r == pytest.approx(6474.0659, rel=1e-8)
-        assert f + r == pytest.approx(15811.1450, rel=1e-8)
+    # (A) drag-free split + inertial transfer m a_x h / L + drag pitch D h_a / L;
+    # (B) CG convention + ground-force transfer X h / L (docs/method.md, axle loads);
+    # (C) ground convention (wheel-restrained / J1594) + inertial transfer m a_x h / L.
+    # Computed in tests/reference_cases.py (three_bookkeepings), values "aero.bookkeeping".
+    for cid in ids("aero.bookkeeping"):
+        assert CASES[cid].value() == CASES[cid].approx(), cid
+    (a, b, c), _ = three_bookkeepings()
+    assert a == pytest.approx(b, rel=1e-12) and b == pytest.approx(c, rel=1e-12)
 
 
 # --------------------------------------------------------------------------------------------

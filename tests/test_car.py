@@ -16,6 +16,7 @@ from click.testing import CliRunner
 from lapbalance.car import load_car
 from lapbalance.cli import main
 from lapbalance.errors import InputError
+from tests.reference_cases import CASES
 
 ROOT = Path(__file__).resolve().parents[1]
 GT = ROOT / "examples" / "gt_coupe.toml"
@@ -245,7 +246,9 @@ def test_air_density_from_pressure_temperature_and_humidity(tmp_path):
                 "temperature_c = 20.0\npressure_hpa = 1013.25\nrelative_humidity_pct = 50.0\n")
     # Source: CIPM-2007 moist-air equation, Picard, Davis, Gläser, Fujii, Metrologia 45 (2008)
     # 149-155, evaluated at 101325 Pa, 20 °C, 50 % RH: rho = 1.19931 kg/m³.
-    assert load_car(p).air.density == pytest.approx(1.19931, abs=2e-5)
+    case = CASES["car_air.conditions"]
+    assert load_car(p).air.density == case.approx()
+    assert case.value() == case.approx()
 
 
 def test_air_density_from_altitude(tmp_path):
@@ -253,14 +256,18 @@ def test_air_density_from_altitude(tmp_path):
                 "relative_humidity_pct = 50.0\n", "altitude_m = 1000.0\n")
     # Source: ISO 2533:1975 standard atmosphere at 1000 m: rho = 1.11164 kg/m³ (geopotential
     # altitude) or 1.11166 (geometric); the tolerance covers both.
-    assert load_car(p).air.density == pytest.approx(1.11165, rel=1e-4)
+    case = CASES["car_air.altitude"]
+    assert load_car(p).air.density == case.approx()
+    assert case.value() == case.approx()
 
 
 def test_air_density_default_is_iso_sea_level(tmp_path):
     p = _edited(tmp_path, "temperature_c = 25.0\npressure_hpa = 1013.0\n"
                 "relative_humidity_pct = 50.0\n", "")
     # Source: ISO 2533:1975 sea-level density 1.225 kg/m³.
-    assert load_car(p).air.density == pytest.approx(1.225, rel=1e-5)
+    case = CASES["car_air.default"]
+    assert load_car(p).air.density == case.approx()
+    assert case.value() == case.approx()
 
 
 def test_air_density_and_conditions_together_is_an_error(tmp_path):

@@ -124,7 +124,7 @@ def test_corner_time_is_time_spent_from_entry_to_exit(base, track):
 
 
 # Source: aero balance in the CG convention is constant without an aero map
-# (DESIGN.md: F_Lf / (F_Lf + F_Lr), both scale with dynamic pressure).
+# (docs/method.md: F_Lf / (F_Lf + F_Lr), both scale with dynamic pressure).
 def test_balance_bands_and_empty_band(base, track):
     res = compare(base, [["aero.drag_area_m2=0.7"]], [track], speed_bands_kph=(150, 150))
     r0 = res.summary[0]

@@ -13,62 +13,53 @@ from lapbalance.car import load_car
 from lapbalance.lap import simulate_lap
 from lapbalance.units import G0
 from tests.helpers import analytic_track, make_car
+from tests.reference_cases import CASES, constant_radius_run_fit, gillespie_k, ids
 
 EXAMPLES = __import__("pathlib").Path(__file__).resolve().parents[1] / "examples"
 
-# Source: REFERENCES.md §6a, Gillespie, Fundamentals of Vehicle Dynamics (SAE 1992), ch. 6,
-# bicycle model: m = 1200 kg, b = 1.2 m (front axle to CG), c = 1.4 m, L = 2.6 m,
+# Source: Gillespie, Fundamentals of Vehicle Dynamics (SAE 1992), ch. 6, bicycle model,
+# evaluated for m = 1200 kg, b = 1.2 m (front axle to CG), c = 1.4 m, L = 2.6 m,
 # C_af = 2400 N/deg, C_ar = 2800 N/deg. The helper car has exactly this mass and geometry
-# (front weight fraction c/L = 1.4/2.6).
-C_AF, C_AR = 2400.0, 2800.0
+# (front weight fraction c/L = 1.4/2.6). Values in tests/reference_cases.py ("handling.*").
 
 
 def test_gillespie_ch6_understeer_gradient():
-    car = make_car()
-    # Source: Gillespie ch. 6 via REFERENCES.md §6a: W_f = 6336.6046 N, W_r = 5431.3754 N.
-    wf, wr = handling.static_axle_weights(car)
-    assert wf == pytest.approx(6336.6046, rel=1e-7)
-    assert wr == pytest.approx(5431.3754, rel=1e-7)
-    # Source: Gillespie ch. 6 via REFERENCES.md §6a: K = 0.700475 deg/g.
-    assert handling.understeer_gradient(car, C_AF, C_AR) == pytest.approx(0.700475, rel=1e-5)
+    # W_f = 6336.6046 N, W_r = 5431.3754 N, K = 0.700475 deg/g.
+    for cid in ids("handling.static_weight") + ["handling.understeer_gradient"]:
+        assert CASES[cid].value() == CASES[cid].approx(), cid
 
 
 def test_gillespie_ch6_steer_and_characteristic_speed():
-    K = handling.understeer_gradient(make_car(), C_AF, C_AR)
-    # Source: Gillespie ch. 6 via REFERENCES.md §6a: R = 100 m, a_y = 0.5 g: Ackermann angle
-    # 1.489690 deg, road-wheel steer 1.839928 deg.
-    assert handling.steer_angle(2.6, 100.0, 0.0, 0.5 * G0) == pytest.approx(1.489690, rel=1e-6)
-    assert handling.steer_angle(2.6, 100.0, K, 0.5 * G0) == pytest.approx(1.839928, rel=1e-6)
-    # Source: Gillespie ch. 6 via REFERENCES.md §6a: v_ch = 45.6680 m/s.
-    assert handling.characteristic_speed(2.6, K) == pytest.approx(45.6680, rel=1e-5)
+    # R = 100 m, a_y = 0.5 g: Ackermann angle 1.489690 deg, road-wheel steer 1.839928 deg;
+    # v_ch = 45.6680 m/s; critical speed sqrt(-57.3 L g / K) of an oversteering car: the same
+    # magnitude as the characteristic speed for K of opposite sign.
+    for cid in ("handling.ackermann", "handling.steer", "handling.characteristic_speed",
+                "handling.critical_speed"):
+        assert CASES[cid].value() == CASES[cid].approx(), cid
+    K = gillespie_k()
     assert handling.characteristic_speed(2.6, -K) is None
-    # Source: Gillespie ch. 6, critical speed sqrt(-57.3 L g / K) of an oversteering car: the
-    # same magnitude as the characteristic speed for K of opposite sign.
-    assert handling.critical_speed(2.6, -K) == pytest.approx(45.6680, rel=1e-5)
     assert handling.critical_speed(2.6, K) is None
 
 
 def test_constant_radius_run_steer_slope_is_the_gillespie_gradient():
-    # Source: Gillespie ch. 6 via REFERENCES.md §6a (K = 0.700475 deg/g, steer 1.839928 deg
-    # at R = 100 m and 0.5 g). The run takes the lateral demands from the solver's steady
-    # states, so this checks F_yf = m a_y b/L, F_yr = m a_y a/L inside the solver too.
-    run = handling.constant_radius_run(make_car(), 100.0, cornering_stiffness_front=C_AF,
-                                       cornering_stiffness_rear=C_AR)
-    slope, icpt = np.polyfit(run.ay_mps2 / G0, run.steer_deg, 1)
-    assert slope == pytest.approx(0.700475, rel=1e-5)
-    assert icpt == pytest.approx(1.489690, rel=1e-6)
-    assert np.interp(0.5 * G0, run.ay_mps2, run.steer_deg) == pytest.approx(1.839928,
-                                                                            rel=1e-6)
-    # ISO 4138 steps lateral acceleration by no more than 0.5 m/s² (REFERENCES.md §6a).
+    # Gillespie ch. 6 (K = 0.700475 deg/g, steer 1.839928 deg at R = 100 m and 0.5 g). The
+    # run takes the lateral demands from the solver's steady states, so this checks
+    # F_yf = m a_y b/L, F_yr = m a_y a/L inside the solver too.
+    for cid in ids("handling.run"):
+        if cid != "handling.run.limit_mu_g":
+            assert CASES[cid].value() == CASES[cid].approx(), cid
+    run = constant_radius_run_fit()[0]
+    # ISO 4138:2021 steps lateral acceleration by no more than 0.5 m/s².
     assert np.all(np.diff(run.ay_mps2) <= 0.5 + 1e-12)
 
 
 def test_constant_radius_limit_is_mu_g_without_aero_or_load_sensitivity():
     # Source: Coulomb friction and Newton's second law: with no aero, no drag, no rolling
     # resistance and load-independent friction, each axle's demand and capacity are both
-    # proportional to its static load, so both saturate at a_y = mu g (REFERENCES.md §9).
+    # proportional to its static load, so both saturate at a_y = mu g ("handling.run.limit_mu_g").
+    case = CASES["handling.run.limit_mu_g"]
+    assert case.value() == case.approx()
     run = handling.constant_radius_run(make_car(), 100.0)
-    assert run.limit_ay_mps2 == pytest.approx(1.4 * G0, rel=1e-4)
     assert run.steer_deg is None
     assert abs(run.limit_understeer_index) < 1e-3
     assert max(run.usage_front[-1], run.usage_rear[-1]) == pytest.approx(1.0, abs=1e-3)
@@ -77,8 +68,9 @@ def test_constant_radius_limit_is_mu_g_without_aero_or_load_sensitivity():
 @pytest.mark.parametrize(("mu_f", "mu_r", "axle", "sign"),
                          [(1.2, 1.4, "front", 1.0), (1.4, 1.2, "rear", -1.0)])
 def test_limit_understeer_index_sign_follows_the_weaker_axle(mu_f, mu_r, axle, sign):
-    # Source: definition (DESIGN.md): usage = demand / capacity; the axle with less friction
-    # saturates first, and u_f - u_r > 0 means the front does (understeer at the limit).
+    # Source: definition (docs/method.md, usage): usage = demand / capacity; the axle with
+    # less friction saturates first, and u_f - u_r > 0 means the front does (understeer at
+    # the limit).
     car = make_car(tyres={"front": {"peak_friction": mu_f}, "rear": {"peak_friction": mu_r}})
     run = handling.constant_radius_run(car, 100.0)
     assert run.limiting_axle == axle
@@ -144,7 +136,7 @@ def _gt_lap():
 
 
 def test_gt_coupe_curve_is_flat_at_its_input_balance():
-    # Source: DESIGN.md conventions table: without an aero map the CG-convention split is a
+    # Source: docs/method.md, aero conventions: without an aero map the CG-convention split is a
     # fixed fraction; the ground-convention reading is the car file's own input (0.38,
     # wheel-restrained balance), since front -= D h_cg / L scales with the same q.
     r = _gt_lap()
@@ -167,7 +159,7 @@ def test_gt_coupe_curve_is_flat_at_its_input_balance():
 @pytest.mark.parametrize(("b", "name"), [(0.05, "oversteer"), (-0.05, "understeer"),
                                          (0.01, "neutral"), (-0.02, "neutral")])
 def test_leaning_bands(b, name):
-    # Common practice: balance index > 0 means the rear is nearer its limit (DESIGN.md).
+    # Common practice: balance index > 0 means the rear is nearer its limit (docs/method.md).
     assert handling.leaning(b) == name
 
 

@@ -18,7 +18,8 @@ ALLOWED = {"math", "numpy", "numba", "__future__", "lapbalance.loads", "lapbalan
 
 @pytest.mark.parametrize("module", ["kernels.py", "loads.py", "tyre.py"])
 def test_kernel_modules_import_only_numeric_libraries(module):
-    # Common practice (STYLE.md): kernels import only math, numpy, numba (and each other).
+    # Common practice (DEVELOPERS.md, layers): kernels import only math, numpy, numba (and each
+    # other).
     tree = ast.parse((SRC / module).read_text())
     for node in ast.walk(tree):
         if isinstance(node, ast.Import):

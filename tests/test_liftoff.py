@@ -9,6 +9,7 @@ from lapbalance import liftoff
 from lapbalance.lap import simulate_lap
 from lapbalance.units import G0
 from tests.helpers import circle, make_car
+from tests.reference_cases import CASES, ids
 
 
 def _steady_circle_car(overrun_nm):
@@ -42,33 +43,16 @@ def test_liftoff_front_shift_equals_drag_plus_rolling_plus_overrun_times_h_over_
 
 
 def test_reference_rwd_liftoff_balance_change():
-    # Source: REFERENCES.md §6c worked example (quasi-static indicator built on ISO 9816's
-    # power-off-in-a-turn idea and the lift-off mechanism): m=1200, front axle to CG 1.2,
-    # L=2.6, h=0.5, v=30, R=100, mu=1.3, drag 385.875 N + rolling 141.216 N held by the rear,
-    # engine braking 800 N -> u_f 0.705957 -> 0.678625, u_r 0.709893 -> 0.750244,
-    # change in (u_r - u_f) = +0.067683. That example books drag and rolling resistance as one
-    # resistance acting at the ground with no drag pitch: here a zero-lift aero split measured
-    # in the ground convention, drag area giving 527.091 N at 30 m/s, and no rolling term.
-    resist = 385.875 + 141.216
-    cda = resist / (0.5 * 1.225 * 30.0 ** 2)
-    car = make_car(aero={"drag_area_m2": cda, "balance_convention": "ground",
-                         "downforce_area_m2": 0.0},
-                   tyres={"front": {"peak_friction": 1.3}, "rear": {"peak_friction": 1.3}},
-                   powertrain={"overrun_torque_nm": 800.0 * 0.3},
-                   suspension={"roll_centre_height_front_m": 0.0,
-                               "roll_centre_height_rear_m": 0.0})
-    from lapbalance.lap import evaluate_forces, steady_state
-
-    on = steady_state(car, 30.0, curvature=1 / 100.0)
-    assert on["uf"] == pytest.approx(0.705957, rel=1e-5)
-    assert on["ur"] == pytest.approx(0.709893, rel=1e-5)
-    off = evaluate_forces(car, 30.0, curvature=1 / 100.0, drive_n=-800.0)
-    assert off["ax"] == pytest.approx(-1.10591, rel=1e-5)
-    assert off["fzf"] == pytest.approx(6591.814, rel=1e-6)
-    assert off["uf"] == pytest.approx(0.678625, rel=1e-5)
-    assert off["ur"] == pytest.approx(0.750244, rel=1e-5)
-    shift = (off["ur"] - off["uf"]) - (on["ur"] - on["uf"])
-    assert shift == pytest.approx(0.067683, rel=1e-4)
+    # Source: worked example of the quasi-static lift-off indicator (Gillespie ch. 1 axle
+    # loads + friction ellipse, ISO 9816 power-off idea; docs/method.md, lift-off check):
+    # m=1200, front axle to CG 1.2, L=2.6, h=0.5, v=30, R=100, mu=1.3, drag 385.875 N +
+    # rolling 141.216 N held by the rear, engine braking 800 N -> u_f 0.705957 -> 0.678625,
+    # u_r 0.709893 -> 0.750244, change in (u_r - u_f) = +0.067683. That example books drag and
+    # rolling resistance as one resistance acting at the ground with no drag pitch: here a
+    # zero-lift aero split measured in the ground convention, drag area giving 527.091 N at
+    # 30 m/s, and no rolling term. Values and set-up in tests/reference_cases.py ("liftoff.rwd").
+    for cid in ids("liftoff.rwd"):
+        assert CASES[cid].value() == CASES[cid].approx(), cid
 
 
 def test_verdict_rules_follow_thresholds():

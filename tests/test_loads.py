@@ -8,64 +8,47 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from lapbalance import loads
-from lapbalance.lap import steady_state
 from lapbalance.units import G0
 from tests.helpers import make_car
+from tests.reference_cases import CASES, ids, longitudinal_transfer, milliken_lateral
 
 
 def test_gillespie_axle_load_equation_with_drag_grade_and_acceleration():
     # Source: Gillespie, Fundamentals of Vehicle Dynamics (SAE 1992) ch. 1, general axle-load
-    # equation; numbers recomputed in REFERENCES.md §1: m=1200, L=2.6, b=1.2 (front axle to
-    # CG), c=1.4, h=0.5, CdA=0.7, rho=1.225, v=40, drag height 0.6, a_x=2, grade 2 deg.
-    # -> W_f = 5633.9183 N, W_r = 6126.8930 N.
-    # Drag-free aero split with zero lift = a restraint at the drag's own height (0.6 m).
-    car = make_car(aero={"drag_area_m2": 0.7, "balance_convention": "restraint",
-                         "restraint_height_m": 0.6})
-    s = steady_state(car, 40.0, grade=math.radians(2.0), ax=2.0)
-    assert s["drag"] == pytest.approx(686.0, rel=1e-9)
-    assert s["fzf"] == pytest.approx(5633.9183, rel=1e-7)
-    assert s["fzr"] == pytest.approx(6126.8930, rel=1e-7)
+    # equation evaluated for m=1200, L=2.6, b=1.2 (front axle to CG), c=1.4, h=0.5, CdA=0.7,
+    # rho=1.225, v=40, drag height 0.6, a_x=2, grade 2 deg (values and inputs in
+    # tests/reference_cases.py, "loads.gillespie"). Drag-free aero split with zero lift = a
+    # restraint at the drag's own height (0.6 m).
+    for cid in ids("loads.gillespie"):
+        assert CASES[cid].value() == CASES[cid].approx(), cid
 
 
 def test_reference_breakdown_braking_with_downforce():
-    # Source: REFERENCES.md §1b (derived from Gillespie ch. 1 statics): m=1300, L=2.7, b=1.4,
-    # c=1.3, h=0.45, drag height 0.4, CdA=0.85, ClA=2.0 drag-free front share 0.4, v=50,
-    # rho=1.225, a_x=-10 -> front 9337.0791 N, rear 6474.0659 N, sum = m g + q ClA.
-    car = make_car(chassis={"mass_kg": 1300.0, "wheelbase_m": 2.7,
-                            "front_weight_fraction": 1.3 / 2.7, "cg_height_m": 0.45},
-                   aero={"downforce_area_m2": 2.0, "balance_front": 0.4, "drag_area_m2": 0.85,
-                         "balance_convention": "restraint", "restraint_height_m": 0.4})
-    s = steady_state(car, 50.0, ax=-10.0)
-    assert s["fzf"] == pytest.approx(9337.0791, rel=1e-7)
-    assert s["fzr"] == pytest.approx(6474.0659, rel=1e-7)
-    assert s["fzf"] + s["fzr"] == pytest.approx(15811.1450, rel=1e-7)
-    # parts: static 6138.2365 / 6610.4085 N (same source)
-    assert s["statf"] == pytest.approx(6138.2365, rel=1e-7)
-    assert s["statr"] == pytest.approx(6610.4085, rel=1e-7)
+    # Source: per-part breakdown derived from Gillespie ch. 1 statics (docs/method.md, axle
+    # loads): m=1300, L=2.7, b=1.4, c=1.3, h=0.45, drag height 0.4, CdA=0.85, ClA=2.0 drag-free
+    # front share 0.4, v=50, rho=1.225, a_x=-10; sum = m g + q ClA ("loads.braking").
+    for cid in ids("loads.braking"):
+        assert CASES[cid].value() == CASES[cid].approx(), cid
 
 
-@pytest.mark.parametrize("a_g, expected", [(1.0, 2263.0731), (0.5, 1131.5365)])
-def test_longitudinal_transfer_m_a_h_over_l(a_g, expected):
-    # Source: Gillespie ch. 1 (via bajatutor.net, REFERENCES.md §2a): dFz = m a h / L,
-    # m=1200, h=0.5, L=2.6.
-    m, h, L = 1200.0, 0.5, 2.6
-    x = m * a_g * G0  # level road, no drag: ground force = m a
-    sf, sr, gt, fzf, fzr = loads.longitudinal_loads(m, G0, 1.2, 1.4, L, h, 0.0, 0.0, x)
-    assert gt == pytest.approx(expected, rel=1e-7)
-    assert sf - fzf == pytest.approx(expected, rel=1e-7)
+@pytest.mark.parametrize("cid", ids("loads.longitudinal"))
+def test_longitudinal_transfer_m_a_h_over_l(cid):
+    # Source: Gillespie ch. 1: dFz = m a h / L, m=1200, h=0.5, L=2.6 ("loads.longitudinal").
+    case = CASES[cid]
+    gt, front_loss = longitudinal_transfer(1.0 if cid.endswith(".1g") else 0.5)
+    assert gt == case.value() == case.approx()
+    assert front_loss == case.approx()
 
 
 def test_milliken_lateral_transfer_per_axle():
     # Source: Milliken & Milliken, Race Car Vehicle Dynamics (SAE 1995) ch. 18 steady-state
-    # lateral transfer with roll-centre heights and roll-stiffness split; numbers from
-    # REFERENCES.md §2b: m=1200, a_y=1 g, tf=1.60, tr=1.58, h=0.5, z_f=0.05, z_r=0.10,
-    # K_f/(K_f+K_r)=0.6, front axle to CG 1.2, L=2.6 -> 2082.0272 N front, 1615.6623 N rear.
-    dff, dfr, lf, lr, status = loads.lateral_transfer(
-        1200.0, G0, 1.2, 1.4, 2.6, 0.5, 1.60, 1.58, 0.05, 0.10, 0.6, 1e6, 1e6)
-    assert dff == pytest.approx(2082.0272, rel=1e-7)
-    assert dfr == pytest.approx(1615.6623, rel=1e-7)
-    # Source: roll-moment balance (exact identity, same section): 5883.9900 N m.
-    assert 1.60 * dff + 1.58 * dfr == pytest.approx(5883.9900, rel=1e-7)
+    # lateral transfer with roll-centre heights and roll-stiffness split, evaluated for m=1200,
+    # a_y=1 g, tf=1.60, tr=1.58, h=0.5, z_f=0.05, z_r=0.10, K_f/(K_f+K_r)=0.6, front axle to
+    # CG 1.2, L=2.6; the roll-moment balance t_f dFz_f + t_r dFz_r = m a_y h is exact
+    # ("loads.lateral").
+    for cid in ids("loads.lateral"):
+        assert CASES[cid].value() == CASES[cid].approx(), cid
+    *_, lf, lr, status = milliken_lateral()
     assert (lf, lr, status) == (0.0, 0.0, loads.OK)
 
 
@@ -99,7 +82,7 @@ def test_load_parts_sum_and_no_nan(m, wf, L, h, ay, af, ar, x, kf, zf, zr):
 
 
 def test_wheel_lift_moves_roll_moment_and_flags():
-    # Source: roll-moment balance (DESIGN.md lateral transfer rule); exact identity.
+    # Source: roll-moment balance (docs/method.md, lateral transfer and wheel lift); exact.
     m, L, h = 1000.0, 2.5, 0.6
     fzf, fzr = 4000.0, 6000.0
     # all roll stiffness at the front: front would transfer more than half its load

@@ -166,7 +166,7 @@ def _band(coll) -> tuple[float, float]:
 
 
 def test_stacked_parts_sum_to_the_total_with_signs():
-    # Source: DESIGN.md load decomposition, Fz_f = static + aero - X h/L (sum of the parts);
+    # Source: docs/method.md load decomposition, Fz_f = static + aero - X h/L (the parts' sum);
     # the drawing must end at that sum: 10 + 2 - 3 = 9.
     fig = Figure()
     ax = fig.add_subplot()

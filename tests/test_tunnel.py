@@ -14,6 +14,7 @@ from lapbalance.car import load_car
 from lapbalance.cli import main
 from lapbalance.cli.tunnel_cmd import parse_height_band
 from lapbalance.errors import InputError
+from tests.reference_cases import CASES, ids
 
 EXAMPLES = Path(__file__).resolve().parents[1] / "examples"
 
@@ -50,18 +51,15 @@ def test_correction_is_d_times_cg_minus_restraint_over_l(fv, x, drag, hd, z, h, 
 # v = 50 m/s, rho = 1.225: front downforce measured 2756.2500 N, drag-free 3024.2188 N, drag
 # couple 267.9688 N per axle; front share 40.0000 % measured, 43.8889 % drag-free.
 def test_worked_example_wheel_restrained():
+    # values in tests/reference_cases.py ("tunnel.worked")
+    for cid in ids("tunnel.worked"):
+        assert CASES[cid].value() == CASES[cid].approx(), cid
     f, r, d = tunnel.reading_from_axle_coefficients(-1.20, -1.80, 1.00, 1.5, 1.225, 50.0)
-    assert f == pytest.approx(2756.2500, rel=1e-7)
-    # with the CG at the drag height the corrected split is the drag-free split
-    res = tunnel.correct_reading(f, r, d, cg_height=0.35, wheelbase=3.0, drag_height=0.35)
-    assert res.correction == pytest.approx(267.9688, rel=1e-6)
-    assert res.front == pytest.approx(3024.2188, rel=1e-6)
-    assert res.measured_balance_front == pytest.approx(0.400000, rel=1e-6)
-    assert res.balance_front == pytest.approx(0.438889, rel=1e-5)
     # the vertical centre of pressure does not depend on the CG height
     cps = [tunnel.correct_reading(f, r, d, h, 3.0, drag_height=0.35).centre_of_pressure
            for h in (0.2, 0.35, 0.5)]
-    assert cps == pytest.approx([3.0 * (1 - 0.438889)] * 3, rel=1e-5)
+    share = CASES["tunnel.worked.balance_corrected"]
+    assert cps == pytest.approx([3.0 * (1 - share.expected)] * 3, rel=share.rel)
     # same through C_L and C_PM (= 0.300000 ground-referenced)
     f2, r2, d2 = tunnel.reading_from_coefficients(-3.0, 1.0, 0.3, 1.5, 1.225, 50.0)
     assert (f2, r2, d2) == (pytest.approx(f), pytest.approx(r), pytest.approx(d))

@@ -166,8 +166,8 @@ def vertical_centre_of_pressure(front_cg, rear_cg, drag, cg_height, drag_height,
     r"""Where the vertical aero force alone acts, as a distance behind the front axle [m].
 
     The CG-convention split folds the drag's moment about the CG into the axle loads; the
-    vertical force alone is ``F_Lf,v = F_Lf,cg + D (h_D - h_cg) / L`` (DESIGN.md). Its centre of
-    pressure lies ``L * F_Lr,v / (F_Lf,v + F_Lr,v)`` behind the front axle.
+    vertical force alone is ``F_Lf,v = F_Lf,cg + D (h_D - h_cg) / L`` (docs/method.md). Its
+    centre of pressure lies ``L * F_Lr,v / (F_Lf,v + F_Lr,v)`` behind the front axle.
 
     Parameters
     ----------

@@ -37,16 +37,16 @@ BALANCE_BIN_KPH = 10.0
 MIGRATION_LOW_PERCENTILE = 25.0
 MIGRATION_HIGH_PERCENTILE = 90.0
 #: Default constant radius of :func:`constant_radius_run` [m]: the usual ISO 4138
-#: constant-radius choice (REFERENCES.md §6a, from memory there).
+#: constant-radius choice (ISO 4138:2021, method 1; radius from memory, docs/method.md).
 REFERENCE_RADIUS_M = 100.0
 #: Lateral-acceleration step of :func:`constant_radius_run` [m/s²]: ISO 4138 steps lateral
-#: acceleration by no more than 0.5 m/s² (REFERENCES.md §6a).
+#: acceleration by no more than 0.5 m/s² (ISO 4138:2021, steady-state circular driving).
 AY_STEP_MPS2 = 0.5
 #: Half-width of the band of balance index called neutral by :func:`corner_leaning` [-]
 #: (engineering judgement: two per cent of grip).
 NEUTRAL_BAND = 0.02
 
-#: Conversion of an understeer gradient of 1 deg/g to rad/(m/s²) (REFERENCES.md §6a).
+#: Conversion of an understeer gradient of 1 deg/g to rad/(m/s²) (Gillespie ch. 6 units).
 DEG_PER_G = math.radians(1.0) / G0
 
 
@@ -97,7 +97,7 @@ def aero_balance_curve(result, bin_kph: float = BALANCE_BIN_KPH) -> BalanceCurve
     -----
     With a fixed aero split the curve is flat; it moves only with an aero map (ride heights
     change with speed) or with ride-height-dependent data. The ground-convention figure adds
-    the drag couple ``-D h_cg / L`` to the front (DESIGN.md conventions table), so it drifts
+    the drag couple ``-D h_cg / L`` to the front (docs/method.md, aero conventions), so it drifts
     with speed whenever drag and downforce scale differently.
     """
     v = np.asarray(result.channels["speed_kph"], float)
@@ -252,7 +252,7 @@ def understeer_gradient(car, cornering_stiffness_front: float,
     References
     ----------
     .. [1] T.D. Gillespie, Fundamentals of Vehicle Dynamics, SAE 1992, ch. 6 (steady-state
-       cornering, understeer gradient); REFERENCES.md §6a.
+       cornering, understeer gradient); docs/method.md, steady-state handling figures.
     """
     wf, wr = static_axle_weights(car)
     return wf / cornering_stiffness_front - wr / cornering_stiffness_rear  # [1]
@@ -281,7 +281,7 @@ def steer_angle(wheelbase: float, radius: float, gradient: float, ay: float) -> 
 
     References
     ----------
-    .. [1] Gillespie, Fundamentals of Vehicle Dynamics, ch. 6; REFERENCES.md §6a.
+    .. [1] Gillespie, Fundamentals of Vehicle Dynamics, SAE 1992, ch. 6 (bicycle model).
     """
     return math.degrees(wheelbase / radius) + gradient * ay / G0  # [1]
 
@@ -304,7 +304,7 @@ def characteristic_speed(wheelbase: float, gradient: float) -> float | None:
 
     References
     ----------
-    .. [1] Gillespie, Fundamentals of Vehicle Dynamics, ch. 6; REFERENCES.md §6a.
+    .. [1] Gillespie, Fundamentals of Vehicle Dynamics, SAE 1992, ch. 6 (bicycle model).
     """
     if gradient <= 0.0:
         return None

@@ -1,7 +1,7 @@
 """The lap solver: car and track in, :class:`LapResult` out.
 
 validate -> build float arrays -> call the numba kernels (:mod:`lapbalance.kernels`) -> wrap.
-Method (DESIGN.md): corner-speed limit per step (steady speed, both axles u <= 1), forward pass
+Method (docs/method.md): corner-speed limit per step (steady speed, both axles u<=1), forward pass
 with the largest drive force the powertrain gives and both axles carry, backward pass with the
 fixed brake bias, speed = minimum of the three; closed laps start at the slowest point so the
 lap closes on itself. Each step's a_x comes from the force balance applied there.
@@ -22,6 +22,7 @@ from lapbalance.errors import InfeasibleError, InputError, PhysicsWarning
 from lapbalance.kernels import corner_limits as _corner_limits_kernel
 from lapbalance.kernels import final_pass as _final_pass_kernel
 from lapbalance.kernels import speed_passes as _speed_passes_kernel
+from lapbalance.liftoff import corner_mask as _corner_mask
 from lapbalance.units import G0
 
 #: Names of the ``limit`` channel codes.
@@ -35,11 +36,11 @@ LIMIT_NAMES = {
 }
 
 #: Default lateral-acceleration threshold for the lift-off check [m/s²]: ISO 9816 starts its
-#: power-off-in-a-turn runs from a steady turn at about 4 m/s² (REFERENCES.md §6b).
+#: power-off-in-a-turn runs from a steady turn at about 4 m/s² (ISO 9816:2018).
 LIFTOFF_AY_THRESHOLD = 4.0
 
 #: Speed tolerance of the corner-limit search [m/s] and force tolerance of the
-#: longitudinal searches [N] (DESIGN.md: stop at a tolerance that matters).
+#: longitudinal searches [N] (docs/method.md, the solver: stop at a tolerance that matters).
 SPEED_TOL = 1e-3
 FORCE_TOL = 0.5
 
@@ -445,13 +446,6 @@ def _channels(car: Car, track, v, vlim, res, time) -> dict[str, np.ndarray]:
     ch["coast_usage_front"] = res[:, c + 16]
     ch["coast_usage_rear"] = res[:, c + 17]
     return ch
-
-
-def _corner_mask(track, cr) -> np.ndarray:
-    d = np.asarray(track.distance_m)
-    if cr.exit_m >= cr.entry_m:
-        return (d >= cr.entry_m) & (d <= cr.exit_m)
-    return (d >= cr.entry_m) | (d <= cr.exit_m)
 
 
 def _sectors(track, time, lap_time) -> list[dict]:

@@ -6,7 +6,7 @@ at the same speed and curvature with the drive force replaced by the engine's ov
 the current gear (and once more coasting, with no engine braking). This module groups those
 results per corner and gives a verdict.
 
-Why it matters (DESIGN.md): at steady speed part of the rear axle's load comes from the tyres'
+Why it matters (docs/method.md): at steady speed part of the rear axle's load comes from the tyres'
 own tractive force (X·h/L). Lifting off removes it at once and engine braking adds more, so
 load moves forward, the rear loses capacity and the balance index ``B = u_r - u_f`` rises.
 
@@ -49,7 +49,7 @@ class Thresholds:
         peak friction).
     watch_shift : float
         Balance-index shift flagged at high speed [-]. Default 0.10 (engineering judgement;
-        the first-principles example in REFERENCES.md §6c moves 0.068 at 30 m/s).
+        the worked example in docs/validation.md, lift-off check, moves 0.068 at 30 m/s).
     watch_speed_kph : float
         Speed from which a large shift counts [km/h]. Default 150 (engineering judgement:
         fast corners, where a step-out is hardest to catch).
@@ -85,6 +85,15 @@ def _step_record(ch, i: int) -> dict:
         "coast_usage_rear": float(ch["coast_usage_rear"][i]),
         "coast_front_load_shift_n": float(ch["coast_front_load_shift_n"][i]),
     }
+
+
+def corner_mask(track, cr) -> np.ndarray:
+    """Steps of ``track`` inside corner ``cr`` (entry to exit; a corner over the start line of
+    a closed track wraps), as a boolean array over ``track.distance_m``."""
+    d = np.asarray(track.distance_m)
+    if cr.exit_m >= cr.entry_m:
+        return (d >= cr.entry_m) & (d <= cr.exit_m)
+    return (d >= cr.entry_m) | (d <= cr.exit_m)
 
 
 def verdict(worst_shift: dict | None, worst_rear: dict | None,
@@ -147,8 +156,6 @@ def corner_assessment(ch: dict[str, np.ndarray], mask: np.ndarray,
 def assess(result, thresholds: Thresholds = DEFAULT_THRESHOLDS):
     """Return a copy of a :class:`~lapbalance.lap.LapResult` whose corner rows carry the
     lift-off assessment (see :func:`corner_assessment`)."""
-    from lapbalance.lap import _corner_mask
-
     rows = []
     corners = {c.id: c for c in getattr(result.track, "corners", ()) or ()}
     for row in result.corners:
@@ -156,7 +163,7 @@ def assess(result, thresholds: Thresholds = DEFAULT_THRESHOLDS):
         if cr is None:
             rows.append(row)
             continue
-        mask = _corner_mask(result.track, cr)
+        mask = corner_mask(result.track, cr)
         rows.append({**row, **corner_assessment(result.channels, mask, thresholds)})
     settings = {**result.settings, "liftoff_thresholds": asdict(thresholds)}
     return replace(result, corners=rows, settings=settings)

@@ -1,4 +1,4 @@
-r"""Axle and wheel loads with their parts kept apart (DESIGN.md, CG convention).
+r"""Axle and wheel loads with their parts kept apart (CG convention, docs/method.md).
 
 On a road with grade and banking, with the aero split in the CG convention and ``X`` the sum
 of the longitudinal ground forces (drive minus brake minus rolling resistance, positive

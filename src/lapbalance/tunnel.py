@@ -4,7 +4,7 @@ A balance under a restrained car reads the axle loads of the aero force system *
 couple between the drag (above the ground) and the restraint that holds the car (at height z:
 0 for wheel chocks, brakes or a fixed floor; strut or belt height otherwise). On track the
 split that belongs to the aerodynamics alone is the one with the drag reacted at CG height
-(the CG convention of DESIGN.md), so each reading is corrected by
+(the CG convention, docs/method.md), so each reading is corrected by
 
 .. math:: F_{f,cg} = F_{f,meas} + D (h_{cg} - z)/L, \qquad F_{r,cg} = F_{r,meas} - D (h_{cg} - z)/L
 

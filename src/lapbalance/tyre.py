@@ -6,13 +6,13 @@ coefficients and usage [-].
 
 Model
 -----
-Per tyre, linear load sensitivity (normalised form, REFERENCES: Milliken & Milliken, Race Car
+Per tyre, linear load sensitivity (normalised form; data: Milliken & Milliken, Race Car
 Vehicle Dynamics, 1995, Fig. 2.9 data; linear form mu = a + b Fz) [1]:
 
 .. math:: \mu(F_z) = \mu_0 \left(1 - k \frac{F_z - F_{z0}}{F_{z0}}\right)
 
 The force capacity :math:`\mu(F_z) F_z` is held at its peak beyond
-:math:`F_z^* = (1 + k) F_{z0} / (2k)`, so capacity never falls as load rises (DESIGN.md).
+:math:`F_z^* = (1 + k) F_{z0} / (2k)`, so capacity never falls as load rises (docs/method.md).
 The Magic Formula peak option, :math:`\mu = p_{D1} + p_{D2}\,df_z` with
 :math:`df_z = (F_z - F_{z0})/F_{z0}` (Pacejka, Tire and Vehicle Dynamics, ch. 4, from
 memory), is the same law with :math:`\mu_0 = p_{D1}`, :math:`k = -p_{D2}/p_{D1}` and is
