@@ -1,8 +1,10 @@
 """Driving line inside the track width: the minimum-curvature line.
 
 The path is the track file's reference line moved sideways along its left unit normals ``n``:
-``p_i = r_i + α_i n_i`` (``α`` in metres, left positive). The line minimises the sum of the
-squared curvature over the points, ``Σ κ_i²``, subject to the band
+``p_i = r_i + α_i n_i`` (``α`` in metres, left positive). The line minimises the squared
+curvature summed along it, ``Σ κ_i² h_i ≈ ∫ κ² ds`` (``h_i`` the length of line around point
+``i``; weighting by it keeps the result independent of how the points crowd on the inside
+of a bend), subject to the band
 
     ``-w_right_i + c <= α_i <= w_left_i - c``,   ``c = car width / 2 + margin``,
 
@@ -408,12 +410,25 @@ def box_least_squares(J, b, lo, hi, max_iter: int = BOX_MAX_ITER):
     return x, {"steps": steps, "converged": converged, "polished": polished}
 
 
+def _point_lengths(p, closed):
+    """Length of line each point stands for: half of each neighbouring segment [m]."""
+    seg = np.hypot(*np.diff(p, axis=0).T)
+    if closed:
+        last = math.hypot(*(p[0] - p[-1]))
+        seg = np.append(seg, last)
+        return 0.5 * (seg + np.roll(seg, 1))
+    return 0.5 * (np.concatenate([[0.0], seg]) + np.concatenate([seg, [0.0]]))
+
+
 def min_curvature_offsets(x, y, lo, hi, closed: bool, iterations: int = ITERATIONS,
                           tol_m: float = OFFSET_TOL_M) -> tuple[np.ndarray, dict]:
-    """Offsets ``α`` along the left normals that minimise ``Σ κ²`` within ``lo <= α <= hi``.
+    """Offsets ``α`` along the left normals that minimise ``Σ κ_i² h_i`` within the bounds.
 
-    Each Gauss-Newton step solves the bounded linear least-squares problem
-    ``min |κ(α_k) + J (α - α_k)|²``, ``lo <= α <= hi`` with :func:`box_least_squares`.
+    ``h_i`` is the length of line point ``i`` stands for (half of each neighbouring segment),
+    so the sum approximates ``∫ κ² ds`` whatever the spacing of the points. Each Gauss-Newton
+    step solves the bounded linear least-squares problem
+    ``min Σ h_i (κ_i(α_k) + J_i (α - α_k))²``, ``lo <= α <= hi`` (weights held at ``α_k``) with
+    :func:`box_least_squares`.
 
     Parameters
     ----------
@@ -433,15 +448,17 @@ def min_curvature_offsets(x, y, lo, hi, closed: bool, iterations: int = ITERATIO
     -------
     tuple
         ``α`` (N,) [m] and a dict of solver figures: ``iterations``, ``last_change_m`` [m],
-        ``active_set_steps``, ``converged``, ``sum_k2_reference``, ``sum_k2_line`` [1/m²].
+        ``box_steps`` (interior-point steps in all), ``converged``, ``int_k2_reference``,
+        ``int_k2_line`` (``Σ κ² h ≈ ∫ κ² ds`` of the reference and of the line) [1/m].
     """
     r = np.column_stack([np.asarray(x, float), np.asarray(y, float)])
     lo = np.asarray(lo, float)
     hi = np.asarray(hi, float)
     nrm = normals(r[:, 0], r[:, 1], closed)
     alpha = np.clip(np.zeros(len(r)), lo, hi)
+    mean_h = float(np.mean(_point_lengths(r, closed)))
     k0 = None
-    info = {"iterations": 0, "last_change_m": math.nan, "active_set_steps": 0,
+    info = {"iterations": 0, "last_change_m": math.nan, "box_steps": 0,
             "converged": True}
     for it in range(max(1, int(iterations))):
         p = r + alpha[:, None] * nrm
@@ -449,25 +466,29 @@ def min_curvature_offsets(x, y, lo, hi, closed: bool, iterations: int = ITERATIO
         if not closed:
             k = np.concatenate([[0.0], k[1:-1], [0.0]])
         if k0 is None:
-            k0 = float(np.sum(k**2))
-        J = _jacobian_matrix(dm, d0, dp, closed)
-        new, binfo = box_least_squares(J, J @ alpha - k, lo, hi)
+            k0 = float(np.sum(k**2 * _point_lengths(p, closed)))
+        # each point stands for the length of line around it: Σ κ² h ≈ ∫ κ² ds, whatever
+        # the spacing (the weights are held at the current line, updated every solve)
+        sw = np.sqrt(_point_lengths(p, closed) / mean_h)
+        J = _jacobian_matrix(dm * sw, d0 * sw, dp * sw, closed)
+        new, binfo = box_least_squares(J, J @ alpha - k * sw, lo, hi)
         steps, ok = binfo["steps"], binfo["converged"]
         new = np.clip(new, lo, hi)
         change = float(np.max(np.abs(new - alpha)))
         alpha = new
         info["iterations"] = it + 1
         info["last_change_m"] = change
-        info["active_set_steps"] += steps
+        info["box_steps"] += steps
         info["converged"] = info["converged"] and ok
         if change < tol_m:
             break
     p = r + alpha[:, None] * nrm
     k = menger_curvature(p, closed)
+    h = _point_lengths(p, closed)
     if not closed:
-        k = k[1:-1]
-    info["sum_k2_reference"] = k0
-    info["sum_k2_line"] = float(np.sum(k**2))
+        k, h = k[1:-1], h[1:-1]
+    info["int_k2_reference"] = k0
+    info["int_k2_line"] = float(np.sum(k**2 * h))
     return alpha, info
 
 
@@ -495,7 +516,7 @@ class LineTrack(Track):
     car_width_m, margin_m : float
         Car width and edge margin the band was built with. [m]
     solver : dict
-        Figures of the optimisation (iterations, Σκ² of the reference and of the line). [-]
+        Figures of the optimisation (iterations, ∫κ² ds of the reference and of the line). [-]
     """
 
     line: str = "min-curvature"
@@ -662,3 +683,40 @@ def reference_line(track):
         return None
     nrm = normals(track.x_m, track.y_m, bool(track.closed))
     return (np.asarray(track.x_m) - off * nrm[:, 0], np.asarray(track.y_m) - off * nrm[:, 1])
+
+
+def track_csv_text(track, note: str = "") -> str:
+    """A track as our CSV format (readable by :func:`lapbalance.track.load_track`).
+
+    Columns ``x_m, y_m`` (0.1 mm), ``z_m`` and ``bank_deg`` when the track has them, the edges
+    as ``width_left_m, width_right_m`` (from these points) when it has a width, and
+    ``line_offset_m`` (offset from the original reference line; the reader ignores it).
+    """
+    lines = [f"# name: {getattr(track, 'name', '') or 'track'}",
+             f"# closed: {'true' if track.closed else 'false'}"]
+    starts = tuple(getattr(track, "sector_starts_m", ()) or ())
+    if starts:
+        lines.append("# sectors_m: " + ", ".join(f"{s:.1f}" for s in starts))
+    if note:
+        lines += [f"# {t}" for t in note.splitlines()]
+    cols: dict[str, np.ndarray] = {"x_m": np.asarray(track.x_m, float),
+                                   "y_m": np.asarray(track.y_m, float)}
+    z = np.asarray(getattr(track, "z_m", np.zeros(track.n)), float)
+    if np.any(z != 0.0):
+        cols["z_m"] = z
+    bank = np.degrees(np.asarray(getattr(track, "bank_rad", np.zeros(track.n)), float))
+    if np.any(bank != 0.0):
+        cols["bank_deg"] = bank
+    w = np.asarray(getattr(track, "width_m", np.full(track.n, np.nan)), float)
+    if np.all(np.isfinite(w)):
+        wl, wr = edge_widths(track)
+        cols["width_left_m"] = wl
+        cols["width_right_m"] = wr
+    off = getattr(track, "line_offset_m", None)
+    if off is not None:
+        cols["line_offset_m"] = np.asarray(off, float)
+    lines.append(",".join(cols))
+    arrays = list(cols.values())
+    for row in zip(*arrays, strict=True):
+        lines.append(",".join(f"{v:.4f}" for v in row))
+    return "\n".join(lines) + "\n"
