@@ -71,6 +71,8 @@ BOX_MAX_ITER = 80
 #: the normal matrix, dual residual below BOX_RESID times (1 + |g|). [-]
 BOX_GAP = 1e-13
 BOX_RESID = 1e-9
+#: Cap on the barrier terms of the interior-point matrix, relative to its largest diagonal. [-]
+BOX_BIG = 1e20
 #: The polish step fixes bounds within this of the interior-point solution. [m]
 BOX_ACTIVE_M = 1e-4
 #: Ridge added to the normal matrix, relative to its largest diagonal entry. [-]
@@ -358,7 +360,7 @@ def box_least_squares(J, b, lo, hi, max_iter: int = BOX_MAX_ITER):
         if float(np.max(np.abs(rd))) <= BOX_RESID * gnorm and mu <= BOX_GAP * scale:
             converged = True
             break
-        d = np.where(fixed, 1e30 * scale, z / s + w / t)
+        d = np.where(fixed, BOX_BIG * scale, np.minimum(z / s + w / t, BOX_BIG * scale))
         lu = splu((H + diags(d)).tocsc())
 
         def solve(rs, rt):
@@ -385,8 +387,8 @@ def box_least_squares(J, b, lo, hi, max_iter: int = BOX_MAX_ITER):
         x[fixed] = lo[fixed]
         s = np.where(fixed, 1.0, x - lo)
         t = np.where(fixed, 1.0, hi - x)
-        s = np.maximum(s, 1e-300)
-        t = np.maximum(t, 1e-300)
+        s = np.maximum(s, 1e-15)
+        t = np.maximum(t, 1e-15)
         z = z + ad * dz
         w = w + ad * dw
     x = np.clip(x, lo, hi)
@@ -399,7 +401,10 @@ def box_least_squares(J, b, lo, hi, max_iter: int = BOX_MAX_ITER):
     if fi.size:
         fx = np.flatnonzero(at_lo | at_hi)
         rhs = g[fi] - (H[fi][:, fx] @ xp[fx] if fx.size else 0.0)
-        xp[fi] = splu(H[fi][:, fi].tocsc()).solve(rhs)
+        try:
+            xp[fi] = splu(H[fi][:, fi].tocsc()).solve(rhs)
+        except RuntimeError:  # a singular free block: keep the interior-point solution
+            xp[fi] = np.nan
     if np.all(xp >= lo - 1e-9) and np.all(xp <= hi + 1e-9):
         def f(v):
             return 0.5 * v @ (H @ v) - g @ v
