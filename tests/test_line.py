@@ -81,8 +81,9 @@ def test_isolated_corner_apex_radius_closed_forms(radius, theta_deg):
     apex radius must match it within 2 %, must not exceed ρ_arc (no line through the corner
     is straighter everywhere than the largest arc), and the line must touch the outer bound
     on both straights and the inner bound at the apex. Closed forms derived here (plane
-    geometry and the Euler-Bernoulli beam equation, e.g. Timoshenko & Gere, Mechanics of
-    Materials, ch. 9).
+    geometry, and the small-slope bending energy of a beam, whose minimiser satisfies the
+    Euler-Bernoulli equation y'''' = 0 between supports; e.g. Timoshenko & Gere, Mechanics of
+    Materials, on beam deflection).
     """
     e = 5.0
     alpha, k, info = solve_corner(radius, theta_deg, e)
@@ -271,7 +272,7 @@ def test_demo_circuits_faster_on_the_line():
     The banked oval is the exception, and the test holds that too: minimising ∫κ² ds there
     bends the line on the long straights, which makes the lap longer and the two 180° turns
     tighter than the centreline's, so the line is slower (minimum curvature is not minimum
-    time; Heilmeier et al. 2020, section 5)."""
+    time)."""
     from lapbalance.lap import simulate_lap
 
     cars = [load_car(f) for f in _demo_cars()]
