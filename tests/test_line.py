@@ -216,6 +216,8 @@ def test_car_width_key_and_default():
     assert L.car_width_m(make_car(chassis={"overall_width_mm": 1890.0})) == pytest.approx(1.89)
     with pytest.raises(InputError, match="less than the track width"):
         make_car(chassis={"overall_width_m": 1.2})
+    with pytest.raises(InputError, match="millimetres"):
+        make_car(chassis={"overall_width_m": 1890.0})
 
 
 def test_cli_line_needs_a_width_and_exports(tmp_path):
@@ -278,7 +280,7 @@ def test_demo_circuits_faster_on_the_line():
     cars = [load_car(f) for f in _demo_cars()]
     tracks = []
     for f in sorted(glob.glob(str(ROOT / "tracks" / "*.csv"))):
-        t = load_track(f)
+        t = load_track(f, step_m=2.0)  # 2 m keeps CI short; the relation holds at 1 m too
         if np.all(np.isfinite(t.width_m)):
             tracks.append(t)
     assert len(tracks) >= 4 and len(cars) >= 5
@@ -298,3 +300,22 @@ def test_demo_circuits_faster_on_the_line():
                 assert b > a, (t.name, car.name, a, b)
             else:
                 assert b < a, (t.name, car.name, a, b)
+
+
+@pytest.mark.parametrize("command", ["lap", "compare", "sweep", "check", "report", "track"])
+def test_every_lap_command_takes_the_line_options(command):
+    r = CliRunner().invoke(main, [command, "--help"])
+    assert r.exit_code == 0
+    for opt in ("--line [centreline|min-curvature]", "--width-m", "--line-margin-m"):
+        assert opt in r.output, (command, opt)
+
+
+def test_check_runs_on_the_line(tmp_path):
+    targets = tmp_path / "t.toml"
+    targets.write_text('[[target]]\nname = "line offset within the road"\n'
+                       'quantity = "line_offset_m"\ncondition = { range = [-6.0, 6.0] }\n')
+    r = CliRunner().invoke(main, ["check", str(ROOT / "examples" / "gt_coupe.toml"),
+                                  str(ROOT / "tracks" / "kettlewick_loops.csv"),
+                                  str(targets), "--line", "min-curvature", "--json"])
+    assert r.exit_code == 0, r.output
+    assert '"passed": true' in r.output
