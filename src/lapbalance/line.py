@@ -606,13 +606,11 @@ def min_curvature_line(track, car_width: float, margin_m: float = LINE_MARGIN_M,
     bank = np.degrees(np.asarray(getattr(track, "bank_rad", np.zeros_like(x)), float))
     has_z = bool(np.any(z != 0.0))
     has_bank = bool(np.any(bank != 0.0))
-    if sectors is not None:
-        sectors = [s * 1.0 for s in sectors]
     base = make_track(px, py, z if has_z else None, bank if has_bank else None, wtot,
                       closed=closed, step_m=step, name=name, source=source,
                       sector_starts_m=None)
     dist, length = base.distance_m, base.length_m
-    if sectors is not None:
+    if sectors is not None:  # the reference's sector starts, carried across to the line
         scale = length / total
         sectors = tuple([0.0] + [s * scale for s in sectors[1:]])
     else:
