@@ -143,6 +143,13 @@ def write_csv(path, name, closed, cols, sectors=None, note=""):
     Path(path).write_text("\n".join(lines) + "\n")
 
 
+def lap_width(n, mean_m, swing_m, waves, phase):
+    """A smoothly varying width around a closed lap of ``n`` points: ``mean ± swing`` over a
+    whole number of ``waves`` per lap, so that the width closes on itself [m]."""
+    u = np.arange(n) / n
+    return mean_m + swing_m * np.sin(2.0 * np.pi * waves * u + phase)
+
+
 def length_of(x, y, closed):
     d = np.hypot(np.diff(x), np.diff(y)).sum()
     return d + (math.hypot(x[-1] - x[0], y[-1] - y[0]) if closed else 0.0)
@@ -197,7 +204,8 @@ def main(argv=None):
     k, x, y = build_closed(FAST, transition_m=40.0)
     check("fast", k, x, y, True)
     L = length_of(x, y, True)
-    write_csv(out / "veldmoor_ring.csv", "Veldmoor Ring", True, {"x_m": x, "y_m": y},
+    write_csv(out / "veldmoor_ring.csv", "Veldmoor Ring", True,
+              {"x_m": x, "y_m": y, "width_m": lap_width(x.size, 12.5, 1.5, 3, 0.7)},
               sectors=[0, round(L * 0.34), round(L * 0.68)])
     summary.append(("veldmoor_ring", L, 1 / np.max(np.abs(k))))
 
@@ -205,7 +213,8 @@ def main(argv=None):
     k, x, y = build_closed(TWISTY, transition_m=15.0)
     check("twisty", k, x, y, True)
     L = length_of(x, y, True)
-    write_csv(out / "kettlewick_loops.csv", "Kettlewick Loops", True, {"x_m": x, "y_m": y})
+    write_csv(out / "kettlewick_loops.csv", "Kettlewick Loops", True,
+              {"x_m": x, "y_m": y, "width_m": lap_width(x.size, 11.0, 1.0, 4, 0.0)})
     summary.append(("kettlewick_loops", L, 1 / np.max(np.abs(k))))
 
     # (c) banked oval: bank follows curvature, 16 deg at full radius

@@ -86,6 +86,11 @@ SCHEMA: dict[str, tuple[Key, ...]] = {
             alts=(("track_front_mm", MM, "mm"),), slips=MM_SLIP, doc="Front track width."),
         Key("track_rear_m", "track_rear", "m", lo=0.5, hi=3.5, required=True,
             alts=(("track_rear_mm", MM, "mm"),), slips=MM_SLIP, doc="Rear track width."),
+        Key("overall_width_m", "overall_width", "m", lo=0.5, hi=4.0,
+            alts=(("overall_width_mm", MM, "mm"),), slips=MM_SLIP,
+            doc="Overall width of the car (body or wheels, whichever is wider); sets how "
+                "close to the track edges a driving line runs (--line). Default: the wider "
+                "track width + 0.30 m."),
     ),
     "aero": (
         Key("downforce_area_m2", "downforce_area", "m²", lo=-10, hi=20,
@@ -243,6 +248,7 @@ class Chassis:
     cg_height: float
     track_front: float
     track_rear: float
+    overall_width: float | None = None
 
     @property
     def a(self) -> float:
@@ -713,7 +719,14 @@ def build_car(flat: dict, source: str, folder: Path) -> Car:
     top = _section_values(flat, "", src)
     ch = _section_values(flat, "chassis", src)
     chassis = Chassis(ch["mass"], ch["wheelbase"], ch["front_weight_fraction"],
-                      ch["cg_height"], ch["track_front"], ch["track_rear"])
+                      ch["cg_height"], ch["track_front"], ch["track_rear"],
+                      ch["overall_width"])
+    if chassis.overall_width is not None and chassis.overall_width < max(
+            chassis.track_front, chassis.track_rear):
+        raise InputError(f"overall width {chassis.overall_width:g} m is less than the track "
+                         f"width {max(chassis.track_front, chassis.track_rear):g} m; give the "
+                         "width over the wheels or body", _src(ch, "overall_width", src),
+                         "chassis.overall_width_m")
     sus = _build_suspension(_section_values(flat, "suspension", src), src)
     air = _build_air(_section_values(flat, "air", src), src)
     tyres = _build_tyres(flat, src)

@@ -51,6 +51,8 @@ CHANNELS: dict[str, tuple[str, str]] = {
     "x_m": ("m", "position east"),
     "y_m": ("m", "position north"),
     "z_m": ("m", "elevation"),
+    "line_offset_m": ("m", "lateral offset of the driven line from the track file's reference "
+                      "line, left positive (0 on the centreline)"),
     "curvature_1pm": ("1/m", "path curvature, left positive"),
     "grade_rad": ("rad", "road grade, uphill positive"),
     "bank_rad": ("rad", "banking, left side lower positive"),
@@ -357,7 +359,8 @@ def simulate_lap(car: Car, track, *, start_speed_kph: float | None = None,
     result = LapResult(car, track, lap_time, ch, corners, sectors,
                        {"liftoff_ay_threshold_mps2": liftoff_ay_threshold,
                         "step_m": ds, "speed_cap_mps": vcap,
-                        "start_speed_kph": start_speed_kph})
+                        "start_speed_kph": start_speed_kph,
+                        "line": getattr(track, "line", "centreline")})
     if assess_liftoff:
         from lapbalance import liftoff
 
@@ -378,6 +381,8 @@ def _channels(car: Car, track, v, vlim, res, time) -> dict[str, np.ndarray]:
     ch["x_m"] = np.asarray(track.x_m, float)
     ch["y_m"] = np.asarray(track.y_m, float)
     ch["z_m"] = np.asarray(getattr(track, "z_m", np.zeros_like(v)), float)
+    off = getattr(track, "line_offset_m", None)
+    ch["line_offset_m"] = np.zeros(len(v)) if off is None else np.asarray(off, float)
     ch["curvature_1pm"] = np.asarray(track.curvature_1pm, float)
     ch["grade_rad"] = np.asarray(track.grade_rad, float)
     ch["bank_rad"] = np.asarray(track.bank_rad, float)

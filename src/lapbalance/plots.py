@@ -154,6 +154,30 @@ def _track_line(ax, x, y, values, cmap, norm, width=3.0) -> LineCollection:
     return lc
 
 
+def draw_track_edges(ax, track, color: str | None = None) -> bool:
+    """Draw the track edges (thin lines) and, on a driving line, the track file's own line
+    (dotted) under a map. Returns True when the track has a width to draw."""
+    from lapbalance import line as _line
+
+    e = _line.edges(track)
+    if e is None:
+        return False
+    col = color or PALETTE["muted"]
+    closed = bool(getattr(track, "closed", False))
+
+    def close(a):
+        return np.append(a, a[0]) if closed else a
+
+    xl, yl, xr, yr = e
+    ax.plot(close(xl), close(yl), color=col, lw=0.8, label="track edges")
+    ax.plot(close(xr), close(yr), color=col, lw=0.8)
+    ref = _line.reference_line(track)
+    if ref is not None:
+        ax.plot(close(ref[0]), close(ref[1]), color=col, lw=0.6, linestyle=":",
+                label="track file's line")
+    return True
+
+
 @_styled
 def track_map_figure(result: LapResult) -> Figure:
     """Track map coloured by the balance index, corner ids at the apexes, lift-off flags.
@@ -173,6 +197,7 @@ def track_map_figure(result: LapResult) -> Figure:
     m = _symmetric_limit(bal)
     fig = _figure(7.5, 6.0)
     ax = fig.add_subplot()
+    draw_track_edges(ax, result.track)
     lc = _track_line(ax, x, y, bal, DIVERGING, TwoSlopeNorm(0.0, -m, m))
     cb = fig.colorbar(lc, ax=ax, shrink=0.85, extend="both")
     cb.set_label("balance index u_r - u_f [-]  (> 0 oversteer-leaning)")
@@ -192,7 +217,9 @@ def track_map_figure(result: LapResult) -> Figure:
                     linestyle="none", markersize=10, color=PALETTE[verdict],
                     markeredgecolor="white", label=f"lift-off: {verdict}")
     ax.legend(loc="best")
-    ax.set_title(f"{_names(result)}: balance around the lap")
+    line = getattr(result.track, "line", "centreline")
+    on = "" if line == "centreline" else f" ({line} line)"
+    ax.set_title(f"{_names(result)}: balance around the lap{on}")
     return fig
 
 

@@ -24,8 +24,10 @@ CSV format
 ----------
 A header row is required, then one row per point, comma separated. Columns: ``x_m,y_m`` (a
 local plane) or ``lat_deg,lon_deg`` (WGS-84, projected onto the local tangent plane at the
-trace's centroid); optional ``z_m`` (elevation), ``bank_deg`` and ``width_m``. Comment lines
-starting with ``#`` before the header carry metadata of our own::
+trace's centroid); optional ``z_m`` (elevation), ``bank_deg`` and ``width_m`` (or
+``width_left_m`` and ``width_right_m``: distances from the points to the left and right
+edge, for a line that is not the centre of the width). Comment lines starting with ``#``
+before the header carry metadata of our own::
 
     # name: Example Park
     # closed: true
@@ -112,7 +114,8 @@ CORNER_MIN_TURN_DEG = 10.0
 _WGS84_A = 6378137.0
 _WGS84_F = 1.0 / 298.257223563
 
-_KNOWN_COLUMNS = ("x_m", "y_m", "lat_deg", "lon_deg", "z_m", "bank_deg", "width_m")
+_KNOWN_COLUMNS = ("x_m", "y_m", "lat_deg", "lon_deg", "z_m", "bank_deg", "width_m",
+                  "width_left_m", "width_right_m")
 
 
 # --------------------------------------------------------------------------------------------
@@ -183,6 +186,10 @@ class Track:
         Corners in driving order. [-]
     sector_starts_m : tuple of float
         Start distance of each sector; the first is 0.0. [m]
+    width_left_m : numpy.ndarray or None
+        (N,) distance from the line to the left edge when the file gives the edges apart
+        (``width_left_m``, ``width_right_m``); None when the points are the centre of the
+        width. [m]
     """
 
     name: str
@@ -200,6 +207,7 @@ class Track:
     width_m: np.ndarray
     corners: tuple[Corner, ...]
     sector_starts_m: tuple[float, ...]
+    width_left_m: np.ndarray | None = None
 
     @property
     def n(self) -> int:
@@ -420,9 +428,55 @@ def load_track(path, step_m: float = 1.0, closed: bool | None = None) -> Track:
         x, y = latlon_to_local(lat, lon)
     else:
         x, y = cols["x_m"], cols["y_m"]
-    return _build(x, y, cols.get("z_m"), cols.get("bank_deg"), cols.get("width_m"),
-                  closed=closed, step_m=step_m, name=meta.get("name") or path.stem,
-                  source=src, sector_starts_m=sectors, rows=linenos)
+    width, left = _split_widths(cols, src, linenos)
+    tr = _build(x, y, cols.get("z_m"), cols.get("bank_deg"), width,
+                closed=closed, step_m=step_m, name=meta.get("name") or path.stem,
+                source=src, sector_starts_m=sectors, rows=linenos)
+    if left is not None:
+        tr = _with_left_width(tr, x, y, left)
+    return tr
+
+
+def _split_widths(cols, src, linenos):
+    """Total width and the left part from ``width_m`` or ``width_left_m``/``width_right_m``."""
+    has_l, has_r = "width_left_m" in cols, "width_right_m" in cols
+    if not (has_l or has_r):
+        return cols.get("width_m"), None
+    if "width_m" in cols:
+        raise InputError("give width_m or width_left_m and width_right_m, not both", src,
+                         "width_m")
+    if has_l != has_r:
+        raise InputError("width_left_m and width_right_m go together; give both (distances "
+                         "from the points to the left and right edges)", src,
+                         "width_right_m" if has_l else "width_left_m")
+    wl, wr = cols["width_left_m"], cols["width_right_m"]
+    for name, w in (("width_left_m", wl), ("width_right_m", wr)):
+        bad = np.flatnonzero(w < 0)
+        if bad.size:
+            raise InputError(f"{name} = {w[bad[0]]:g} must be >= 0", src,
+                             f"line {linenos[bad[0]]}")
+    return wl + wr, wl
+
+
+def _with_left_width(tr: Track, x, y, left) -> Track:
+    """Carry the left edge distance of the file's points onto the resampled steps (by the
+    chord length of the points, stretched to the track's length)."""
+    import dataclasses
+
+    x, y, left = (np.asarray(a, dtype=float) for a in (x, y, left))
+    seg = np.hypot(np.diff(x), np.diff(y))
+    keep = np.concatenate([[True], seg > DUPLICATE_M])
+    x, y, left = x[keep], y[keep], left[keep]
+    if tr.closed and math.hypot(x[-1] - x[0], y[-1] - y[0]) <= DUPLICATE_M:
+        x, y, left = x[:-1], y[:-1], left[:-1]
+    u = np.concatenate([[0.0], np.cumsum(np.hypot(np.diff(x), np.diff(y)))])
+    if tr.closed:
+        total = u[-1] + math.hypot(x[-1] - x[0], y[-1] - y[0])
+        wl = np.interp(tr.distance_m * (total / tr.length_m), np.append(u, total),
+                       np.append(left, left[0]))
+    else:
+        wl = np.interp(tr.distance_m * (u[-1] / tr.length_m), u, left)
+    return dataclasses.replace(tr, width_left_m=np.ascontiguousarray(np.minimum(wl, tr.width_m)))
 
 
 def make_track(x, y, z=None, bank_deg=None, width=None, *, closed=None, step_m=1.0, name="",

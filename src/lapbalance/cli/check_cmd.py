@@ -7,7 +7,8 @@ import sys
 import click
 
 from lapbalance.cli import main
-from lapbalance.cli.common import echo_json, json_option, set_option, table
+from lapbalance.cli.common import (apply_line, echo_json, json_option, line_options,
+                                   set_option, table)
 from lapbalance.cli.lap_cmd import load_inputs, track_options
 
 
@@ -54,8 +55,9 @@ def format_outcomes(outcomes, car_name: str, track_name: str) -> str:
 @set_option
 @json_option
 @track_options
+@line_options
 def check_command(car_file, track_file, targets_file, overrides, as_json, step_m, closed,
-                  start_speed_kph):
+                  start_speed_kph, line, track_width_m, line_margin_m):
     """Check CAR_FILE on TRACK_FILE against the handling targets in TARGETS_FILE.
 
     Exit status 0 when every target passes, 1 when any fails (or has no data), 2 on bad input.
@@ -65,6 +67,7 @@ def check_command(car_file, track_file, targets_file, overrides, as_json, step_m
 
     targets = load_targets(targets_file)
     car, track = load_inputs(car_file, track_file, overrides, step_m, closed)
+    track = apply_line(track, car, line, track_width_m, line_margin_m)
     result = simulate_lap(car, track, start_speed_kph=start_speed_kph)
     outcomes = check(result, targets)
     ok = all_passed(outcomes)

@@ -16,6 +16,31 @@ force_option = click.option("--force", is_flag=True,
                             help="Replace results already in the output folder.")
 
 
+
+def line_options(f):
+    """``--line``, ``--width-m`` and ``--line-margin-m`` (the driving line, lapbalance.line)."""
+    f = click.option("--line-margin-m", type=float, default=None, metavar="M",
+                     help="Clearance between the car's side and each track edge on the line "
+                          "[m] (default 0.25).")(f)
+    f = click.option("--width-m", "track_width_m", type=float, default=None, metavar="M",
+                     help="Track width [m], constant, replacing the track file's width.")(f)
+    f = click.option("--line", "line", type=click.Choice(["centreline", "min-curvature"]),
+                     default="centreline", show_default=True,
+                     help="Path the car drives: the track file's line, or the minimum-"
+                          "curvature line inside the track width (needs a width).")(f)
+    return f
+
+
+def apply_line(track, car, line, track_width_m, margin_m):
+    """The track a command runs on for the ``--line`` options (see lapbalance.line.on_line)."""
+    if line == "centreline" and track_width_m is None:
+        return track
+    from lapbalance import line as _line
+
+    margin = _line.LINE_MARGIN_M if margin_m is None else margin_m
+    return _line.on_line(track, line, car=car, margin_m=margin, width_m=track_width_m)
+
+
 def echo_json(obj) -> None:
     click.echo(json.dumps(obj, indent=2, allow_nan=False))
 

@@ -10,7 +10,8 @@ import click
 
 from lapbalance.car import load_car
 from lapbalance.cli import main
-from lapbalance.cli.common import echo_json, force_option, json_option, set_option, table
+from lapbalance.cli.common import (apply_line, echo_json, force_option, json_option,
+                                   line_options, set_option, table)
 from lapbalance.cli.lap_cmd import track_options
 from lapbalance.errors import InputError
 
@@ -216,10 +217,15 @@ def compare_figures_png(result, i: int, key: str) -> dict[str, bytes]:
 @force_option
 @json_option
 @track_options
+@line_options
 def compare_command(base_file, variant_files, track_files, set_variants, out_dir, plots,
-                    force, as_json, step_m, closed, start_speed_kph):
+                    force, as_json, step_m, closed, start_speed_kph, line, track_width_m,
+                    line_margin_m):
     """Run BASE_FILE and each VARIANT_FILE (car files, e.g. with base = "...") over every
-    --track; print lap times, deltas, aero balance and per-corner time won or lost."""
+    --track; print lap times, deltas, aero balance and per-corner time won or lost.
+
+    With --line min-curvature every car drives the line built for BASE_FILE's width, so the
+    comparison shows the cars, not their lines."""
     from lapbalance.compare import compare
 
     if not variant_files and not set_variants:
@@ -235,6 +241,7 @@ def compare_command(base_file, variant_files, track_files, set_variants, out_dir
             raise InputError(e.message, "--set-variant", e.field) from None
         variants.append(items)
     tracks = _load_tracks(track_files, step_m, closed)
+    tracks = [apply_line(t, base, line, track_width_m, line_margin_m) for t in tracks]
     opts = {"start_speed_kph": start_speed_kph} if start_speed_kph is not None else {}
     result = compare(base, variants, tracks, simulate_options=opts)
     if out_dir:
@@ -325,10 +332,15 @@ def format_sweep(rows, keys, limit: int = 30) -> str:
 @set_option
 @json_option
 @track_options
+@line_options
 def sweep_command(car_file, track_file, vary_specs, lhs_n, seed, workers, cluster, out_dir,
-                  force, overrides, as_json, step_m, closed, start_speed_kph):
+                  force, overrides, as_json, step_m, closed, start_speed_kph, line,
+                  track_width_m, line_margin_m):
     """Run CAR_FILE over TRACK_FILE at every point of a grid (or Latin hypercube) of car
-    settings; print lap time and lift-off figures per point."""
+    settings; print lap time and lift-off figures per point.
+
+    With --line min-curvature the line is built once for CAR_FILE's width (a swept
+    chassis.overall_width_m does not move it)."""
     from lapbalance.sweep import parse_vary, sweep
 
     method = "lhs" if lhs_n is not None else "grid"
@@ -340,6 +352,7 @@ def sweep_command(car_file, track_file, vary_specs, lhs_n, seed, workers, cluste
         vary[key] = values
     car = load_car(car_file, overrides)
     (track,) = _load_tracks([track_file], step_m, closed)
+    track = apply_line(track, car, line, track_width_m, line_margin_m)
     opts = {"start_speed_kph": start_speed_kph} if start_speed_kph is not None else {}
     bar = _Progress()
     try:

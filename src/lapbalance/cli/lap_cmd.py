@@ -6,7 +6,8 @@ import click
 
 from lapbalance.car import load_car
 from lapbalance.cli import main
-from lapbalance.cli.common import echo_json, force_option, json_option, set_option, table
+from lapbalance.cli.common import (apply_line, echo_json, force_option, json_option,
+                                   line_options, set_option, table)
 from lapbalance.liftoff import flagged, verdict_counts
 
 
@@ -39,6 +40,9 @@ def format_lap(result, liftoff_only: bool = False) -> str:
     if not liftoff_only:
         lines.append(f"{s['car']} on {s['track']} ({s['length_m']:.0f} m, "
                      f"{'closed lap' if s['closed'] else 'open run'})")
+        line_note = _line_note(result.track)
+        if line_note:
+            lines.append(line_note)
         lines.append(f"lap time {s['lap_time_s']:.3f} s   top {s['top_speed_kph']:.1f} km/h   "
                      f"min {s['min_speed_kph']:.1f} km/h   mean {s['mean_speed_kph']:.1f} km/h")
         bal_cg, bal_g = s["aero_balance_front_cg"], s["aero_balance_front_ground"]
@@ -93,6 +97,17 @@ def format_lap(result, liftoff_only: bool = False) -> str:
     return "\n".join(lines)
 
 
+def _line_note(track) -> str:
+    """One line on the driving line a lap ran on ('' for the track file's own line)."""
+    if getattr(track, "line", "centreline") == "centreline":
+        return ""
+    off = track.line_offset_m
+    return (f"driving line: {track.line} ({track.length_m:.0f} m against "
+            f"{track.reference_length_m:.0f} m on the track file's line; offset "
+            f"{off.min():+.2f} to {off.max():+.2f} m, left positive; car width "
+            f"{track.car_width_m:.2f} m, margin {track.margin_m:.2f} m)")
+
+
 def _num(x, fmt):
     return "" if x is None else format(x, fmt)
 
@@ -106,10 +121,11 @@ def _num(x, fmt):
 @json_option
 @force_option
 @track_options
+@line_options
 @click.option("--liftoff-only", is_flag=True, help="Print only the lift-off check.")
 @click.option("--plots", is_flag=True, help="Also write PNG figures into --out.")
 def lap_command(car_file, track_file, out_dir, overrides, as_json, force, step_m, closed,
-                start_speed_kph, liftoff_only, plots):
+                start_speed_kph, line, track_width_m, line_margin_m, liftoff_only, plots):
     """Run CAR_FILE around TRACK_FILE; print lap time, sectors, corners and lift-off flags."""
     from lapbalance.export import write_lap_folder
     from lapbalance.lap import simulate_lap
@@ -119,6 +135,7 @@ def lap_command(car_file, track_file, out_dir, overrides, as_json, force, step_m
 
         check_output_dir(out_dir, force)
     car, track = load_inputs(car_file, track_file, overrides, step_m, closed)
+    track = apply_line(track, car, line, track_width_m, line_margin_m)
     result = simulate_lap(car, track, start_speed_kph=start_speed_kph)
     if out_dir:
         extra = {}

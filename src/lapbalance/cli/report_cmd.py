@@ -8,7 +8,7 @@ import click
 
 from lapbalance.car import load_car
 from lapbalance.cli import main
-from lapbalance.cli.common import set_option
+from lapbalance.cli.common import apply_line, line_options, set_option
 from lapbalance.cli.lap_cmd import load_inputs, track_options
 
 
@@ -23,11 +23,13 @@ from lapbalance.cli.lap_cmd import load_inputs, track_options
               help="HTML file to write, e.g. report.html.")
 @click.option("--force", is_flag=True, help="Replace an existing report file.")
 @track_options
+@line_options
 def report_command(car_file, track_file, variants, overrides, out_file, force, step_m, closed,
-                   start_speed_kph):
+                   start_speed_kph, line, track_width_m, line_margin_m):
     """Run CAR_FILE (and every --variant) around TRACK_FILE; write a self-contained HTML report.
 
-    --set overrides apply to every car, so variants differ only by their own files.
+    --set overrides apply to every car, so variants differ only by their own files. With
+    --line min-curvature every car drives the line built for CAR_FILE's width.
     """
     from lapbalance.errors import InputError
     from lapbalance.lap import simulate_lap
@@ -38,6 +40,7 @@ def report_command(car_file, track_file, variants, overrides, out_file, force, s
         raise InputError("already exists; pass --force to replace it or choose another --out",
                          out)
     car, track = load_inputs(car_file, track_file, overrides, step_m, closed)
+    track = apply_line(track, car, line, track_width_m, line_margin_m)
     cars = [car] + [load_car(v, overrides) for v in variants]
     files = [car_file, *variants]
     labels = [c.name for c in cars]

@@ -10,9 +10,13 @@ import click
 import numpy as np
 
 from lapbalance.cli import main
-from lapbalance.cli.common import echo_json, json_option, table
+from lapbalance.cli.common import echo_json, json_option, line_options, table
 from lapbalance.errors import InputError
 from lapbalance.outputs import write_bytes_atomic
+
+#: Car width of ``--line`` without --car or --car-width-m [m]. Common practice: GT and
+#: open-wheel race cars are about 1.8-2.0 m wide.
+DEFAULT_CAR_WIDTH_M = 2.0
 
 if TYPE_CHECKING:
     from lapbalance.track import Track
@@ -43,7 +47,8 @@ def track_summary(tr: Track) -> dict:
 
 
 def track_map_png(tr: Track) -> bytes:
-    """Draw the track map (corners labelled at their apex) and return PNG bytes."""
+    """Draw the track map (corners labelled at their apex; edges and the driving line when
+    the track has a width) and return PNG bytes."""
     import matplotlib
 
     matplotlib.use("Agg")
@@ -54,7 +59,12 @@ def track_map_png(tr: Track) -> bytes:
     x, y = tr.x_m, tr.y_m
     if tr.closed:
         x, y = np.append(x, x[0]), np.append(y, y[0])
-    ax.plot(x, y, color="0.25", lw=1.5)
+    from lapbalance.plots import draw_track_edges
+
+    draw_track_edges(ax, tr, color="0.6")
+    on_line = getattr(tr, "line", "centreline") != "centreline"
+    ax.plot(x, y, color="tab:red" if on_line else "0.25", lw=1.5,
+            label=f"{tr.line} line" if on_line else None)
     ax.plot(tr.x_m[0], tr.y_m[0], "o", color="tab:green", label="start")
     if not tr.closed:
         ax.plot(tr.x_m[-1], tr.y_m[-1], "s", color="tab:red", label="finish")
@@ -95,15 +105,66 @@ def track_map_png(tr: Track) -> bytes:
               help="Force a closed circuit or an open stage (default: from the file).")
 @click.option("--map", "map_png", type=click.Path(dir_okay=False), default=None,
               metavar="PNG", help="Save a track map with corners labelled.")
+@line_options
+@click.option("--car-width-m", type=float, default=None, metavar="M",
+              help="Car width for --line min-curvature [m] (default 2.0, or from --car).")
+@click.option("--car", "car_file", type=click.Path(dir_okay=False), default=None,
+              help="Car file whose chassis.overall_width_m sets the car width.")
+@click.option("--out", "out_csv", type=click.Path(dir_okay=False), default=None,
+              metavar="CSV", help="Write the track (on --line, the line) as a track CSV that "
+              "the other commands read.")
+@click.option("--force", is_flag=True, help="Replace an existing --out file.")
 @json_option
-def track_command(track_file, step_m, closed, map_png, as_json):
-    """Load TRACK_FILE (CSV), print its length, corners and sectors."""
+def track_command(track_file, step_m, closed, map_png, line, track_width_m, line_margin_m,
+                  car_width_m, car_file, out_csv, force, as_json):
+    """Load TRACK_FILE (CSV), print its length, corners and sectors.
+
+    With --line min-curvature, build the minimum-curvature line inside the track width and
+    describe (and --out: export) that line instead.
+    """
+    from pathlib import Path
+
     from lapbalance.track import load_track
 
     if not 0 < step_m <= 50:
         raise InputError(f"= {step_m} must be between 0 and 50 m", "--step-m")
+    if out_csv and Path(out_csv).exists() and not force:
+        raise InputError("already exists; pass --force to replace it or choose another --out",
+                         out_csv)
+    if car_width_m is not None and car_file:
+        raise InputError("give --car or --car-width-m, not both", "--car-width-m")
     tr = load_track(track_file, step_m=step_m, closed=closed)
+    ref_length = tr.length_m
+    if line != "centreline" or track_width_m is not None:
+        from lapbalance import line as _line
+
+        margin = _line.LINE_MARGIN_M if line_margin_m is None else line_margin_m
+        if car_file:
+            from lapbalance.car import load_car
+
+            car_width_m = _line.car_width_m(load_car(car_file))
+        elif car_width_m is None:
+            car_width_m = DEFAULT_CAR_WIDTH_M
+        tr = _line.on_line(tr, line, car_width=car_width_m, margin_m=margin,
+                           width_m=track_width_m)
     info = track_summary(tr)
+    if getattr(tr, "line", "centreline") != "centreline":
+        info["line"] = {"kind": tr.line, "reference_length_m": round(ref_length, 3),
+                        "car_width_m": tr.car_width_m, "margin_m": tr.margin_m,
+                        "offset_min_m": round(float(tr.line_offset_m.min()), 4),
+                        "offset_max_m": round(float(tr.line_offset_m.max()), 4),
+                        "solver": {k: (round(v, 6) if isinstance(v, float) else v)
+                                   for k, v in (tr.solver or {}).items()}}
+    if out_csv:
+        from lapbalance.line import track_csv_text
+        from lapbalance.outputs import write_text_atomic
+
+        note = f"written by lapbalance track from {tr.source}"
+        if "line" in info:
+            note += (f"\n{tr.line} line for a car {tr.car_width_m:.2f} m wide, "
+                     f"{tr.margin_m:.2f} m from each edge")
+        write_text_atomic(out_csv, track_csv_text(tr, note))
+        info["out_csv"] = str(out_csv)
     if map_png:
         write_bytes_atomic(map_png, track_map_png(tr))
         info["map_png"] = str(map_png)
@@ -113,6 +174,12 @@ def track_command(track_file, step_m, closed, map_png, as_json):
     kind = "closed circuit" if tr.closed else "open stage"
     click.echo(f"{tr.name}  ({tr.source})")
     click.echo(f"{kind}, length {tr.length_m:.1f} m, {tr.n} points at {tr.step_m:.4f} m")
+    if "line" in info:
+        ln = info["line"]
+        click.echo(f"{tr.line} line for a car {tr.car_width_m:.2f} m wide, margin "
+                   f"{tr.margin_m:.2f} m: {ref_length - tr.length_m:+.1f} m shorter than the "
+                   f"track file's line ({ref_length:.1f} m); offset {ln['offset_min_m']:+.2f} "
+                   f"to {ln['offset_max_m']:+.2f} m (left positive)")
     extra = []
     if info["elevation_range_m"] > 0:
         extra.append(f"elevation range {info['elevation_range_m']:.1f} m, "
@@ -138,3 +205,5 @@ def track_command(track_file, step_m, closed, map_png, as_json):
     click.echo(table(srows, ["sector", "start_m", "end_m", "length_m"]))
     if map_png:
         click.echo(f"\nmap written to {map_png}")
+    if out_csv:
+        click.echo(f"\ntrack written to {out_csv}")
