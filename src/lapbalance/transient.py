@@ -10,8 +10,9 @@ axle with a relaxation-length lag — through the constant-radius procedure of I
    ``a_y0 = v²/R0``: steer angle, sideslip, drive force and axle forces by damped Newton
    iteration (:func:`steady_turn`);
 2. at ``t0 = 0`` the throttle is released: the drive force goes linearly, over
-   :data:`RAMP_S`, to the engine's overrun in the gear of the initial speed (held: ISO 9816 is
-   open-loop and the gear is not changed); the steering wheel is held;
+   :data:`RAMP_S`, to the engine's overrun in the test gear (:func:`iso_gear`: the lowest
+   gear but first with the engine at or below 80 % of its maximum-power speed, ISO 9816),
+   held through the run; the steering wheel is held;
 3. the model is integrated to ``t0 + 3 s`` with a fixed-step RK4 (:data:`STEP_S`);
 4. ``a_y0`` is stepped from 4 m/s² by :data:`AY_STEP` (<= 0.5 m/s²) to the model's own
    steady limit at that radius (:func:`sweep`).
@@ -78,9 +79,12 @@ RAMP_S = 0.1
 DURATION_S = 3.0
 #: Evaluation time after the lift [s] (ISO 9816: t_n = t0 + 1 s).
 EVAL_S = 1.0
-#: Integration step [s]; shortened so that it stays below a quarter of the tyre lag's time
-#: constant sigma/v. RK4 at this step matches a tight-tolerance stiff solver to ~1e-6.
-STEP_S = 0.002
+#: Largest integration step [s], shortened to at most LAG_STEPS times the tyre lag's time
+#: constant sigma/v (RK4 is stable on the lag mode up to 2.8 of it). Measured on the demo
+#: cars against a 0.5 ms run: yaw rate and sideslip
+#: within 2e-6 of their range at 4 ms (4e-5 at 8 ms).
+STEP_S = 0.004
+LAG_STEPS = 1.0
 #: First initial lateral acceleration and the step of the sweep [m/s²] (ISO 9816: start at
 #: about 4 m/s², steps of at most 0.5 m/s² where the response changes quickly).
 AY_START = 4.0
@@ -306,7 +310,8 @@ def _guess(model: Model, speed: float, radius: float) -> np.ndarray:
     return np.array([delta, beta, F, fyf, fyr])
 
 
-def _steady(model: Model, speed: float, radius: float, guess=None) -> SteadyTurn:
+def _steady(model: Model, speed: float, radius: float, guess=None,
+            ay: float | None = None) -> SteadyTurn:
     q = model.q
     q[_tk.Q_R0] = radius
     x0 = _guess(model, speed, radius) if guess is None else np.asarray(guess, float)
@@ -324,7 +329,7 @@ def _steady(model: Model, speed: float, radius: float, guess=None) -> SteadyTurn
     q[_tk.Q_DELTA], q[_tk.Q_F0] = x[0], x[2]
     _tk.deriv(-1.0, y, q, model.p, model.mx, model.my, model.mt, out, dy, aux)
     tr = model.car.transient
-    return SteadyTurn(radius, speed, speed * speed / radius, float(x[0]),
+    return SteadyTurn(radius, speed, speed * speed / radius if ay is None else ay, float(x[0]),
                       math.degrees(x[0]) * tr.steering_ratio, float(x[1]), float(x[2]),
                       float(aux[_tk.A_FYF]), float(aux[_tk.A_FYR]), float(aux[_tk.A_FZF]),
                       float(aux[_tk.A_FZR]), float(aux[_tk.A_UF]), float(aux[_tk.A_UR]),
@@ -364,7 +369,7 @@ def steady_turn(car: Car, radius: float, ay: float | None = None,
     if (ay is None) == (speed is None):
         raise ValueError("give exactly one of ay and speed")
     v = math.sqrt(ay * radius) if speed is None else float(speed)
-    return _steady(model_parameters(car), v, radius)
+    return _steady(model_parameters(car), v, radius, ay=ay)
 
 
 def steady_limit(car: Car, radius: float, model: Model | None = None,
@@ -459,20 +464,49 @@ def _step_for(model: Model, speed: float, step_s: float) -> float:
     if sig <= 0:
         return step_s
     tau = sig / max(speed, 1.0)
-    n = max(1, math.ceil(step_s / (0.25 * tau)))
+    n = max(1, math.ceil(step_s / (LAG_STEPS * tau)))
     return step_s / n
 
 
+def max_power_rpm(car: Car) -> float:
+    """Engine speed of the largest power on the full-load curve [rpm] (constant-power mode:
+    the shift point)."""
+    pt = car.powertrain
+    if pt.mode != "torque":
+        return pt.shift_rpm
+    rpm = np.asarray(pt.torque_curve_rpm, float)
+    return float(rpm[np.argmax(rpm * np.asarray(pt.torque_curve_nm, float))])
+
+
+def iso_gear(car: Car, speed: float) -> int:
+    """Gear index (0 = first) for an ISO 9816 run at ``speed`` [m/s]: the lowest gear, but
+    not first, in which the engine turns at or below 80 % of the maximum-power speed (the top
+    gear when none does; the only gear of a one-speed car)."""
+    pt = car.powertrain
+    w = speed / pt.wheel_radius * pt.final_drive * 60.0 / (2.0 * math.pi)
+    n = len(pt.gear_ratios)
+    lim = 0.8 * max_power_rpm(car)
+    for g in range(1 if n > 1 else 0, n):
+        if w * pt.gear_ratios[g] <= lim:
+            return g
+    return n - 1
+
+
 def _run(model: Model, steady: SteadyTurn, ramp_s: float, duration_s: float,
-         step_s: float) -> LiftRun:
+         step_s: float, gear_rule: str = "iso") -> LiftRun:
     car = model.car
     radius, v0 = steady.radius_m, steady.speed_mps
     q = model.q.copy()
     q[_tk.Q_R0] = radius
     q[_tk.Q_DELTA] = steady.steer_rad
     q[_tk.Q_F0] = steady.drive_force_n
-    g, _rpm = _k.gear_and_rpm(v0, model.p, model.gears)
-    f_over = float(_k.overrun_force(v0, model.p, model.gears))
+    pt = car.powertrain
+    if gear_rule == "iso":
+        g = iso_gear(car, v0)
+    else:  # the gear the lap solver uses at this speed
+        g, _rpm = _k.gear_and_rpm(v0, model.p, model.gears)
+    # engine overrun at the wheels in that gear (as kernels.overrun_force), held through the run
+    f_over = pt.overrun_torque * pt.gear_ratios[int(g)] * pt.final_drive / pt.wheel_radius
     q[_tk.Q_F1] = -f_over
     q[_tk.Q_RAMP] = max(float(ramp_s), 1e-9)
     dt = _step_for(model, v0, step_s)
@@ -587,7 +621,7 @@ def lift_off_run(car: Car, radius: float, ay0: float | None = None, *,
         raise ValueError("give exactly one of ay0 and speed")
     model = model or model_parameters(car, ramp_s)
     v = math.sqrt(ay0 * radius) if speed is None else float(speed)
-    s = _steady(model, v, radius)
+    s = _steady(model, v, radius, ay=ay0)
     if not s.ok:
         raise InputError(f"no steady turn at {v * v / radius:.2f} m/s² on {radius:g} m (beyond "
                          "the car's steady limit there); lower the lateral acceleration",
@@ -639,7 +673,7 @@ def sweep(car: Car, radius: float, *, ay_start: float = AY_START, ay_step: float
     guess = None
     for ay in sweep_levels(lim, ay_start, ay_step):
         v = math.sqrt(ay * radius)
-        s = _steady(model, v, radius, guess)
+        s = _steady(model, v, radius, guess, ay)
         if not s.ok:
             continue
         guess = s.x
@@ -666,7 +700,9 @@ def corner_runs(car: Car, corners, *, ramp_s: float = RAMP_S,
         Per corner: ``radius_m``, ``speed_kph`` (asked), ``ay0_mps2`` (used), ``at_limit``
         (True when the model's steady limit at that radius lies below the asked speed, so
         the run starts at that limit instead), ``status`` ("ok" or "no-steady-turn") and the
-        figures of :data:`FIGURES` (None when no run was possible).
+        figures of :data:`FIGURES` (None when no run was possible), ``gear`` and
+        ``overrun_force_n``. The gear is the one the lap solver uses at that speed (not the
+        ISO test gear), so the overrun matches the lap's lift-off check.
     """
     model = model_parameters(car, ramp_s)
     rows = []
@@ -697,7 +733,94 @@ def corner_runs(car: Car, corners, *, ramp_s: float = RAMP_S,
             row["status"] = "no-steady-turn"
             row.update({k: None for k in FIGURES})
         else:
-            run = _run(model, s, ramp_s, duration_s, step_s)
+            run = _run(model, s, ramp_s, duration_s, step_s, gear_rule="lap")
+            row["gear"] = run.gear
+            row["overrun_force_n"] = run.overrun_force_n
             row.update(run.figures)
         rows.append(row)
     return rows
+
+
+# ------------------------------------------------------------------------------------------------
+# Tables for output (plain data; files are written by the command through lapbalance.outputs)
+# ------------------------------------------------------------------------------------------------
+
+#: Columns of :func:`runs_csv` (initial state, then the figures).
+RUN_COLUMNS = ("radius_m", "ay0_mps2", "speed0_kph", "gear", "steering_wheel_deg",
+               "sideslip0_deg", "drive_force0_n", "overrun_force_n", "usage_front0",
+               "usage_rear0") + tuple(FIGURES)
+
+
+def _plain(v):
+    if isinstance(v, (bool, np.bool_)):
+        return bool(v)
+    if isinstance(v, (int, np.integer)):
+        return int(v)
+    v = float(v)
+    return v if math.isfinite(v) else None
+
+
+def runs_csv(sweeps) -> str:
+    """One CSV row per run of every sweep (columns :data:`RUN_COLUMNS`)."""
+    from lapbalance.outputs import csv_text
+
+    rows = []
+    for sw in sweeps:
+        for run in sw.runs:
+            r = run.row()
+            rows.append(["" if _plain(r[k]) is None else
+                         (int(r[k]) if isinstance(r[k], (bool, np.bool_)) else r[k])
+                         for k in RUN_COLUMNS])
+    return csv_text(RUN_COLUMNS, rows)
+
+
+def histories_csv(sweeps, every_s: float = 0.01) -> str:
+    """Time histories of every run, long format (radius, a_y0, then :data:`HISTORY`),
+    sampled every ``every_s`` [s]."""
+    from lapbalance.outputs import csv_text
+
+    names = [k for k in HISTORY]
+    header = ["radius_m", "ay0_mps2"] + names
+    rows = []
+    for sw in sweeps:
+        for run in sw.runs:
+            k = max(1, int(round(every_s / run.step_s)))
+            h = run.history
+            n = len(h["time_s"])
+            for i in range(0, n, k):
+                if not math.isfinite(h["time_s"][i]):
+                    break
+                rows.append([sw.radius_m, run.ay0_mps2] + [f"{h[c][i]:.6g}" for c in names])
+    return csv_text(header, rows)
+
+
+def sweep_summary(car: Car, sweeps, ramp_s: float = RAMP_S) -> dict:
+    """Plain-JSON summary of the sweeps: settings, limits, the linear figures and every run."""
+    ch = car.chassis
+    v_ref = 20.0
+    lm = linear_model(car, v_ref)
+    return {
+        "car": car.name,
+        "method": "ISO 9816 constant-radius method, left turn, steering wheel held",
+        "settings": {"ramp_s": ramp_s, "duration_s": DURATION_S, "eval_time_s": EVAL_S,
+                     "max_step_s": STEP_S, "spin_bound_deg": SPIN_BOUND_DEG,
+                     "stop_sideslip_deg": STOP_SIDESLIP_DEG, "limit_backoff_mps2": LIMIT_BACKOFF},
+        "linear": {"understeer_gradient_deg_per_g": lm["understeer_gradient_deg_per_g"],
+                   "understeer_gradient_rad_per_mps2": lm["understeer_gradient_rad_per_mps2"],
+                   "characteristic_speed_mps": _plain(lm["characteristic_speed_mps"]),
+                   "critical_speed_mps": _plain(lm["critical_speed_mps"]),
+                   "at_speed_mps": v_ref,
+                   "yaw_natural_frequency_hz": _plain(lm["natural_frequency_hz"]),
+                   "yaw_damping_ratio": _plain(lm["damping_ratio"]),
+                   "static_front_n": ch.mass * G0 * ch.b / ch.wheelbase},
+        "radii": [{"radius_m": sw.radius_m, "ay_limit_mps2": sw.ay_limit_mps2,
+                   "lap_ay_limit_mps2": sw.lap_ay_limit_mps2,
+                   "first_spin_ay0_mps2": next((r.ay0_mps2 for r in sw.runs
+                                                if r.figures["spin"]), None),
+                   "runs": [{k: _plain(v) for k, v in run.row().items()} for run in sw.runs]}
+                  for sw in sweeps],
+        "units": {**{k: u for k, (u, _) in FIGURES.items()}},
+        "caution": ("Single-track model estimate: confirm every setup change with qualified "
+                    "engineers and track testing, within the rules of the sanctioning body "
+                    "and local law."),
+    }

@@ -29,8 +29,8 @@ Gillespie [2] ch. 6; the steer-angle projections of the front forces kept):
 ``F_y,ss`` is a Magic-Formula-shaped curve (Pacejka [1] ch. 4, ``E = 0``):
 ``F = e D sin(C arctan(B alpha))`` with peak ``D`` = the lap's axle lateral capacity at the
 current wheel loads, ``B C D`` = the axle cornering stiffness (given at the static axle load,
-scaled by ``(F_z/F_z,static)^n`` with the current axle load), and ``e = sqrt(1 - (F_x/F_x,cap)^2)`` the
-friction-ellipse reduction for the axle's longitudinal demand (drive, or overrun on the driven
+scaled by ``(F_z/F_z,static)^n`` with the current axle load), and
+``e = sqrt(1 - (F_x/F_x,cap)^2)`` the friction-ellipse reduction for the axle's longitudinal demand (drive, or overrun on the driven
 axle, plus that axle's rolling resistance). A relaxation length of zero removes the lag (the
 axle forces are then algebraic).
 
