@@ -172,6 +172,12 @@ def deriv(t, y, q, p, mx, my, mt, out, dy, aux):
     ``out`` (length ``kernels.NOUT``) receives the lap state at this instant; ``aux``
     (length ``NA``) the auxiliary outputs. Returns the lap state's load status.
     """
+    return _deriv(t, y, q, p, mx, my, mt, out, dy, aux, True)
+
+
+@njit(cache=True, inline="always")
+def _deriv(t, y, q, p, mx, my, mt, out, dy, aux, full):
+    """:func:`deriv`; with ``full`` False only the forces of the aux outputs are filled."""
     m = p[P_MASS]
     a = p[P_A]
     b = p[P_B]
@@ -239,20 +245,22 @@ def deriv(t, y, q, p, mx, my, mt, out, dy, aux):
     dy[Y_X] = vx * c - vy * s
     dy[Y_Y] = vx * s + vy * c
     dy[Y_PSIREF] = v / q[Q_R0]
-    aux[A_V] = v
-    aux[A_BETA] = math.atan2(vy, vx)
-    aux[A_AX] = ax
-    aux[A_AY] = ay
     aux[A_FYF] = fyf
     aux[A_FYR] = fyr
     aux[A_FYSF] = fysf
     aux[A_FYSR] = fysr
+    aux[A_ALF] = alf
+    aux[A_ALR] = alr
+    if not full:
+        return st
+    aux[A_V] = v
+    aux[A_BETA] = math.atan2(vy, vx)
+    aux[A_AX] = ax
+    aux[A_AY] = ay
     aux[A_FZF] = out[O_FZF]
     aux[A_FZR] = out[O_FZR]
     aux[A_UF] = _usage(fxf, fyf, out[O_CAPXF], out[O_CAPYF])
     aux[A_UR] = _usage(fxr, fyr, out[O_CAPXR], out[O_CAPYR])
-    aux[A_ALF] = alf
-    aux[A_ALR] = alr
     aux[A_FD] = fd
     beta_dot = (vx * dy[Y_VY] - vy * dy[Y_VX]) / (v * v)
     aux[A_KAPPA] = (r + beta_dot) / v
@@ -294,13 +302,13 @@ def integrate(y0, q, p, mx, my, mt, dt, n_steps, stop_beta, v_stop, hist):
         h2 = 0.5 * dt
         for j in range(NY):
             yt[j] = y[j] + h2 * k1[j]
-        deriv(t + h2, yt, q, p, mx, my, mt, out, k2, aux)
+        _deriv(t + h2, yt, q, p, mx, my, mt, out, k2, aux, False)
         for j in range(NY):
             yt[j] = y[j] + h2 * k2[j]
-        deriv(t + h2, yt, q, p, mx, my, mt, out, k3, aux)
+        _deriv(t + h2, yt, q, p, mx, my, mt, out, k3, aux, False)
         for j in range(NY):
             yt[j] = y[j] + dt * k3[j]
-        deriv(t + dt, yt, q, p, mx, my, mt, out, k4, aux)
+        _deriv(t + dt, yt, q, p, mx, my, mt, out, k4, aux, False)
         for j in range(NY):
             y[j] += dt / 6.0 * (k1[j] + 2.0 * k2[j] + 2.0 * k3[j] + k4[j])
     return RUN_OK, n_steps + 1
