@@ -16,7 +16,7 @@ from lapbalance.lap import evaluate_forces, steady_state
 from lapbalance.units import G0
 from tests.helpers import make_car
 
-# The linear check car (REFERENCES-style textbook numbers, a = front axle to CG):
+# The linear check car (textbook-style numbers, a = front axle to CG):
 # m = 1200 kg, I_z = 1800 kg m², a = 1.1 m, b = 1.5 m, C_f = 80 kN/rad, C_r = 90 kN/rad.
 TR_LIN = {"yaw_inertia_kgm2": 1800.0, "cornering_stiffness_front_n_per_rad": 80000.0,
           "cornering_stiffness_rear_n_per_rad": 90000.0, "relaxation_length_m": 0.0,
@@ -259,7 +259,7 @@ def test_deriv_compiled_equals_python():
 
 @pytest.mark.parametrize("R, ay", [(40.0, 8.0), (100.0, 10.0)])
 def test_loads_and_capacities_are_the_lap_models(R, ay):
-    # Source: the transient model evaluates the lap's own state function (DESIGN load
+    # Source: the transient model evaluates the lap's own state function (loads.py load
     # decomposition, Gillespie ch. 1 axle-load equation) with its current speed, lateral
     # acceleration and net ground force; fed the same forces, the lap gives the same axle
     # loads and capacities (to rounding).
@@ -275,6 +275,13 @@ def test_loads_and_capacities_are_the_lap_models(R, ay):
         lap = evaluate_forces(car, v, ayb / v**2, drive_n=f_eff)
         assert h["fz_front_n"][i] == pytest.approx(lap["fzf"], rel=1e-12)
         assert h["fz_rear_n"][i] == pytest.approx(lap["fzr"], rel=1e-12)
+        # usages with the lap's capacities; the rear's own demand is the drive force (the
+        # -F_yf sin(delta) part of the ground force acts at the front contact patch)
+        uf = math.hypot(lap["fxf"] / lap["capxf"], h["fy_front_n"][i] / lap["capyf"])
+        fxr = lap["fxr"] + (fd - f_eff)
+        ur = math.hypot(fxr / lap["capxr"], h["fy_rear_n"][i] / lap["capyr"])
+        assert h["usage_front"][i] == pytest.approx(uf, rel=1e-12)
+        assert h["usage_rear"][i] == pytest.approx(ur, rel=1e-12)
 
 
 @pytest.mark.parametrize("R, ay, tol", [(40.0, 6.0, 0.05), (100.0, 6.0, 0.02),
@@ -379,7 +386,7 @@ def _yaw_ratio(run):
 @given(R=st.floats(60.0, 150.0), frac=st.floats(0.7, 0.97),
        bal=st.floats(0.30, 0.55), shift=st.floats(0.05, 0.15))
 def test_forward_cg_aero_balance_raises_the_yaw_rate_ratio(R, frac, bal, shift):
-    # Source: first principles (the lift-off mechanism, DESIGN/ISO 9816 reading): more of
+    # Source: first principles (the lift-off mechanism, ISO 9816 reading): more of
     # the downforce on the front axle leaves the rear nearer its limit for the same turn, so
     # the same lift moves the car further toward oversteer (yaw-rate ratio up). This holds
     # where the rear's grip governs the response: from ~0.7 of the steady limit, at speeds
@@ -418,7 +425,7 @@ def test_longer_relaxation_length_delays_the_sideslip_build_up(R, frac, sig, rat
 
 
 def test_tall_car_read_on_the_ground_spins_where_the_cg_read_one_does_not():
-    # Source: the wind-tunnel restraint correction (DESIGN convention table; Gillespie ch. 1
+    # Source: the wind-tunnel restraint correction (aero.py convention table; Gillespie ch. 1
     # moments about the contact points): a split read with the wheels restrained is short
     # of front load by D h/L, so the same numbers entered as "ground" carry CdA·h/L of
     # downforce area more on the front (CG convention) than entered as "cg". For this
