@@ -519,3 +519,16 @@ def test_corner_runs_take_lap_corner_rows_and_fall_back_to_the_limit():
     assert rows[0]["ay0_mps2"] == pytest.approx(0.8 * lim)
     assert rows[1]["at_limit"] and rows[1]["ay0_mps2"] == pytest.approx(lim - T.LIMIT_BACKOFF)
     assert set(T.FIGURES) <= set(rows[0])
+
+
+def test_steady_limit_respects_the_engine():
+    # Source: power balance on a gentle curve (first principles): the steady speed can be no
+    # higher than where the engine's power covers drag, P = ½ ρ CdA v³ (no rolling
+    # resistance here); 20 kW, CdA 0.8 m², ρ 1.225 -> v = 34.43 m/s, a_y = v²/R on 2 km.
+    # The cornering drag at 0.6 m/s² is below 0.5 % of the drag (tolerance 1 %).
+    car = make_car(powertrain={"power_kw": 20.0}, aero={"drag_area_m2": 0.8},
+                   transient=TR_LIN)
+    v = (20e3 / (0.5 * 1.225 * 0.8)) ** (1 / 3)
+    assert T.steady_limit(car, 2000.0) == pytest.approx(v * v / 2000.0, rel=1e-2)
+    with pytest.raises(InputError, match="the engine cannot hold that speed"):
+        T.lift_off_run(car, 2000.0, 1.2 * v * v / 2000.0)

@@ -163,6 +163,8 @@ class Model:
     my: np.ndarray
     mt: np.ndarray
     q: np.ndarray
+    trpm: np.ndarray = None
+    tnm: np.ndarray = None
 
 
 def model_parameters(car: Car, ramp_s: float = RAMP_S) -> Model:
@@ -190,7 +192,7 @@ def model_parameters(car: Car, ramp_s: float = RAMP_S) -> Model:
     q[_tk.Q_RAMP] = max(float(ramp_s), 1e-9)
     q[_tk.Q_R0] = 1.0
     q[_tk.Q_CEXP] = tr.cornering_stiffness_load_exponent
-    return Model(car, p, gears, mx, my, mt, q)
+    return Model(car, p, gears, mx, my, mt, q, trpm, tnm)
 
 
 # ------------------------------------------------------------------------------------------------
@@ -329,11 +331,20 @@ def _steady(model: Model, speed: float, radius: float, guess=None,
     q[_tk.Q_DELTA], q[_tk.Q_F0] = x[0], x[2]
     _tk.deriv(-1.0, y, q, model.p, model.mx, model.my, model.mt, out, dy, aux)
     tr = model.car.transient
-    return SteadyTurn(radius, speed, speed * speed / radius if ay is None else ay, float(x[0]),
+    if st == _tk.SS_OK and x[2] > 1.0 + _k.engine_force(speed, model.p, model.gears,
+                                                          model.trpm, model.tnm):
+        st = SS_ENGINE
+    ay = speed * speed / radius if ay is None else ay
+    return SteadyTurn(radius, speed, ay, float(x[0]),
                       math.degrees(x[0]) * tr.steering_ratio, float(x[1]), float(x[2]),
                       float(aux[_tk.A_FYF]), float(aux[_tk.A_FYR]), float(aux[_tk.A_FZF]),
                       float(aux[_tk.A_FZR]), float(aux[_tk.A_UF]), float(aux[_tk.A_UR]),
                       int(st), x.copy())
+
+
+#: Steady-turn status (beyond the kernel's ``SS_*``): the engine cannot give the drive force
+#: that the turn needs (drag, rolling resistance and the tyres' cornering drag).
+SS_ENGINE = 4
 
 
 def _initial_state(x, speed, radius) -> np.ndarray:
@@ -377,7 +388,8 @@ def steady_limit(car: Car, radius: float, model: Model | None = None,
     """Highest initial lateral acceleration v²/R [m/s²] of a steady turn on ``radius`` [m].
 
     Bisection on a_y between a steady turn that exists and one that does not (the iteration
-    fails or lands past a tyre curve's peak), bracketed from the lap's corner-speed limit at
+    fails, lands past a tyre curve's peak, or needs more drive than the engine gives),
+    bracketed from the lap's corner-speed limit at
     the same radius; ``tol`` [m/s²].
     """
     radius = _check_radius(radius)
@@ -623,9 +635,10 @@ def lift_off_run(car: Car, radius: float, ay0: float | None = None, *,
     v = math.sqrt(ay0 * radius) if speed is None else float(speed)
     s = _steady(model, v, radius, ay=ay0)
     if not s.ok:
-        raise InputError(f"no steady turn at {v * v / radius:.2f} m/s² on {radius:g} m (beyond "
-                         "the car's steady limit there); lower the lateral acceleration",
-                         car.source or "car")
+        why = ("the engine cannot hold that speed there" if s.status == SS_ENGINE else
+               "beyond the car's steady limit there")
+        raise InputError(f"no steady turn at {v * v / radius:.2f} m/s² on {radius:g} m ({why}); "
+                         "lower the lateral acceleration", car.source or "car")
     return _run(model, s, ramp_s, duration_s, step_s)
 
 
