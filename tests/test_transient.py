@@ -284,24 +284,28 @@ def test_loads_and_capacities_are_the_lap_models(R, ay):
         assert h["usage_rear"][i] == pytest.approx(ur, rel=1e-12)
 
 
-@pytest.mark.parametrize("R, ay, tol", [(40.0, 6.0, 0.05), (100.0, 6.0, 0.02),
-                                        (400.0, 6.0, 0.006)])
-def test_steady_state_usages_agree_with_the_lap_model(R, ay, tol):
+@pytest.mark.parametrize("R", [40.0, 100.0, 400.0])
+def test_steady_state_usages_agree_with_the_lap_model(R):
     # Source: the two models overlap in the steady turn: same loads, capacities and lateral
-    # demand m a_y b/L, m a_y a/L. They differ only by what the point-mass lap leaves out:
-    # the tyres' cornering drag (-F_yf sin(delta), m v_y r) that the drive force must hold
-    # and its pitch transfer X h/L, and cos(delta). Those scale with the steer and sideslip
-    # angles, so the usages agree more closely as the radius grows (tolerances: the measured
-    # gap rounded up, ~L/R and slip-angle sized; derived here, not published values).
+    # demand (m a_y b/L, m a_y a/L). They differ only by what the point-mass lap leaves out:
+    # the tyres' cornering drag (F_yf sin(delta) + m |v_y| r, of order m a_y times a slip
+    # angle, so growing like a_y²) that the drive force must hold, its pitch transfer
+    # X h/L, and cos(delta). Derived bound, checked here: the usages agree within 2.5 % of
+    # the usage (measured up to 1.8 %, at 400 m and 8 m/s² where the drive force is large),
+    # and the extra drive force grows at least fourfold from 2 to 8 m/s² (a_y² scaling:
+    # sixteenfold; the rest of the drive holds drag, which grows like v² = a_y R).
     car = gt_car()
-    s = T.steady_turn(car, R, ay=ay)
-    lap = steady_state(car, s.speed_mps, 1.0 / R)
-    assert s.ok
-    assert s.usage_front == pytest.approx(lap["uf"], abs=tol)
-    assert s.usage_rear == pytest.approx(lap["ur"], abs=tol)
-    # the lateral forces are the steady demand to cos(delta) and the small x-components
-    L = 2.6
-    assert s.fy_rear_n == pytest.approx(1200.0 * s.ay_mps2 * 1.2 / L, rel=2 * tol)
+    extra = []
+    for ay in (1.0, 2.0, 4.0, 8.0):
+        s = T.steady_turn(car, R, ay=ay)
+        lap = steady_state(car, s.speed_mps, 1.0 / R)
+        assert s.ok
+        assert s.usage_front == pytest.approx(lap["uf"], rel=0.025, abs=1e-3)
+        assert s.usage_rear == pytest.approx(lap["ur"], rel=0.025, abs=1e-3)
+        assert s.fy_rear_n == pytest.approx(1200.0 * ay * 1.2 / 2.6, rel=0.01)
+        extra.append(s.drive_force_n - lap["control_n"])
+    assert 0 < extra[0] < extra[1] < extra[2] < extra[3]
+    assert extra[3] > 4 * extra[1]
 
 
 def test_steady_limit_is_close_to_the_lap_limit_and_below_it():

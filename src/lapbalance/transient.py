@@ -44,6 +44,18 @@ Figures per run (names our own; evaluation time ``t_n = t0 + 1 s``, ISO 9816 [1]
 
 The model is symmetric: a right-hand corner gives the same figures as the left-hand run.
 
+Notes
+-----
+Validity: single-track (no roll or pitch dynamics; the load transfers are instantaneous),
+open-loop (steering wheel held), level road, sideslip below :data:`STOP_SIDESLIP_DEG`. The
+axle cornering stiffness grows with axle load as ``(F_z/F_z,static)^n``; the default
+``n = 0.6`` is the local exponent of the Magic Formula's cornering-stiffness law
+``K_y = p_Ky1 F_z0 sin(2 arctan(F_z/(p_Ky2 F_z0)))`` at nominal load with ``p_Ky2 = 2``
+(Pacejka [2] ch. 4; the law and the typical ``p_Ky2`` from memory): ``1 - 2x²/(1 + x²)`` with
+``x = 1/2``. The steady limit sits a few per cent below the lap's because the single-track
+model carries the tyres' cornering drag (``F_yf sin(delta)`` and ``m v_y r``) and its pitch
+transfer, which the point-mass lap leaves out.
+
 References
 ----------
 .. [1] ISO 9816:2018, Passenger cars — Power-off reaction of a vehicle in a turn — Open-loop

@@ -34,6 +34,12 @@ def format_sweep(car, sw) -> str:
         lines.append(table(rows, ["ay0 m/s²", "km/h", "gear", "wheel°", "slip0°", "yaw ratio",
                                   "yaw Δ°", "Δslip°", "peak Δ°", "at s", "R/R0", "dev m",
                                   "decel", "spin"]))
+        spin = next((r.ay0_mps2 for r in sw.runs if r.figures["spin"]), None)
+        if spin is None:
+            lines.append("no spin up to the steady limit")
+        else:
+            lines.append(f"first spin at a_y0 = {spin:.2f} m/s² "
+                         f"({spin / sw.ay_limit_mps2 * 100:.0f} % of the steady limit)")
     else:
         lines.append("no steady turn from the first a_y0 up to the limit at this radius")
     return "\n".join(lines)
