@@ -536,3 +536,26 @@ def test_steady_limit_respects_the_engine():
     assert T.steady_limit(car, 2000.0) == pytest.approx(v * v / 2000.0, rel=1e-2)
     with pytest.raises(InputError, match="the engine cannot hold that speed"):
         T.lift_off_run(car, 2000.0, 1.2 * v * v / 2000.0)
+
+
+def test_corner_runs_on_a_lap_corner_table():
+    # Source: first principles: the lap puts one axle at its limit at every limiting apex;
+    # the single-track model's steady limit is a little lower (cornering drag), so those
+    # corners run at that limit and say so; every corner gets the lap's gear and a run.
+    from pathlib import Path
+
+    from lapbalance.car import load_car
+    from lapbalance.lap import simulate_lap
+    from lapbalance.track import load_track
+
+    root = Path(__file__).resolve().parents[1]
+    car = load_car(root / "examples" / "gt_coupe.toml")
+    res = simulate_lap(car, load_track(root / "tracks" / "veldmoor_ring.csv"))
+    rows = T.corner_runs(car, res.corners)
+    assert len(rows) == len(res.corners) > 3
+    for c, r in zip(res.corners, rows, strict=True):
+        assert r["status"] == "ok"
+        assert r["radius_m"] == pytest.approx(c["min_radius_m"])
+        assert r["ay0_mps2"] <= (c["min_speed_kph"] / 3.6) ** 2 / c["min_radius_m"] + 1e-9
+        assert r["yaw_rate_ratio"] is not None and r["gear"] >= 1
+    assert any(r["at_limit"] for r in rows)
