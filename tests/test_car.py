@@ -283,3 +283,7 @@ def test_transient_section_keys_and_units():
     with pytest.raises(InputError,
                        match="transient.yaw_inertia_kgm2: = 0 kg·m² is not physical"):
         make_car(transient={**tr, "yaw_inertia_kgm2": 0.0})
+    # a spreadsheet's N/deg value under the N/rad key
+    with pytest.raises(InputError, match=r"= 1400 N/rad looks like N/deg.*"
+                                         r"cornering_stiffness_rear_n_per_deg = 1400"):
+        make_car(transient={**tr, "cornering_stiffness_rear_n_per_rad": 1400.0})

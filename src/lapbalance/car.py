@@ -780,6 +780,14 @@ def _build_transient(flat: dict, src: str) -> Transient | None:
     if not any(s == "transient" for (s, _) in flat):
         return None
     v = _section_values(flat, "transient", src)
+    for axle in ("front", "rear"):
+        c = v[f"cornering_stiffness_{axle}"]
+        key = f"cornering_stiffness_{axle}_n_per_rad"
+        if ("transient", key) in flat and c < 8000.0:  # no car axle is that soft per radian
+            raise InputError(f"= {c:g} N/rad looks like N/deg (a car axle has 20 000 N/rad or "
+                             f"more); write cornering_stiffness_{axle}_n_per_deg = {c:g} or "
+                             f"{c * 180.0 / math.pi:.0f} N/rad",
+                             _src(v, f"cornering_stiffness_{axle}", src), f"transient.{key}")
     return Transient(v["yaw_inertia"], v["cornering_stiffness_front"],
                      v["cornering_stiffness_rear"], v["relaxation_length"],
                      v["steering_ratio"], v["shape_factor"],
