@@ -68,7 +68,7 @@ def make_car(**sections):
         if sec == "name":
             raw["name"] = upd
             continue
-        target = raw[sec]
+        target = raw.setdefault(sec, {})
         for k, v in upd.items():
             if isinstance(v, dict):
                 sub = target.setdefault(k, {})

@@ -273,3 +273,24 @@ def test_air_density_default_is_iso_sea_level(tmp_path):
 def test_air_density_and_conditions_together_is_an_error(tmp_path):
     p = _edited(tmp_path, "temperature_c = 25.0\n", "temperature_c = 25.0\ndensity_kg_m3 = 1.2\n")
     _both(p, r"give either density_kg_m3 or the conditions")
+
+
+def test_transient_section_keys_and_units():
+    # Source: definition of the degree: 1 N/deg = 180/pi N/rad.
+    from tests.helpers import make_car
+
+    tr = {"yaw_inertia_kgm2": 1800.0, "cornering_stiffness_front_n_per_deg": 1400.0,
+          "cornering_stiffness_rear_n_per_rad": 90000.0, "relaxation_length_m": 0.5,
+          "steering_ratio": 15.0}
+    car = make_car(transient=tr)
+    assert car.transient.cornering_stiffness_front == pytest.approx(1400.0 * 57.29577951308232)
+    assert car.transient.cornering_stiffness_load_exponent == 0.6
+    with pytest.raises(InputError, match='unknown key "transient.yaw_inertia"'):
+        make_car(transient={**tr, "yaw_inertia": 1.0})
+    with pytest.raises(InputError,
+                       match="transient.yaw_inertia_kgm2: = 0 kg·m² is not physical"):
+        make_car(transient={**tr, "yaw_inertia_kgm2": 0.0})
+    # a spreadsheet's N/deg value under the N/rad key
+    with pytest.raises(InputError, match=r"= 1400 N/rad looks like N/deg.*"
+                                         r"cornering_stiffness_rear_n_per_deg = 1400"):
+        make_car(transient={**tr, "cornering_stiffness_rear_n_per_rad": 1400.0})

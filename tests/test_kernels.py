@@ -13,10 +13,11 @@ from tests.helpers import make_car
 
 SRC = Path(__file__).resolve().parents[1] / "src" / "lapbalance"
 ALLOWED = {"math", "numpy", "numba", "__future__", "lapbalance.loads", "lapbalance.tyre",
-           "lapbalance.units"}
+           "lapbalance.units", "lapbalance.kernels"}
 
 
-@pytest.mark.parametrize("module", ["kernels.py", "loads.py", "tyre.py"])
+@pytest.mark.parametrize("module", ["kernels.py", "loads.py", "tyre.py",
+                                    "transient_kernels.py"])
 def test_kernel_modules_import_only_numeric_libraries(module):
     # Common practice (DEVELOPERS.md, layers): kernels import only math, numpy, numba (and each
     # other).

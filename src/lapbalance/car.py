@@ -205,6 +205,32 @@ SCHEMA: dict[str, tuple[Key, ...]] = {
         Key("relative_humidity_pct", "relative_humidity", "%", scale=1e-2, lo=0, hi=1,
             slips=((1e2, "a fraction"),), doc="Relative humidity (CIPM-2007 formula)."),
     ),
+    "transient": (
+        Key("yaw_inertia_kgm2", "yaw_inertia", "kg·m²", lo=10, hi=1e6, required=True,
+            doc="Yaw moment of inertia about the vertical axis through the CG (single-track "
+                "lift-off runs)."),
+        Key("cornering_stiffness_front_n_per_rad", "cornering_stiffness_front", "N/rad",
+            lo=1e3, hi=5e6, required=True,
+            alts=(("cornering_stiffness_front_n_per_deg", 180.0 / math.pi, "N/deg"),),
+            doc="Front axle (both tyres) cornering stiffness at the static axle load (see "
+                "cornering_stiffness_load_exponent for its growth with load on track)."),
+        Key("cornering_stiffness_rear_n_per_rad", "cornering_stiffness_rear", "N/rad",
+            lo=1e3, hi=5e6, required=True,
+            alts=(("cornering_stiffness_rear_n_per_deg", 180.0 / math.pi, "N/deg"),),
+            doc="Rear axle (both tyres) cornering stiffness at the static axle load."),
+        Key("relaxation_length_m", "relaxation_length", "m", lo=0, hi=3, required=True,
+            alts=(("relaxation_length_mm", MM, "mm"),), slips=MM_SLIP,
+            doc="Tyre lateral relaxation length (0 = no lag)."),
+        Key("steering_ratio", "steering_ratio", "-", lo=1, hi=40, required=True,
+            doc="Steering-wheel angle per road-wheel angle."),
+        Key("cornering_stiffness_load_exponent", "cornering_stiffness_load_exponent", "-",
+            lo=0.0, hi=1.0, default=0.6,
+            doc="Exponent n of the cornering stiffness's growth with axle load, C = C_static "
+                "(Fz/Fz_static)^n (0 = constant, 1 = in proportion)."),
+        Key("shape_factor", "shape_factor", "-", lo=1.0, hi=1.9, default=1.3,
+            doc="Magic Formula shape factor C of the axle lateral-force curve (its peak is "
+                "the lap's axle capacity)."),
+    ),
 }
 
 _TYRE_KEYS = (
@@ -380,6 +406,28 @@ class Air:
 
 
 @dataclass(frozen=True)
+class Transient:
+    """Single-track data for lift-off runs (section ``[transient]``).
+
+    yaw_inertia [kg·m²]; cornering_stiffness_front/rear: axle cornering stiffness at the
+    static axle load [N/rad]; relaxation_length [m]; steering_ratio [-]; shape_factor:
+    Magic Formula C [-]; cornering_stiffness_load_exponent: n in C ∝ Fz^n [-].
+    """
+
+    yaw_inertia: float
+    cornering_stiffness_front: float
+    cornering_stiffness_rear: float
+    relaxation_length: float
+    steering_ratio: float
+    shape_factor: float = 1.3
+    cornering_stiffness_load_exponent: float = 0.6
+
+
+#: Keys a lift-off run needs (named in the message when the section is missing).
+TRANSIENT_REQUIRED = tuple(k.name for k in SCHEMA["transient"] if k.required)
+
+
+@dataclass(frozen=True)
 class Car:
     """A complete car. Every field is in SI units; see the section classes."""
 
@@ -394,6 +442,7 @@ class Car:
     air: Air
     source: str = ""
     raw: dict = field(default_factory=dict, repr=False, compare=False)
+    transient: Transient | None = None
 
     @property
     def weight(self) -> float:
@@ -735,7 +784,27 @@ def build_car(flat: dict, source: str, folder: Path) -> Car:
     aero = _build_aero(_section_values(flat, "aero", src), chassis, sus, air, src, folder)
     raw = {k: v for k, v in flat.items()}
     return Car(top["name"], top["description"] or "", chassis, aero, tyres, pt,
-               Brakes(br["bias_front"]), sus, air, source, raw)
+               Brakes(br["bias_front"]), sus, air, source, raw,
+               transient=_build_transient(flat, src))
+
+
+def _build_transient(flat: dict, src: str) -> Transient | None:
+    """The optional ``[transient]`` section, or None when the file has none."""
+    if not any(s == "transient" for (s, _) in flat):
+        return None
+    v = _section_values(flat, "transient", src)
+    for axle in ("front", "rear"):
+        c = v[f"cornering_stiffness_{axle}"]
+        key = f"cornering_stiffness_{axle}_n_per_rad"
+        if ("transient", key) in flat and c < 8000.0:  # no car axle is that soft per radian
+            raise InputError(f"= {c:g} N/rad looks like N/deg (a car axle has 20 000 N/rad or "
+                             f"more); write cornering_stiffness_{axle}_n_per_deg = {c:g} or "
+                             f"{c * 180.0 / math.pi:.0f} N/rad",
+                             _src(v, f"cornering_stiffness_{axle}", src), f"transient.{key}")
+    return Transient(v["yaw_inertia"], v["cornering_stiffness_front"],
+                     v["cornering_stiffness_rear"], v["relaxation_length"],
+                     v["steering_ratio"], v["shape_factor"],
+                     v["cornering_stiffness_load_exponent"])
 
 
 def _src(vals: dict, attr: str, default: str) -> str:
