@@ -416,3 +416,25 @@ def test_liftoff_does_not_import_the_lap_solver():
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
                          check=True)
     assert out.stdout.strip() == "False"
+
+
+def test_compare_reports_margin_and_its_delta_per_corner():
+    # Source: definition (compare's delta = variant minus base, per corner).
+    from lapbalance.compare import compare
+
+    track = _five_corners()
+    res = compare(_tall_car("cg"), [_tall_car("ground")], [track], ["cg", "ground"],
+                  simulate_options={"start_speed_kph": 100.0})
+    laps = {lab: {c["id"]: c for c in lap.corners}
+            for lab, lap in zip(res.labels, res.laps[0], strict=True)}
+    segs = [s for s in res.segments if s["car"] == "ground" and s["kind"] == "corner"]
+    assert segs
+    for s in segs:
+        g, c = laps["ground"][s["corner_id"]], laps["cg"][s["corner_id"]]
+        assert s["liftoff_margin"] == g["liftoff_margin"]
+        assert s["liftoff_margin_delta"] == pytest.approx(g["liftoff_margin"]
+                                                          - c["liftoff_margin"], abs=1e-12)
+        assert s["liftoff_rear_reserve_delta"] < 0.0
+    summ = {r["car"]: r for r in res.summary}
+    assert summ["cg"]["liftoff_margin_delta"] == 0.0
+    assert summ["ground"]["liftoff_margin_delta"] < -0.03

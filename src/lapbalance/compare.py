@@ -74,13 +74,16 @@ class CompareResult:
         ``aero_balance_front_low`` / ``_high`` [-] (CG convention), the same with
         ``_ground`` [-], ``liftoff_worst_shift`` [-], ``flagged_corners`` [-],
         ``liftoff_margin_min`` [-] (smallest corner lift-off margin, NaN when none checked),
-        ``liftoff_margin_delta`` [-] (car minus base; > 0 = the car keeps more margin).
+        ``liftoff_margin_delta`` [-] (car minus base; > 0 = the car keeps more margin),
+        ``liftoff_reserve_min`` [-] (smallest rear reserve after a lift at the limit; it ranks
+        cars whose margin is 1) and ``liftoff_reserve_delta`` [-] (car minus base).
     segments : list of dict
         Per track, car and segment: ``track``, ``car``, ``segment`` ("C<id>" or "S<n>"),
         ``kind`` ("corner"/"straight"), ``corner_id``, ``start_m``, ``end_m`` [m],
         ``time_s`` [s], ``delta_s`` [s] (car minus base), ``min_speed_kph`` [km/h] and for
         corners ``liftoff_verdict``, ``liftoff_margin`` [-], ``liftoff_margin_delta`` [-]
-        (car minus base), ``liftoff_rear_reserve`` [-], ``liftoff_max_shift`` [-],
+        (car minus base), ``liftoff_rear_reserve`` [-], ``liftoff_rear_reserve_delta`` [-]
+        (car minus base), ``liftoff_max_shift`` [-],
         ``liftoff_max_usage_rear`` [-].
     speed_bands_kph : tuple of float
         The low/high speed bands used for the aero balance. [km/h]
@@ -389,6 +392,8 @@ def compare(base_car, variants, tracks, labels: Sequence[str] | None = None, *,
         base = laps[0]
         base_min = _nan(smallest_margin(base.corners))
         base_margin = {c["id"]: _nan(c.get("liftoff_margin")) for c in base.corners}
+        base_reserve = {c["id"]: _nan(c.get("liftoff_rear_reserve")) for c in base.corners}
+        base_rmin = _min_reserve(base.corners)
         for j, (label, r) in enumerate(zip(labels, laps, strict=True)):
             lo_cg, hi_cg = _band_mean(r, low, high, "aero_balance_front")
             lo_g, hi_g = _band_mean(r, low, high, "aero_balance_front_ground")
@@ -405,6 +410,8 @@ def compare(base_car, variants, tracks, labels: Sequence[str] | None = None, *,
                 "flagged_corners": len(flagged(r.corners)),
                 "liftoff_margin_min": _nan(smallest_margin(r.corners)),
                 "liftoff_margin_delta": _nan(smallest_margin(r.corners)) - base_min,
+                "liftoff_reserve_min": _min_reserve(r.corners),
+                "liftoff_reserve_delta": _min_reserve(r.corners) - base_rmin,
             })
             crow = {c["id"]: c for c in r.corners}
             for s, t, tb in zip(segs, seg_t[j], seg_t[0], strict=True):
@@ -412,6 +419,7 @@ def compare(base_car, variants, tracks, labels: Sequence[str] | None = None, *,
                        "min_speed_kph": _segment_min_speed(r, s),
                        "liftoff_verdict": None, "liftoff_margin": math.nan,
                        "liftoff_margin_delta": math.nan, "liftoff_rear_reserve": math.nan,
+                       "liftoff_rear_reserve_delta": math.nan,
                        "liftoff_max_shift": math.nan, "liftoff_max_usage_rear": math.nan}
                 c = crow.get(s["corner_id"]) if s["kind"] == "corner" else None
                 if c is not None:
@@ -421,6 +429,8 @@ def compare(base_car, variants, tracks, labels: Sequence[str] | None = None, *,
                         row[k] = _nan(c.get(k))
                     row["liftoff_margin_delta"] = (row["liftoff_margin"]
                                                    - base_margin.get(c["id"], math.nan))
+                    row["liftoff_rear_reserve_delta"] = (row["liftoff_rear_reserve"]
+                                                         - base_reserve.get(c["id"], math.nan))
                 segments.append(row)
     return CompareResult(list(labels), keys, all_laps, summary, segments,
                          (low, high))
@@ -428,6 +438,12 @@ def compare(base_car, variants, tracks, labels: Sequence[str] | None = None, *,
 
 def _nan(x) -> float:
     return math.nan if x is None else float(x)
+
+
+def _min_reserve(corners) -> float:
+    vals = [c["liftoff_rear_reserve"] for c in corners
+            if c.get("liftoff_rear_reserve") is not None]
+    return min(vals) if vals else math.nan
 
 
 class _CallableModule(types.ModuleType):
