@@ -9,7 +9,8 @@ to plain tables (lists of dict rows, SI or unit-named keys) that the CLI prints 
     margin over the corners and its change from the base.
 ``segments``
     one row per track, car and lap segment (corners carry their lift-off margin and its
-    change from the base: wing packages compared on lift-off safety, not only on time). The lap is cut into **corners** (from the corner's
+    change from the base: wing packages compared on lift-off safety, not only on time).
+    The lap is cut into **corners** (from the corner's
     ``entry_m`` to its ``exit_m``, as the track defines them) and the **straights** between
     them (from one corner's exit to the next corner's entry; on a closed lap the last straight
     runs through the start line to the first corner). The segments tile the lap exactly once,

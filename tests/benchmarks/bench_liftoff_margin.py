@@ -3,8 +3,10 @@
 Times a whole ``simulate_lap`` on the generated 5 km circuit of ``bench_lap.py`` (1 m step,
 after the compile), the same with the margin kernel (:func:`lapbalance.kernels.liftoff_margins`)
 replaced by a lookup of its result (the lap without the margin solve), and the kernel alone.
-Reports what the margin adds as a ratio to the lap without it. Target (issue): the margin adds at most 30 % to a lap's solve time.
-Pass ``--single-thread`` to pin numba to one thread.
+Reports what the margin adds as a ratio to the lap without it (fastest of 40 alternating runs
+each, in process CPU time, so other work on the machine disturbs it least). Target (issue):
+the margin adds at most 30 % to a lap's solve time. Run with ``NUMBA_NUM_THREADS=1`` for the
+one-core figure; ``--single-thread`` pins numba to one thread from inside.
 """
 
 from __future__ import annotations
