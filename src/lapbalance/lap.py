@@ -159,7 +159,8 @@ class LapResult:
         return [LIMIT_NAMES[int(c)] for c in self.channels["limit"]]
 
     def summary(self) -> dict:
-        """Plain-JSON summary (lap time, speeds, sectors, corners, settings)."""
+        """Plain-JSON summary (lap time, speeds, sectors, smallest lift-off margin and verdict
+        counts, corners, settings)."""
         ch = self.channels
         v = ch["speed_mps"]
         return {
@@ -176,6 +177,8 @@ class LapResult:
                 self.car.chassis.cg_height, self.car.chassis.wheelbase)),
             "air_density_kg_m3": float(self.car.air.density),
             "sectors": self.sectors,
+            "liftoff_margin_min": liftoff.smallest_margin(self.corners),
+            "liftoff_verdicts": liftoff.verdict_counts(self.corners) if self.corners else {},
             "corners": [{k: _jsonable(v) for k, v in c.items()} for c in self.corners],
             "settings": {k: _jsonable(v) for k, v in self.settings.items()},
             "caution": CAUTION,

@@ -17,11 +17,20 @@ grades a **margin**:
     (:func:`lapbalance.kernels.lift_state`). λ is a_y at the highest speed whose lift keeps
     ``u_r <= 1``, over a_y at the limit. λ = 1: a lift at the very limit keeps the rear.
     Solved on speed by bracketing down from the limit and the Illinois method
-    (:func:`lapbalance.kernels.liftoff_safe_speed`). The same again coasting (no engine
-    braking) gives ``coast_margin``.
+    (:func:`lapbalance.kernels.liftoff_safe_speed`): the answer is the first safe speed
+    below the limit, so a band of unsafe speeds further down (a lower gear with stronger
+    engine braking, say) does not lower it. The same again coasting (no engine braking) gives
+    ``coast_margin``.
 ``liftoff_rear_reserve``
     ``1 - u_r`` after a lift at the limit speed: negative = the rear saturates. It ranks the
     corners where λ = 1 (λ < 1 exactly when the reserve is negative).
+
+Why the fraction and not only the speed: where the front axle sets the limit, moving the aero
+balance rearward or adding rear downforce can only raise λ, and more engine overrun can only
+lower it. Where the rear sets the limit on throttle, added rear downforce raises the limit
+relatively more than the safe-lift speed, so λ can fall slightly while the safe-lift speed
+rises (tests/test_liftoff_margin.py derives this in closed form); compare both when judging
+a rear-limited package.
 ``liftoff_speed_margin_kph``
     limit speed minus the safe-lift speed.
 
