@@ -59,7 +59,7 @@ def test_liftoff_only_prints_flags():
     r = CliRunner().invoke(main, ["lap", str(ROOT / "examples" / "offroad_truck.toml"), RING,
                                   "--liftoff-only"])
     assert r.exit_code == 0
-    assert "REAR-SATURATES" in r.output and "lap time" not in r.output
+    assert "LIFT-CRITICAL" in r.output and "lap time" not in r.output
 
 
 def test_bad_override_exits_2_one_line():

@@ -55,22 +55,6 @@ def test_reference_rwd_liftoff_balance_change():
         assert CASES[cid].value() == CASES[cid].approx(), cid
 
 
-def test_verdict_rules_follow_thresholds():
-    # Source: the documented rules of liftoff.verdict (no physics value involved).
-    t = liftoff.Thresholds()
-    base = {"balance_shift": 0.02, "speed_kph": 80.0, "usage_rear_off": 0.80}
-    assert liftoff.verdict(base, base, t)[0] == "stable"
-    assert liftoff.verdict(base, {**base, "usage_rear_off": 0.96}, t)[0] == "watch"
-    assert liftoff.verdict(base, {**base, "usage_rear_off": 1.02}, t)[0] == "rear-saturates"
-    fast = {**base, "balance_shift": 0.12, "speed_kph": 200.0, "usage_rear_off": 0.90}
-    assert liftoff.verdict(fast, base, t)[0] == "watch"
-    freed_front = {**fast, "usage_rear_off": 0.60}
-    assert liftoff.verdict(freed_front, base, t)[0] == "stable"
-    slow = {**base, "balance_shift": 0.12, "speed_kph": 100.0}
-    assert liftoff.verdict(slow, base, t)[0] == "stable"
-    assert liftoff.verdict(None, None, t)[0] == "not-checked"
-
-
 def test_straight_line_is_not_checked():
     # Source: definition (the check applies only when cornering above the a_y threshold).
     from tests.helpers import straight

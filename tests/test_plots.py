@@ -146,7 +146,7 @@ def test_track_map_marks_flagged_corners_by_verdict(laps):
     verdicts = {c["liftoff_verdict"] for c in r.corners}
     fig = plots.track_map_figure(r)
     legend = [t.get_text() for t in fig.axes[0].get_legend().get_texts()]
-    for v in ("rear-saturates", "watch"):
+    for v in ("lift-critical", "lift-marginal"):
         assert (f"lift-off: {v}" in legend) == (v in verdicts)
 
 

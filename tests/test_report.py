@@ -132,8 +132,9 @@ def test_report_is_self_contained_and_well_formed(request, which):
 def test_embedded_images_are_pngs(compare_doc):
     p = scan(compare_doc)
     imgs = [a for t, a in p.tags if t == "img"]
-    # Two laps with every lap figure, the overlay and one time-delta figure.
-    assert len(imgs) == 2 * len(LAP_FIGURES) + 2
+    # Two laps with every lap figure and the lift-off response curve of their tightest
+    # corner, the overlay and one time-delta figure.
+    assert len(imgs) == 2 * (len(LAP_FIGURES) + 1) + 2
     for a in imgs:
         assert a.get("alt")
         png = base64.b64decode(a["src"].split(",", 1)[1], validate=True)
@@ -162,10 +163,11 @@ def test_single_report_contents(single_doc, base_lap):
         assert html.escape(a) in doc
     assert 'id="comparison"' not in doc
     p = scan(doc)
-    # One corner-table row per corner, plus the two worst lift-off steps of each checked corner.
+    # One corner-table row per corner, plus the two worst lift-off steps of each flagged corner.
     verdict_cells = [a for t, a in p.tags if t == "td" and "verdict" in a.get("class", "")]
-    checked = [c for c in base_lap.corners if c.get("liftoff_worst_shift")]
-    assert len(verdict_cells) == len(base_lap.corners) + 2 * len(checked)
+    flagged = [c for c in base_lap.corners
+               if c["liftoff_verdict"] in ("lift-critical", "lift-marginal")]
+    assert len(verdict_cells) == len(base_lap.corners) + 2 * len(flagged)
 
 
 def test_verdict_cells_are_colour_coded(single_doc, base_lap):
@@ -232,7 +234,7 @@ def test_report_opens_in_headless_chromium(tmp_path, compare_doc):
     assert float(rgb.std()) > 0.05  # text, tables and figures drawn
     assert not np.all(rgb > 0.99)  # not a white page
     # The caution box is drawn in its tint near the top of the page.
-    r, g, b = (int(PALETTE["rear-saturates"][i:i + 2], 16) / 255 for i in (1, 3, 5))
+    r, g, b = (int(PALETTE["lift-critical"][i:i + 2], 16) / 255 for i in (1, 3, 5))
     top = rgb[:400]
     assert np.any((np.abs(top[..., 0] - r) < 0.05) & (np.abs(top[..., 1] - g) < 0.05)
                   & (np.abs(top[..., 2] - b) < 0.05))

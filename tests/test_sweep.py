@@ -52,6 +52,7 @@ def test_one_value_sweep_equals_a_single_run(car, track):
     assert row["top_speed_kph"] == float(r.channels["speed_kph"].max())
     assert row["liftoff_worst_shift"] == max(c["liftoff_max_shift"] for c in r.corners)
     assert row["liftoff_max_usage_rear"] == max(c["liftoff_max_usage_rear"] for c in r.corners)
+    assert row["liftoff_margin_min"] == min(c["liftoff_margin"] for c in r.corners)
     assert row["aero.drag_area_m2"] == 0.85
     assert set(RESULT_COLUMNS) <= set(row)
 

@@ -95,7 +95,8 @@ def test_condition_in_and_not_in_on_corner_text(tmp_path, lap):
     assert o.failing == verdicts.count(first)
     assert o.measured == first and o.worst["corner"] == 1
     o = _one(tmp_path, lap, "liftoff_verdict",
-             '{ in = ["rear-saturates", "watch", "stable", "not-checked"] }')
+             '{ in = ["lift-critical", "lift-marginal", "lift-close", "lift-safe", '
+             '"not-checked"] }')
     assert o.passed and o.worst is None and o.failing == 0
     o = _one(tmp_path, lap, "liftoff_verdict", f'{{ in = ["{first}"] }}')
     assert o.passed == (len(set(verdicts)) == 1)
@@ -108,8 +109,14 @@ def test_lap_quantities(tmp_path, lap):
     o = _one(tmp_path, lap, "lap_time_s", f"{{ max = {lap.lap_time_s + 0.1} }}")
     assert o.passed and o.measured == pytest.approx(lap.lap_time_s) and o.worst is None
     o = _one(tmp_path, lap, "liftoff_rear_saturates_count", "{ max = 0 }")
-    n = sum(c["liftoff_verdict"] == "rear-saturates" for c in lap.corners)
+    n = sum(c["liftoff_rear_reserve"] is not None and c["liftoff_rear_reserve"] < 0
+            for c in lap.corners)
     assert o.measured == n and o.passed == (n == 0)
+    o = _one(tmp_path, lap, "liftoff_flagged_count", "{ max = 0 }")
+    n = sum(c["liftoff_verdict"] in ("lift-critical", "lift-marginal") for c in lap.corners)
+    assert o.measured == n and o.passed == (n == 0)
+    o = _one(tmp_path, lap, "liftoff_critical_count", "{ max = 0 }")
+    assert o.measured == sum(c["liftoff_verdict"] == "lift-critical" for c in lap.corners)
     o = _one(tmp_path, lap, "balance_migration", "{ range = [-0.001, 0.001] }")
     assert o.passed
     model = ("[model]\ncornering_stiffness_front_n_per_deg = 3400\n"
@@ -248,9 +255,9 @@ condition = { max = 1.0 }
     ('[[target]]\nname = "x"\nquantity = "lap_time_s"\ncondition = { max = 90 }\n'
      'aggregate = "mean"\n', r"target\[1\]\.aggregate: lap_time_s is one value per lap"),
     ('[[target]]\nname = "x"\nquantity = "liftoff_verdict"\n'
-     'condition = { not_in = ["rear-saturate"] }\n',
-     r'condition\.not_in: "rear-saturate" is not a value of liftoff_verdict; did you mean '
-     r'"rear-saturates"\?'),
+     'condition = { not_in = ["lift-critica"] }\n',
+     r'condition\.not_in: "lift-critica" is not a value of liftoff_verdict; did you mean '
+     r'"lift-critical"\?'),
     ('[[target]]\nname = "x"\nquantity = "understeer_gradient_deg_per_g"\n'
      'condition = { max = 1 }\n',
      r"target\[1\]\.quantity: understeer_gradient_deg_per_g needs axle cornering "
@@ -273,7 +280,7 @@ condition = { max = 1.0 }
     ('[[target]]\nname = "x"\nquantity = "aero_balance_vs_speed"\ncondition = { max = 1 }\n'
      'scope = { corners = [1] }\n',
      r"scope\.corners: aero_balance_vs_speed takes only speed_kph"),
-    ('[[target]]\nname = "x"\nquantity = "liftoff_verdict"\ncondition = { in = ["watch"] }\n'
+    ('[[target]]\nname = "x"\nquantity = "liftoff_verdict"\ncondition = { in = ["lift-safe"] }\n'
      'aggregate = "max"\n', r'text quantity liftoff_verdict takes only aggregate "each"'),
     ("[model]\nmigration_low_speed_kph = [150, 100]\n" + GOOD,
      r"model\.migration_low_speed_kph: lo 150 > hi 100"),

@@ -5,9 +5,12 @@ to plain tables (lists of dict rows, SI or unit-named keys) that the CLI prints 
 
 ``summary``
     one row per track and car: lap time, delta to the base, top speed, mean aero balance at
-    low and at high speed, number of corners the lift-off check flags.
+    low and at high speed, number of corners the lift-off check flags, the smallest lift-off
+    margin over the corners and its change from the base.
 ``segments``
-    one row per track, car and lap segment. The lap is cut into **corners** (from the corner's
+    one row per track, car and lap segment (corners carry their lift-off margin and its
+    change from the base: wing packages compared on lift-off safety, not only on time).
+    The lap is cut into **corners** (from the corner's
     ``entry_m`` to its ``exit_m``, as the track defines them) and the **straights** between
     them (from one corner's exit to the next corner's entry; on a closed lap the last straight
     runs through the start line to the first corner). The segments tile the lap exactly once,
@@ -42,7 +45,7 @@ import numpy as np
 
 from lapbalance.car import Car, load_car
 from lapbalance.errors import InputError
-from lapbalance.liftoff import flagged
+from lapbalance.liftoff import flagged, smallest_margin
 from lapbalance.sweep import sweep  # noqa: F401  (re-exported: lapbalance.sweep)
 
 __all__ = ["CompareResult", "compare", "lap_segments", "segment_times", "sweep",
@@ -70,12 +73,19 @@ class CompareResult:
         Per track and car: ``track``, ``car``, ``lap_time_s`` [s], ``delta_s`` [s] (car minus
         base), ``top_speed_kph`` [km/h], ``min_speed_kph`` [km/h],
         ``aero_balance_front_low`` / ``_high`` [-] (CG convention), the same with
-        ``_ground`` [-], ``liftoff_worst_shift`` [-], ``flagged_corners`` [-].
+        ``_ground`` [-], ``liftoff_worst_shift`` [-], ``flagged_corners`` [-],
+        ``liftoff_margin_min`` [-] (smallest corner lift-off margin, NaN when none checked),
+        ``liftoff_margin_delta`` [-] (car minus base; > 0 = the car keeps more margin),
+        ``liftoff_reserve_min`` [-] (smallest rear reserve after a lift at the limit; it ranks
+        cars whose margin is 1) and ``liftoff_reserve_delta`` [-] (car minus base).
     segments : list of dict
         Per track, car and segment: ``track``, ``car``, ``segment`` ("C<id>" or "S<n>"),
         ``kind`` ("corner"/"straight"), ``corner_id``, ``start_m``, ``end_m`` [m],
         ``time_s`` [s], ``delta_s`` [s] (car minus base), ``min_speed_kph`` [km/h] and for
-        corners ``liftoff_verdict``, ``liftoff_max_shift`` [-], ``liftoff_max_usage_rear`` [-].
+        corners ``liftoff_verdict``, ``liftoff_margin`` [-], ``liftoff_margin_delta`` [-]
+        (car minus base), ``liftoff_rear_reserve`` [-], ``liftoff_rear_reserve_delta`` [-]
+        (car minus base), ``liftoff_max_shift`` [-],
+        ``liftoff_max_usage_rear`` [-].
     speed_bands_kph : tuple of float
         The low/high speed bands used for the aero balance. [km/h]
     """
@@ -381,6 +391,10 @@ def compare(base_car, variants, tracks, labels: Sequence[str] | None = None, *,
         segs = lap_segments(track)
         seg_t = [segment_times(r, segs) for r in laps]
         base = laps[0]
+        base_min = _nan(smallest_margin(base.corners))
+        base_margin = {c["id"]: _nan(c.get("liftoff_margin")) for c in base.corners}
+        base_reserve = {c["id"]: _nan(c.get("liftoff_rear_reserve")) for c in base.corners}
+        base_rmin = _min_reserve(base.corners)
         for j, (label, r) in enumerate(zip(labels, laps, strict=True)):
             lo_cg, hi_cg = _band_mean(r, low, high, "aero_balance_front")
             lo_g, hi_g = _band_mean(r, low, high, "aero_balance_front_ground")
@@ -395,21 +409,42 @@ def compare(base_car, variants, tracks, labels: Sequence[str] | None = None, *,
                 "aero_balance_front_ground_low": lo_g, "aero_balance_front_ground_high": hi_g,
                 "liftoff_worst_shift": max(shifts) if shifts else math.nan,
                 "flagged_corners": len(flagged(r.corners)),
+                "liftoff_margin_min": _nan(smallest_margin(r.corners)),
+                "liftoff_margin_delta": _nan(smallest_margin(r.corners)) - base_min,
+                "liftoff_reserve_min": _min_reserve(r.corners),
+                "liftoff_reserve_delta": _min_reserve(r.corners) - base_rmin,
             })
             crow = {c["id"]: c for c in r.corners}
             for s, t, tb in zip(segs, seg_t[j], seg_t[0], strict=True):
                 row = {"track": key, "car": label, **s, "time_s": t, "delta_s": t - tb,
                        "min_speed_kph": _segment_min_speed(r, s),
-                       "liftoff_verdict": None, "liftoff_max_shift": math.nan,
-                       "liftoff_max_usage_rear": math.nan}
+                       "liftoff_verdict": None, "liftoff_margin": math.nan,
+                       "liftoff_margin_delta": math.nan, "liftoff_rear_reserve": math.nan,
+                       "liftoff_rear_reserve_delta": math.nan,
+                       "liftoff_max_shift": math.nan, "liftoff_max_usage_rear": math.nan}
                 c = crow.get(s["corner_id"]) if s["kind"] == "corner" else None
                 if c is not None:
                     row["liftoff_verdict"] = c.get("liftoff_verdict")
-                    for k in ("liftoff_max_shift", "liftoff_max_usage_rear"):
-                        row[k] = math.nan if c.get(k) is None else float(c[k])
+                    for k in ("liftoff_margin", "liftoff_rear_reserve", "liftoff_max_shift",
+                              "liftoff_max_usage_rear"):
+                        row[k] = _nan(c.get(k))
+                    row["liftoff_margin_delta"] = (row["liftoff_margin"]
+                                                   - base_margin.get(c["id"], math.nan))
+                    row["liftoff_rear_reserve_delta"] = (row["liftoff_rear_reserve"]
+                                                         - base_reserve.get(c["id"], math.nan))
                 segments.append(row)
     return CompareResult(list(labels), keys, all_laps, summary, segments,
                          (low, high))
+
+
+def _nan(x) -> float:
+    return math.nan if x is None else float(x)
+
+
+def _min_reserve(corners) -> float:
+    vals = [c["liftoff_rear_reserve"] for c in corners
+            if c.get("liftoff_rear_reserve") is not None]
+    return min(vals) if vals else math.nan
 
 
 class _CallableModule(types.ModuleType):

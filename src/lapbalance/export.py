@@ -14,12 +14,17 @@ from lapbalance.outputs import columns_csv_text, csv_text, staged_dir
 CORNER_COLUMNS = (
     "id", "direction", "entry_m", "apex_m", "exit_m", "min_radius_m", "min_speed_kph",
     "min_speed_at_m", "limiting_axle", "balance_index_at_min", "usage_front_at_min",
-    "usage_rear_at_min", "aero_balance_front_at_min", "liftoff_verdict", "liftoff_reason",
-    "liftoff_max_shift", "liftoff_max_usage_rear", "coast_max_shift", "overrun_share",
+    "usage_rear_at_min", "aero_balance_front_at_min", "liftoff_rank", "liftoff_verdict",
+    "liftoff_reason", "liftoff_margin", "coast_margin", "liftoff_speed_margin_kph",
+    "liftoff_rear_reserve", "liftoff_max_shift", "liftoff_max_usage_rear", "coast_max_shift",
+    "overrun_share",
 )
 _STEP_FIELDS = ("distance_m", "speed_kph", "balance_shift", "front_load_shift_n",
                 "usage_front_on", "usage_rear_on", "usage_front_off", "usage_rear_off",
                 "coast_balance_shift", "coast_usage_rear")
+#: Fields of the tightest lift-off step (prefixed ``tightest_``).
+_TIGHT_FIELDS = ("distance_m", "speed_kph", "margin", "coast_margin", "rear_reserve",
+                 "limit_speed_kph", "safe_speed_kph", "speed_margin_kph", "ay_limit_mps2")
 
 
 def channels_csv(result: LapResult) -> str:
@@ -47,11 +52,14 @@ def _fmt(v):
 def corners_csv(result: LapResult) -> str:
     """The corner table as CSV text."""
     header = list(CORNER_COLUMNS)
+    header += [f"tightest_{f}" for f in _TIGHT_FIELDS]
     for pre in ("worst_shift", "worst_rear"):
         header += [f"{pre}_{f}" for f in _STEP_FIELDS]
     rows = []
     for c in result.corners:
         row = [_fmt(c.get(k)) for k in CORNER_COLUMNS]
+        rec = c.get("liftoff_tightest") or {}
+        row += [_fmt(rec.get(f)) for f in _TIGHT_FIELDS]
         for pre in ("liftoff_worst_shift", "liftoff_worst_rear"):
             rec = c.get(pre) or {}
             row += [_fmt(rec.get(f)) for f in _STEP_FIELDS]

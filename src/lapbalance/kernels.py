@@ -925,3 +925,221 @@ def _final_step(i, v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm,
     else:
         for k in range(8, 19):
             res[i, c + k] = math.nan
+
+
+# ---- lift-off margin ------------------------------------------------------------------------
+# Columns of :func:`liftoff_margins` (per step; NaN where the step is not checked).
+M_LAMBDA = 0  # lift-off margin with engine overrun, a_y_safe / a_y_limit [-]
+M_VSAFE = 1  # highest speed at or below the limit where that lift keeps u_r <= 1 [m/s]
+M_RESERVE = 2  # 1 - u_r after that lift at the limit speed (clamped at -1) [-]
+M_LAMBDA_COAST = 3  # the same three, coasting (no engine braking)
+M_VSAFE_COAST = 4
+M_RESERVE_COAST = 5
+M_AYLIM = 6  # lateral acceleration at the limit speed [m/s²]
+NMARGIN = 7
+
+
+@njit(cache=True)
+def lift_state(v, kappa, grade, bank, coast, p, gears, mx, my, mt, out):
+    """State after a lift at speed v [m/s]: drive replaced by the engine's overrun force in
+    the gear of that speed (``coast`` = 0) or by nothing (``coast`` = 1), no brakes.
+
+    Fills ``out`` and returns the status code (0 = feasible loads)."""
+    fo = 0.0 if coast != 0 else overrun_force(v, p, gears)
+    return state(v, kappa, grade, bank, -fo, 0.0, p, mx, my, mt, out)
+
+
+@njit(cache=True, inline="always")
+def _g_lift(v, kappa, grade, bank, coast, p, gears, mx, my, mt, out):
+    """Rear usage excess u_r - 1 after a lift at v [m/s]; BIG when an axle unloads."""
+    st = lift_state(v, kappa, grade, bank, coast, p, gears, mx, my, mt, out)
+    if st != 0:
+        return BIG
+    return out[O_UR] - 1.0
+
+
+@njit(cache=True)
+def _refine_lift(x_ok, g_ok, x_bad, g_bad, kappa, grade, bank, coast, p, gears, mx, my, mt,
+                 out, xtol):
+    """Illinois search (as :func:`_refine`) for the speed [m/s] where the rear usage after a
+    lift crosses 1, between a safe ``x_ok`` and an unsafe ``x_bad`` (either order)."""
+    lo = x_ok
+    hi = x_bad
+    glo = g_ok
+    ghi = g_bad
+    wlo = g_ok
+    whi = g_bad
+    last = 0
+    for _ in range(80):
+        if abs(hi - lo) <= xtol or glo > -1e-5:
+            break
+        w = hi - lo
+        if ghi >= 0.5 * BIG:
+            x = lo + 0.5 * w
+            last = 0
+        else:
+            x = (lo * whi - hi * wlo) / (whi - wlo)
+            a = lo + 0.02 * w
+            b = hi - 0.02 * w
+            if (x - a) * (x - b) > 0.0:
+                x = lo + 0.5 * w
+        gx = _g_lift(x, kappa, grade, bank, coast, p, gears, mx, my, mt, out)
+        if gx <= 0.0:
+            lo = x
+            glo = gx
+            wlo = gx
+            if last == -1:
+                whi *= 0.5
+            last = -1
+        else:
+            hi = x
+            ghi = gx
+            whi = gx
+            if last == 1:
+                wlo *= 0.5
+            last = 1
+    return lo
+
+
+@njit(cache=True)
+def liftoff_safe_speed(kappa, grade, bank, vlim, guess, coast, p, gears, mx, my, mt, out,
+                       tol):
+    """Highest speed [m/s] at or below the corner limit ``vlim`` at which a lift keeps the
+    rear within its grip (u_r <= 1 after the lift), and u_r after a lift at ``vlim``.
+
+    The search starts at the limit (one evaluation when the lift there is safe), then steps
+    down from ``guess`` (a neighbour's answer scaled to this step; <= 0 = unknown) with
+    doubling steps to the first safe speed and refines the crossing with the Illinois method
+    to ``tol`` [m/s] or rear usage within 1e-5 of 1. Returns (v_safe, u_r at the limit); v_safe
+    is 0 when no speed down to V_MIN is safe.
+    """
+    g_top = _g_lift(vlim, kappa, grade, bank, coast, p, gears, mx, my, mt, out)
+    u_top = g_top + 1.0
+    if g_top <= 0.0:
+        return vlim, u_top
+    hi = vlim
+    ghi = g_top
+    lo = vlim
+    step = 0.03
+    if V_MIN < guess < vlim:
+        g_g = _g_lift(guess, kappa, grade, bank, coast, p, gears, mx, my, mt, out)
+        step = 0.003
+        if g_g <= 0.0:
+            # safe at the guess: step up (doubling) to the first unsafe speed, not past vlim
+            lo = guess
+            glo = g_g
+            while True:
+                x = lo * (1.0 + step)
+                if x >= vlim:
+                    break
+                gx = _g_lift(x, kappa, grade, bank, coast, p, gears, mx, my, mt, out)
+                if gx > 0.0:
+                    hi = x
+                    ghi = gx
+                    break
+                lo = x
+                glo = gx
+                step *= 2.0
+            return _refine_lift(lo, glo, hi, ghi, kappa, grade, bank, coast, p, gears, mx, my,
+                                mt, out, tol), u_top
+        hi = guess
+        ghi = g_g
+        lo = guess
+    while True:  # step down (doubling) to the first safe speed
+        lo = lo * (1.0 - step)
+        step = step * 2.0 if step < 0.25 else 0.5
+        if lo <= V_MIN:
+            lo = V_MIN
+        glo = _g_lift(lo, kappa, grade, bank, coast, p, gears, mx, my, mt, out)
+        if glo <= 0.0:
+            break
+        if lo <= V_MIN:
+            return 0.0, u_top
+        hi = lo
+        ghi = glo
+    return _refine_lift(lo, glo, hi, ghi, kappa, grade, bank, coast, p, gears, mx, my, mt, out,
+                        tol), u_top
+
+
+@njit(cache=True, inline="always")
+def _signed_ay(v, kappa, grade, bank):
+    """Lateral acceleration [m/s²] the tyres supply, positive toward the corner's inside."""
+    a_c, a_y, g_n = road_accelerations(v, kappa, grade, bank)
+    return a_y if kappa >= 0.0 else -a_y
+
+
+@njit(cache=True, inline="always")
+def margin_of(vsafe, vlim, kappa, grade, bank):
+    """a_y_safe / a_y_limit, clamped to [0, 1]."""
+    if vsafe >= vlim:
+        return 1.0
+    ay_lim = _signed_ay(vlim, kappa, grade, bank)
+    if ay_lim <= 0.0:
+        return 1.0
+    r = _signed_ay(vsafe, kappa, grade, bank) / ay_lim
+    return 0.0 if r < 0.0 else (1.0 if r > 1.0 else r)
+
+
+@njit(cache=True, parallel=True)
+def liftoff_margins(kappa, grade, bank, vlim, checked, p, gears, mx, my, mt, tol, nchunks):
+    """Lift-off margin at every checked step (``checked`` > 0), columns ``M_*``.
+
+    At each checked step: the step's curvature, grade and bank, its steady corner limit
+    ``vlim`` [m/s]; for trial speeds at or below it the lift state (:func:`lift_state`, the
+    gear of that speed) and the rear usage after it. The margin is a_y at the highest safe
+    speed over a_y at the limit (0..1; 1 = a lift at the limit keeps the rear). Chunks of
+    steps run in parallel, each warm-starting from its previous checked step.
+    """
+    n = kappa.shape[0]
+    res = np.full((n, NMARGIN), np.nan)
+    size = (n + nchunks - 1) // nchunks
+    for c in prange(nchunks):
+        out = np.empty(NOUT)
+        prev = -10
+        r_on = 1.0
+        r_co = 1.0
+        for i in range(c * size, min(n, (c + 1) * size)):
+            if checked[i] <= 0.0 or vlim[i] <= V_MIN:
+                continue
+            k = kappa[i]
+            vl = vlim[i]
+            g_on = r_on * vl if prev == i - 1 else 0.0
+            g_co = r_co * vl if prev == i - 1 else 0.0
+            vs, ut = liftoff_safe_speed(k, grade[i], bank[i], vl, g_on, 0, p, gears, mx, my,
+                                        mt, out, tol)
+            res[i, M_LAMBDA] = margin_of(vs, vl, k, grade[i], bank[i])
+            res[i, M_VSAFE] = vs
+            res[i, M_RESERVE] = 1.0 - (ut if ut < 2.0 else 2.0)
+            vc, uc = liftoff_safe_speed(k, grade[i], bank[i], vl, g_co, 1, p, gears, mx, my,
+                                        mt, out, tol)
+            res[i, M_LAMBDA_COAST] = margin_of(vc, vl, k, grade[i], bank[i])
+            res[i, M_VSAFE_COAST] = vc
+            res[i, M_RESERVE_COAST] = 1.0 - (uc if uc < 2.0 else 2.0)
+            res[i, M_AYLIM] = _signed_ay(vl, k, grade[i], bank[i])
+            r_on = vs / vl
+            r_co = vc / vl
+            prev = i
+    return res
+
+
+@njit(cache=True)
+def liftoff_response(kappa, grade, bank, speeds, p, gears, mx, my, mt):
+    """States on throttle (steady speed), after a lift with engine overrun and coasting at
+    each speed [m/s] on one step (curvature [1/m], grade, bank [rad]).
+
+    Returns an array (len(speeds), 3, NOUT): [:, 0] on throttle, [:, 1] lift with overrun,
+    [:, 2] coasting (``O_*`` indices).
+    """
+    n = speeds.shape[0]
+    res = np.empty((n, 3, NOUT))
+    out = np.empty(NOUT)
+    for i in range(n):
+        v = speeds[i]
+        steady_control(v, kappa, grade, bank, p, mx, my, mt, out)
+        for k in range(NOUT):
+            res[i, 0, k] = out[k]
+        for mode in range(2):
+            lift_state(v, kappa, grade, bank, mode, p, gears, mx, my, mt, out)
+            for k in range(NOUT):
+                res[i, 1 + mode, k] = out[k]
+    return res

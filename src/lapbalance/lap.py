@@ -17,12 +17,15 @@ from typing import Any
 import numpy as np
 
 from lapbalance import kernels as _k
+from lapbalance import liftoff
 from lapbalance.car import Car
 from lapbalance.errors import InfeasibleError, InputError, PhysicsWarning
 from lapbalance.kernels import corner_limits as _corner_limits_kernel
 from lapbalance.kernels import final_pass as _final_pass_kernel
+from lapbalance.kernels import liftoff_margins as _liftoff_margins_kernel
 from lapbalance.kernels import speed_passes as _speed_passes_kernel
 from lapbalance.liftoff import corner_mask as _corner_mask
+from lapbalance.params import car_parameters, speed_cap  # noqa: F401  (public here too)
 from lapbalance.units import G0
 
 #: Names of the ``limit`` channel codes.
@@ -43,6 +46,9 @@ LIFTOFF_AY_THRESHOLD = 4.0
 #: longitudinal searches [N] (docs/method.md, the solver: stop at a tolerance that matters).
 SPEED_TOL = 1e-3
 FORCE_TOL = 0.5
+#: Speed tolerance of the lift-off margin search [m/s] (the search also stops once the rear
+#: usage after the lift is within 1e-5 of 1, which pins the margin to ~1e-5).
+MARGIN_TOL = 5e-4
 
 # Unit and meaning of every channel (name -> (unit, description)); DEVELOPERS.md glossary.
 CHANNELS: dict[str, tuple[str, str]] = {
@@ -110,6 +116,19 @@ CHANNELS: dict[str, tuple[str, str]] = {
     "coast_front_load_shift_n": ("N", "front axle load change when coasting"),
     "coast_usage_front": ("-", "front usage when coasting"),
     "coast_usage_rear": ("-", "rear usage when coasting"),
+    "liftoff_step_margin": ("-", "lift-off margin a_y_safe / a_y_limit with engine overrun "
+                            "(1 = a lift at the limit keeps the rear; checked steps only)"),
+    "liftoff_safe_speed_mps": ("m/s", "highest speed at or below the limit where a lift with "
+                               "overrun keeps rear usage <= 1"),
+    "liftoff_step_speed_margin_kph": ("km/h", "limit speed minus the safe-lift speed"),
+    "liftoff_ay_limit_mps2": ("m/s²", "lateral acceleration at this step's corner limit"),
+    "liftoff_step_rear_reserve": ("-", "1 - rear usage after a lift with overrun at the "
+                                  "limit speed (< 0 saturates; clamped at -1)"),
+    "coast_step_margin": ("-", "lift-off margin when coasting (no engine braking)"),
+    "coast_safe_speed_mps": ("m/s", "highest speed at or below the limit where coasting keeps "
+                             "rear usage <= 1"),
+    "coast_step_rear_reserve": ("-", "1 - rear usage when coasting from the limit speed "
+                                "(clamped at -1)"),
 }
 
 
@@ -143,7 +162,8 @@ class LapResult:
         return [LIMIT_NAMES[int(c)] for c in self.channels["limit"]]
 
     def summary(self) -> dict:
-        """Plain-JSON summary (lap time, speeds, sectors, corners, settings)."""
+        """Plain-JSON summary (lap time, speeds, sectors, smallest lift-off margin and verdict
+        counts, corners, settings)."""
         ch = self.channels
         v = ch["speed_mps"]
         return {
@@ -160,6 +180,8 @@ class LapResult:
                 self.car.chassis.cg_height, self.car.chassis.wheelbase)),
             "air_density_kg_m3": float(self.car.air.density),
             "sectors": self.sectors,
+            "liftoff_margin_min": liftoff.smallest_margin(self.corners),
+            "liftoff_verdicts": liftoff.verdict_counts(self.corners) if self.corners else {},
             "corners": [{k: _jsonable(v) for k, v in c.items()} for c in self.corners],
             "settings": {k: _jsonable(v) for k, v in self.settings.items()},
             "caution": CAUTION,
@@ -181,76 +203,6 @@ def _jsonable(v):
     if isinstance(v, float):
         return None if not math.isfinite(v) else v
     return v
-
-
-def car_parameters(car: Car) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray,
-                                       np.ndarray, np.ndarray, np.ndarray]:
-    """Flatten a car into the kernel arrays (p, gears, torque rpm, torque Nm, map x, y, t)."""
-    ch, ae, ty, pt, su = car.chassis, car.aero, car.tyres, car.powertrain, car.suspension
-    p = np.zeros(_k.P_NPARAM)
-    p[_k.P_MASS] = ch.mass
-    p[_k.P_L] = ch.wheelbase
-    p[_k.P_A] = ch.a
-    p[_k.P_B] = ch.b
-    p[_k.P_H] = ch.cg_height
-    p[_k.P_TF] = ch.track_front
-    p[_k.P_TR] = ch.track_rear
-    p[_k.P_ZF] = su.roll_centre_front
-    p[_k.P_ZR] = su.roll_centre_rear
-    p[_k.P_KF] = su.roll_stiffness_front_share
-    p[_k.P_CLAF] = ae.front_area_cg
-    p[_k.P_CLAR] = ae.rear_area_cg
-    p[_k.P_CDA] = ae.drag_area
-    p[_k.P_RHO] = car.air.density
-    p[_k.P_CRR] = ty.rolling_resistance
-    for base, t in ((_k.P_MUXF, ty.front), (_k.P_MUXR, ty.rear)):
-        p[base + 0] = t.mu_longitudinal
-        p[base + 1] = t.k_longitudinal
-        p[base + 2] = t.mu_lateral
-        p[base + 3] = t.k_lateral
-        p[base + 4] = t.reference_load
-    for base, t in ((_k.P_TYF, ty.front), (_k.P_TYR, ty.rear)):
-        for off, k in ((0, t.k_lateral), (3, t.k_longitudinal)):
-            p[base + off] = 1.0 + k
-            p[base + off + 1] = k / t.reference_load
-            p[base + off + 2] = (1.0 + k) * t.reference_load / (2.0 * k) if k > 0 else math.inf
-    p[_k.P_DRIVEF] = pt.front_drive_share
-    p[_k.P_BIASF] = car.brakes.bias_front
-    p[_k.P_ETA] = pt.efficiency
-    p[_k.P_RW] = pt.wheel_radius
-    p[_k.P_FINAL] = pt.final_drive
-    p[_k.P_SHIFT] = pt.shift_rpm
-    p[_k.P_REVLIM] = pt.rev_limit_rpm
-    p[_k.P_POWERMODE] = 1.0 if pt.mode == "power" else 0.0
-    p[_k.P_POWER] = pt.power
-    p[_k.P_FTMAX] = pt.max_tractive_force
-    p[_k.P_OVERRUN] = pt.overrun_torque
-    rh_f = su.static_ride_height_front
-    rh_r = su.static_ride_height_rear
-    p[_k.P_RHF0] = rh_f if rh_f is not None else math.nan
-    p[_k.P_RHR0] = rh_r if rh_r is not None else math.nan
-    p[_k.P_HEAVEF] = su.heave_rate_front
-    p[_k.P_HEAVER] = su.heave_rate_rear
-    amap = ae.aero_map
-    if amap is not None:
-        p[_k.P_USEMAP] = 1.0
-        mx = np.ascontiguousarray(amap.fine_rh_front_m, dtype=float)
-        my = np.ascontiguousarray(amap.fine_rh_rear_m, dtype=float)
-        mt = np.ascontiguousarray(np.stack([amap.fine_front_area_cg, amap.fine_rear_area_cg,
-                                            amap.fine_drag_area]), dtype=float)
-    else:
-        mx = np.zeros(2)
-        my = np.zeros(2)
-        mt = np.zeros((3, 2, 2))
-    gears = np.asarray(pt.gear_ratios, dtype=float)
-    trpm = np.asarray(pt.torque_curve_rpm or (0.0, 1.0), dtype=float)
-    tnm = np.asarray(pt.torque_curve_nm or (0.0, 0.0), dtype=float)
-    return p, gears, trpm, tnm, mx, my, mt
-
-
-def speed_cap(car: Car) -> float:
-    """Highest speed the car can reach [m/s]: the rev limiter in top gear."""
-    return car.powertrain.top_speed_rev_limited()
 
 
 def simulate_lap(car: Car, track, *, start_speed_kph: float | None = None,
@@ -341,7 +293,11 @@ def simulate_lap(car: Car, track, *, start_speed_kph: float | None = None,
         dt[-1] = 0.0
     time = np.concatenate([[0.0], np.cumsum(dt)[:-1]])
     lap_time = float(dt.sum())
+    mres = _liftoff_margins_kernel(kappa, grade, bank, vlim,
+                                   np.ascontiguousarray(res[:, _k.NOUT + 6]), p, gears, mx,
+                                   my, mt, MARGIN_TOL, nchunks)
     ch = _channels(car, track, v, vlim, res, time)
+    _margin_channels(ch, vlim, mres)
     if np.any(ch["floor_contact"] > 0):
         first = float(track.distance_m[np.argmax(ch["floor_contact"] > 0)])
         warnings.warn(f"the floor touches the ground at {int(np.sum(ch['floor_contact']))} "
@@ -362,9 +318,8 @@ def simulate_lap(car: Car, track, *, start_speed_kph: float | None = None,
                         "start_speed_kph": start_speed_kph,
                         "line": getattr(track, "line", "centreline")})
     if assess_liftoff:
-        from lapbalance import liftoff
-
-        result = liftoff.assess(result)
+        masks = {cr.id: _corner_mask(track, cr) for cr in getattr(track, "corners", ()) or ()}
+        result = liftoff.assess(result, masks=masks)
     return result
 
 
@@ -451,6 +406,19 @@ def _channels(car: Car, track, v, vlim, res, time) -> dict[str, np.ndarray]:
     ch["coast_usage_front"] = res[:, c + 16]
     ch["coast_usage_rear"] = res[:, c + 17]
     return ch
+
+
+def _margin_channels(ch: dict[str, np.ndarray], vlim: np.ndarray, m: np.ndarray) -> None:
+    """Add the lift-off margin channels (kernel columns ``M_*``) to ``ch``."""
+    K = _k
+    ch["liftoff_step_margin"] = m[:, K.M_LAMBDA]
+    ch["liftoff_safe_speed_mps"] = m[:, K.M_VSAFE]
+    ch["liftoff_step_speed_margin_kph"] = (vlim - m[:, K.M_VSAFE]) * 3.6
+    ch["liftoff_ay_limit_mps2"] = m[:, K.M_AYLIM]
+    ch["liftoff_step_rear_reserve"] = m[:, K.M_RESERVE]
+    ch["coast_step_margin"] = m[:, K.M_LAMBDA_COAST]
+    ch["coast_safe_speed_mps"] = m[:, K.M_VSAFE_COAST]
+    ch["coast_step_rear_reserve"] = m[:, K.M_RESERVE_COAST]
 
 
 def _sectors(track, time, lap_time) -> list[dict]:

@@ -26,6 +26,7 @@ from matplotlib.colors import LinearSegmentedColormap, TwoSlopeNorm
 from matplotlib.figure import Figure
 
 from lapbalance.lap import LIMIT_NAMES, LapResult
+from lapbalance.liftoff import VERDICTS, ResponseCurve, ranked
 from lapbalance.units import G0
 
 #: The one palette of the project's figures and report (name -> hex colour).
@@ -45,9 +46,10 @@ PALETTE: dict[str, str] = {
     "ground": "#6b46c1",
     "lateral": "#dd6b20",
     "coast": "#718096",
-    "rear-saturates": "#c53030",
-    "watch": "#d69e2e",
-    "stable": "#38a169",
+    "lift-critical": "#c53030",
+    "lift-marginal": "#c05621",
+    "lift-close": "#d69e2e",
+    "lift-safe": "#38a169",
     "not-checked": "#a0aec0",
 }
 
@@ -84,7 +86,7 @@ _RC = {
     "lines.linewidth": 1.3,
 }
 
-_VERDICT_MARKERS = {"rear-saturates": "X", "watch": "^"}
+_VERDICT_MARKERS = {"lift-critical": "X", "lift-marginal": "^"}
 
 
 def _styled(fn: Callable[..., Figure]) -> Callable[..., Figure]:
@@ -210,8 +212,8 @@ def track_map_figure(result: LapResult) -> Figure:
                     bbox={"boxstyle": "round,pad=0.15", "fc": "white", "ec": "none",
                           "alpha": 0.8})
     for verdict, marker in _VERDICT_MARKERS.items():
-        pts = [c["liftoff_worst_rear"]["distance_m"] for c in result.corners
-               if c.get("liftoff_verdict") == verdict and c.get("liftoff_worst_rear")]
+        pts = [c["liftoff_tightest"]["distance_m"] for c in result.corners
+               if c.get("liftoff_verdict") == verdict and c.get("liftoff_tightest")]
         if pts:
             ax.plot(np.interp(pts, d, x), np.interp(pts, d, y), marker=marker,
                     linestyle="none", markersize=10, color=PALETTE[verdict],
@@ -447,8 +449,8 @@ def _field(c: dict, key: str) -> float:
 
 @_styled
 def liftoff_figure(result: LapResult) -> Figure:
-    """Per corner: worst balance shift on lift-off (engine braking vs coasting) and the rear
-    usage after lift-off, coloured by verdict, with the saturation line at 1.
+    """Per corner, tightest first: the lift-off margin (with engine braking and coasting),
+    coloured by verdict, and the rear reserve after a lift at the limit (< 0 saturates).
 
     Parameters
     ----------
@@ -459,8 +461,8 @@ def liftoff_figure(result: LapResult) -> Figure:
     -------
     matplotlib.figure.Figure
     """
-    cs = result.corners
-    fig = _figure(9.0, 5.4)
+    cs = ranked(result.corners)
+    fig = _figure(9.0, 5.6)
     axes = fig.subplots(2, 1, sharex=True)
     if not cs:
         for ax in axes:
@@ -470,32 +472,106 @@ def liftoff_figure(result: LapResult) -> Figure:
         return fig
     pos = np.arange(len(cs))
     w = 0.38
-    shift = [_field(c, "liftoff_max_shift") for c in cs]
-    coast = [_field(c, "coast_max_shift") for c in cs]
-    ax = axes[0]
-    ax.bar(pos - w / 2, shift, w, color=PALETTE["rear"], label="with engine braking")
-    ax.bar(pos + w / 2, coast, w, color=PALETTE["coast"], label="coasting (no engine braking)")
-    ax.axhline(0, color=PALETTE["muted"], linewidth=0.7)
-    ax.set_ylabel("worst balance shift\nB_off - B_on [-]")
-    ax.legend(loc="lower right", bbox_to_anchor=(1.0, 1.0), ncols=2)
-    ax = axes[1]
-    rear = [_field(c, "liftoff_max_usage_rear") for c in cs]
+    margin = [_field(c, "liftoff_margin") for c in cs]
+    coast = [_field(c, "coast_margin") for c in cs]
     colors = [PALETTE.get(c.get("liftoff_verdict", "not-checked"), PALETTE["not-checked"])
               for c in cs]
-    ax.bar(pos, rear, 0.6, color=colors)
-    ax.axhline(1.0, color=PALETTE["ink"], linewidth=1.0, linestyle="--")
-    ax.text(1.0, 1.0, " rear saturates ", transform=ax.get_yaxis_transform(), ha="right",
-            va="bottom", fontsize=7, color=PALETTE["ink"])
-    for verdict in ("rear-saturates", "watch", "stable", "not-checked"):
+    t = result.settings.get("liftoff_thresholds", {})
+    ax = axes[0]
+    ax.bar(pos - w / 2, margin, w, color=colors, label="with engine braking")
+    ax.bar(pos + w / 2, coast, w, color=PALETTE["coast"], label="coasting")
+    lo = np.nanmin(np.asarray(margin + coast + [1.0]))
+    for key, text in (("critical_margin", "critical below"), ("marginal_margin",
+                                                              "marginal below")):
+        if key in t:
+            ax.axhline(t[key], color=PALETTE["ink"], linewidth=0.8, linestyle=":")
+            ax.text(1.0, t[key], f" {text} {t[key]:g} ", transform=ax.get_yaxis_transform(),
+                    ha="right", va="bottom", fontsize=7, color=PALETTE["ink"])
+            lo = min(lo, t[key])
+    ax.set_ylim(max(0.0, lo - 0.05), 1.02)
+    ax.set_ylabel("lift-off margin\na_y,safe / a_y,limit [-]")
+    ax.legend(loc="lower right", bbox_to_anchor=(1.0, 1.0), ncols=2)
+    ax = axes[1]
+    reserve = [_field(c, "liftoff_rear_reserve") for c in cs]
+    ax.bar(pos, reserve, 0.6, color=colors)
+    ax.axhline(0.0, color=PALETTE["ink"], linewidth=1.0, linestyle="--")
+    ax.text(1.0, 0.0, " below: rear saturates ", transform=ax.get_yaxis_transform(),
+            ha="right", va="top", fontsize=7, color=PALETTE["ink"])
+    ax.set_ylabel("rear reserve after a\nlift at the limit [-]")
+    for verdict in VERDICTS:
         ax.bar([0], [0], 0, color=PALETTE[verdict], label=verdict)
-    fig.legend(*ax.get_legend_handles_labels(), loc="outside lower center", ncols=4,
+    fig.legend(*ax.get_legend_handles_labels(), loc="outside lower center", ncols=5,
                title="verdict", title_fontsize=7.5)
-    top = np.nanmax(np.asarray(rear + [1.0]))
-    ax.set_ylim(0, top * 1.15)
-    ax.set_ylabel("rear usage after\nlift-off u_r [-]")
     ax.set_xticks(pos, labels=[f"{c['id']}\n{c['direction']}" for c in cs])
-    ax.set_xlabel("corner")
-    fig.suptitle(f"{_names(result)}: lift-off check per corner", fontsize=10.5)
+    ax.set_xlabel("corner (tightest margin first)")
+    fig.suptitle(f"{_names(result)}: lift-off margin per corner", fontsize=10.5)
+    return fig
+
+
+@_styled
+def liftoff_response_figure(curve: ResponseCurve, title: str = "") -> Figure:
+    """Lift-off response against the initial lateral acceleration (ISO 9816 stepping):
+    balance shift, rear usage after the lift, front-load change and the front share of the
+    vertical load, with engine braking and coasting.
+
+    Parameters
+    ----------
+    curve : ResponseCurve
+        From :func:`lapbalance.liftoff.response_curve` or
+        :func:`lapbalance.liftoff.corner_response`. [-]
+    title : str
+        Figure title (car and track names, say). [-]
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
+    c = curve.columns
+    ay = np.asarray(c["ay_initial_mps2"], float)
+    fig = _figure(9.5, 6.4)
+    axes = fig.subplots(2, 2, sharex=True).ravel()
+    where = (f"corner {curve.corner_id}, " if curve.corner_id is not None else "") + \
+        f"radius {curve.radius_m:.0f} m"
+    fig.suptitle((f"{_plain(title)}: " if title else "") + f"lift-off response, {where}; "
+                 f"margin {curve.margin:.3f}", fontsize=10.5)
+    if ay.size == 0:
+        for ax in axes:
+            ax.text(0.5, 0.5, "the limit is below 4 m/s² here", transform=ax.transAxes,
+                    ha="center", color=PALETTE["muted"])
+        return fig
+    ay_safe = curve.margin * ay[-1]
+    panels = (
+        (("balance_shift", "with engine braking", PALETTE["rear"]),
+         ("coast_balance_shift", "coasting", PALETTE["coast"]),
+         "balance shift B_off - B_on [-]"),
+        (("usage_rear_off", "after lift, engine braking", PALETTE["rear"]),
+         ("usage_rear_coast", "after lift, coasting", PALETTE["coast"]),
+         "rear usage u_r [-]"),
+        (("front_load_change_n", "engine braking", PALETTE["rear"]),
+         ("coast_front_load_change_n", "coasting", PALETTE["coast"]),
+         "front-load change on the lift [N]"),
+        (("front_share_off", "after lift, engine braking", PALETTE["rear"]),
+         ("front_share_coast", "after lift, coasting", PALETTE["coast"]),
+         "front share of vertical load [-]"),
+    )
+    for ax, (one, two, ylabel) in zip(axes, panels, strict=True):
+        for key, label, color in (one, two):
+            ax.plot(ay, c[key], marker="o", markersize=3, color=color, label=label)
+        ax.set_ylabel(ylabel)
+        if curve.margin < 1.0:
+            ax.axvline(ay_safe, color=PALETTE["lift-critical"], linewidth=0.9, linestyle=":")
+    axes[1].plot(ay, c["usage_rear_on"], color=PALETTE["ink"], linewidth=1.0,
+                 label="on throttle")
+    axes[1].axhline(1.0, color=PALETTE["ink"], linewidth=1.0, linestyle="--")
+    axes[3].plot(ay, c["front_share_on"], color=PALETTE["ink"], linewidth=1.0,
+                 label="on throttle")
+    for ax in axes:
+        ax.legend(loc="best")
+    for ax in axes[2:]:
+        ax.set_xlabel("initial lateral acceleration a_y [m/s²]")
+    if curve.margin < 1.0:
+        axes[1].text(ay_safe, 1.0, " safe-lift limit ", ha="right", va="bottom", fontsize=7,
+                     color=PALETTE["lift-critical"])
     return fig
 
 
@@ -614,8 +690,8 @@ def delta_figure(base: LapResult, other: LapResult, labels: Sequence[str] | None
 #: Figures of one lap: file stem -> (function, caption).
 LAP_FIGURES: dict[str, tuple[Callable[[LapResult], Figure], str]] = {
     "track_map": (track_map_figure, "Balance index around the lap, corner numbers at the "
-                  "apexes, lift-off flags at the step with the highest rear usage after "
-                  "lift-off."),
+                  "apexes, lift-off flags (critical, marginal) at the corner's tightest "
+                  "step."),
     "speed": (speed_figure, "Speed over distance; dashed: steady corner-limit speed."),
     "usage": (usage_figure, "Front and rear grip usage; shaded where the front axle, the "
               "rear axle or the engine sets the speed."),
@@ -625,8 +701,9 @@ LAP_FIGURES: dict[str, tuple[Callable[[LapResult], Figure], str]] = {
     "aero_balance": (aero_balance_figure, "Aero balance vs speed on track (CG convention) "
                      "and as wheel-restrained scales read it (ground convention)."),
     "gg": (gg_figure, "Longitudinal vs lateral acceleration, coloured by speed."),
-    "liftoff": (liftoff_figure, "Lift-off check per corner: worst balance shift with engine "
-                "braking vs coasting, and rear usage after lift-off (1 = saturated)."),
+    "liftoff": (liftoff_figure, "Lift-off margin per corner, tightest first (with engine "
+                "braking and coasting), and the rear reserve after a lift at the limit "
+                "(< 0 = the rear saturates)."),
 }
 
 

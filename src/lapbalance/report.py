@@ -20,7 +20,8 @@ from matplotlib.colors import to_rgb
 from lapbalance import __version__, plots
 from lapbalance.errors import InputError
 from lapbalance.lap import CAUTION, LapResult
-from lapbalance.liftoff import VERDICTS, verdict_counts
+from lapbalance.liftoff import (FLAG_VERDICTS, VERDICTS, corner_response, ranked,
+                                smallest_margin, verdict_counts)
 from lapbalance.outputs import write_text_atomic
 
 #: Modelling assumptions and limits listed in every report.
@@ -33,7 +34,9 @@ ASSUMPTIONS = (
     "Drive torque is shared ideally between the two wheels of a driven axle.",
     "While braking, engine overrun is folded into the brake force (fixed brake bias).",
     "The lift-off check re-evaluates each cornering step at the same speed and path "
-    "curvature with the drive force replaced by engine braking (and once coasting).",
+    "curvature with the drive force replaced by engine braking (and once coasting); its "
+    "margin repeats that for steady turns at the step's curvature up to the corner limit. "
+    "Both are quasi-static: the rear's usage after the lift, not the car's yaw response.",
     "The aero split is stored and applied in the CG convention (drag reacted at CG height); "
     "the ground-convention figure is what wheel-restrained scales would read.",
     "Every number is an estimate for comparing setups, not a prediction of the real car.",
@@ -86,8 +89,8 @@ def _css() -> str:
     verdict_css = "\n".join(
         f"td.v-{v} {{ background: {_tint(p[v], 0.22)}; border-left-color: {p[v]}; }}"
         for v in VERDICTS)
-    return _CSS.format(verdict_css=verdict_css, caution=p["rear-saturates"],
-                       caution_bg=_tint(p["rear-saturates"], 0.10), **p)
+    return _CSS.format(verdict_css=verdict_css, caution=p["lift-critical"],
+                       caution_bg=_tint(p["lift-critical"], 0.10), **p)
 
 
 def _e(x) -> str:
@@ -178,6 +181,8 @@ def _summary_section(result: LapResult) -> str:
     counts = verdict_counts(result.corners)
     rows.append(["lift-off verdicts", _e(", ".join(f"{n} {v}" for v, n in counts.items()
                                                    if n) or "no corners")])
+    rows.append(["smallest lift-off margin (a_y,safe / a_y,limit)",
+                 _num(smallest_margin(result.corners), ".3f")])
     return _table(["quantity", "value"], rows)
 
 
@@ -187,40 +192,61 @@ def _verdict_cell(c: dict) -> tuple[str, str]:
     return _e(v), cls
 
 
-def _corner_section(result: LapResult) -> str:
+def _corner_section(result: LapResult, dpi: int = 100) -> str:
     if not result.corners:
         return '<p class="note">No corners were detected on this track.</p>'
     rows, classes = [], []
-    for c in result.corners:
+    for k, c in enumerate(ranked(result.corners)):
         vtxt, vcls = _verdict_cell(c)
         bal = c["balance_index_at_min"]
         rows.append([
-            _e(c["id"]), _e(c["direction"]), _num(c["apex_m"], ".0f"),
+            _e(k + 1), _e(c["id"]), _e(c["direction"]), _num(c["apex_m"], ".0f"),
             _num(c["min_radius_m"], ".0f"), _num(c["min_speed_kph"], ".1f"),
             _e(c["limiting_axle"]),
             f'<span class="{"pos" if bal > 0 else "neg"}">{_num(bal, "+.3f")}</span>',
-            _num(c["usage_front_at_min"], ".3f"), _num(c["usage_rear_at_min"], ".3f"),
-            vtxt, _num(c.get("liftoff_max_shift"), "+.3f"),
-            _num(c.get("coast_max_shift"), "+.3f"),
-            _num(c.get("liftoff_max_usage_rear"), ".3f"), _e(c.get("liftoff_reason", "")),
+            vtxt, _num(c.get("liftoff_margin"), ".3f"), _num(c.get("coast_margin"), ".3f"),
+            _num(c.get("liftoff_speed_margin_kph"), ".1f"),
+            _num(c.get("liftoff_rear_reserve"), "+.3f"),
+            _num(c.get("liftoff_max_shift"), "+.3f"), _e(c.get("liftoff_reason", "")),
         ])
-        classes.append([""] * 9 + [vcls] + [""] * 3 + ["why"])
-    table = _table(["corner", "dir", "apex [m]", "min radius [m]", "min speed [km/h]",
-                    "limiting axle", "balance at min [-]", "u_f at min", "u_r at min",
-                    "lift-off verdict", "worst shift [-]", "coasting shift [-]",
-                    "u_r after lift-off", "why"], rows, text_cols=(0, 1, 5, 13),
+        classes.append([""] * 8 + [vcls] + [""] * 5 + ["why"])
+    table = _table(["rank", "corner", "dir", "apex [m]", "min radius [m]", "min speed [km/h]",
+                    "limiting axle", "balance at min [-]", "lift-off verdict", "margin [-]",
+                    "coasting margin [-]", "speed margin [km/h]", "rear reserve [-]",
+                    "worst shift [-]", "why"], rows, text_cols=(1, 2, 6, 14),
                    cell_classes=classes)
-    legend = ('<p class="note">balance = u_r − u_f at the slowest point of the corner '
+    legend = ('<p class="note">Ranked by lift-off margin, tightest first. margin = lateral '
+              "acceleration up to which a lift (engine braking in the gear of that speed) "
+              "keeps the rear within its grip, over the corner-limit lateral acceleration at "
+              "the corner's tightest step (1 = a lift at the very limit is safe); coasting "
+              "margin = the same without engine braking; speed margin = limit speed minus "
+              "the highest safe-lift speed; rear reserve = 1 − rear usage after a lift at the "
+              "limit (&lt; 0: the rear saturates); balance = u_r − u_f at the slowest point "
               "(&gt; 0 oversteer-leaning); worst shift = largest change of the balance index "
-              "on lift-off with engine braking, coasting shift = the same without engine "
-              "braking; u_r after lift-off = highest rear usage once the driver lifts "
-              "(1 = the rear saturates).</p>")
-    return table + "\n" + legend + "\n" + _worst_steps(result)
+              "on lift-off at the lap's own state.</p>")
+    return table + "\n" + legend + "\n" + _response(result, dpi) + "\n" + _worst_steps(result)
+
+
+def _response(result: LapResult, dpi: int) -> str:
+    curve = corner_response(result)
+    if curve is None or curve.columns["ay_initial_mps2"].size == 0:
+        return ""
+    png = plots.figure_png(plots.liftoff_response_figure(curve, result.car.name), dpi)
+    return ("<h3>Lift-off response of the tightest corner</h3>\n"
+            + _img(png, f"lift-off response: corner {curve.corner_id}",
+                   f"Corner {curve.corner_id}: steady turns at its apex radius "
+                   f"({curve.radius_m:.0f} m) from 4 m/s² to the limit in steps of at most "
+                   "0.5 m/s² (the ISO 9816 stepping of the initial lateral acceleration); at "
+                   "each, the balance shift, the rear usage after the lift, the front-load "
+                   "change and the front share of the vertical load, with engine braking "
+                   "and coasting. Dotted: the highest safe-lift lateral acceleration."))
 
 
 def _worst_steps(result: LapResult) -> str:
     rows, classes = [], []
-    for c in result.corners:
+    for c in ranked(result.corners):
+        if c.get("liftoff_verdict") not in FLAG_VERDICTS:
+            continue
         for key, what in (("liftoff_worst_shift", "largest balance shift"),
                           ("liftoff_worst_rear", "highest rear usage after lift-off")):
             w = c.get(key)
@@ -237,9 +263,9 @@ def _worst_steps(result: LapResult) -> str:
             ])
             classes.append(["", vcls] + [""] * 11)
     if not rows:
-        return ('<p class="note">No corner qualified for the lift-off check (no cornering '
-                "on throttle above the lateral-acceleration threshold).</p>")
-    return ("<h3>Lift-off: the two worst steps per corner</h3>\n"
+        return ('<p class="note">No corner is flagged by the lift-off check (none '
+                "lift-critical or lift-marginal).</p>")
+    return ("<h3>Flagged corners: the two worst steps at the lap's own state</h3>\n"
             + _table(["corner", "verdict", "step", "at [m]", "speed [km/h]",
                       "balance shift [-]", "front load change [N]", "u_f on", "u_f off",
                       "u_r on", "u_r off", "coasting shift [-]", "u_r coasting"], rows,
@@ -260,7 +286,7 @@ def _comparison_section(results: Sequence[LapResult], labels: Sequence[str], dpi
     header = (["variant", "lap time [s]", "Δ to base [s]", "top [km/h]", "min [km/h]",
                "mean [km/h]", "aero bal. CG", "aero bal. ground"]
               + [f"S{j + 1} Δ [s]" for j in range(nsec)]
-              + ["rear-saturates", "watch"])
+              + ["lift-critical", "lift-marginal", "smallest margin", "Δ margin"])
     rows = []
     for r, lab in zip(results, labels, strict=True):
         s = r.summary()
@@ -278,28 +304,37 @@ def _comparison_section(results: Sequence[LapResult], labels: Sequence[str], dpi
                      _num(s["top_speed_kph"], ".1f"), _num(s["min_speed_kph"], ".1f"),
                      _num(s["mean_speed_kph"], ".1f"), _pct(s["aero_balance_front_cg"]),
                      _pct(s["aero_balance_front_ground"])] + dsec
-                    + [_e(counts["rear-saturates"]), _e(counts["watch"])])
+                    + [_e(counts["lift-critical"]), _e(counts["lift-marginal"]),
+                       _num(smallest_margin(r.corners), ".3f"),
+                       _num(_delta(smallest_margin(r.corners), smallest_margin(base.corners)),
+                            "+.3f")])
     parts = ['<h2 id="comparison">Comparison</h2>',
              f'<p class="note">Base: {_e(labels[0])}. Δ = variant − base '
              "(&gt; 0: the variant is slower).</p>", _table(header, rows)]
     ids = [c["id"] for c in base.corners]
     if ids:
         head = ["corner"] + [f"{lab} min [km/h]" for lab in labels] + \
+               [f"{lab} margin" for lab in labels] + \
+               [f"{lab} Δ margin" for lab in labels[1:]] + \
                [f"{lab} verdict" for lab in labels]
         crow, ccls = [], []
         for k, cid in enumerate(ids):
             row, cls = [_e(cid)], [""]
-            vcells = []
+            vcells, margins = [], []
             for r in results:
                 c = r.corners[k] if k < len(r.corners) and r.corners[k]["id"] == cid else None
                 row.append(_num(c["min_speed_kph"], ".1f") if c else "–")
                 cls.append("")
                 vcells.append(_verdict_cell(c) if c else ("–", ""))
+                margins.append(c.get("liftoff_margin") if c else None)
+            row += [_num(m, ".3f") for m in margins]
+            row += [_num(_delta(m, margins[0]), "+.3f") for m in margins[1:]]
+            cls += [""] * (2 * len(results) - 1)
             row += [v for v, _ in vcells]
             cls += [c for _, c in vcells]
             crow.append(row)
             ccls.append(cls)
-        vcols = tuple(range(1 + len(labels), 1 + 2 * len(labels)))
+        vcols = tuple(range(1 + 3 * len(labels) - 1, 1 + 4 * len(labels) - 1))
         parts += ["<h3>Corners</h3>", _table(head, crow, text_cols=(0,) + vcols,
                                              cell_classes=ccls)]
     parts.append(_img(plots.figure_png(plots.overlay_figure(results, labels), dpi),
@@ -311,6 +346,10 @@ def _comparison_section(results: Sequence[LapResult], labels: Sequence[str], dpi
                           "over distance, and where on the track it grows (red) or shrinks "
                           "(blue)."))
     return "\n".join(parts)
+
+
+def _delta(x, base):
+    return None if x is None or base is None else x - base
 
 
 def build_report(results: Sequence[LapResult] | LapResult, labels: Sequence[str] | None = None,
@@ -364,7 +403,7 @@ def build_report(results: Sequence[LapResult] | LapResult, labels: Sequence[str]
     for j, (r, lab) in enumerate(zip(results, labels, strict=True)):
         body += [f'<h2 id="lap-{j + 1}">{_e(lab)}</h2>', "<h3>Summary</h3>",
                  _summary_section(r), "<h3>Corners and lift-off check</h3>",
-                 _corner_section(r), "<h3>Figures</h3>", _figures(r, dpi)]
+                 _corner_section(r, dpi), "<h3>Figures</h3>", _figures(r, dpi)]
     body.append('<h2 id="assumptions">Assumptions and limits</h2>')
     body.append('<ul class="assumptions">' + "".join(f"<li>{_e(a)}</li>" for a in ASSUMPTIONS)
                 + "</ul>")

@@ -55,13 +55,15 @@ __all__ = ["RESULT_COLUMNS", "parse_vary", "point_key", "run_point", "sweep", "s
 #: Result columns of every sweep row, after the point key and the varied keys.
 #: lap_time_s [s], top_speed_kph / min_speed_kph [km/h], liftoff_worst_shift [-] (largest
 #: balance-index rise on lift-off over all corners), flagged_corners [-] (verdict
-#: rear-saturates or watch), liftoff_max_usage_rear [-] (highest rear usage after lift-off),
-#: status ("ok" or "infeasible"), message (why a point failed, or the first physics warning).
+#: lift-critical or lift-marginal), liftoff_max_usage_rear [-] (highest rear usage after
+#: lift-off at the lap's own state), liftoff_margin_min [-] (smallest corner lift-off margin,
+#: 1 = a lift at the limit keeps the rear), status ("ok" or "infeasible"), message (why a
+#: point failed, or the first physics warning).
 RESULT_COLUMNS = ("status", "lap_time_s", "top_speed_kph", "min_speed_kph",
                   "liftoff_worst_shift", "flagged_corners", "liftoff_max_usage_rear",
-                  "message")
+                  "liftoff_margin_min", "message")
 _FLOAT_COLS = ("lap_time_s", "top_speed_kph", "min_speed_kph", "liftoff_worst_shift",
-               "liftoff_max_usage_rear")
+               "liftoff_max_usage_rear", "liftoff_margin_min")
 LOG_NAME = "sweep.csv"
 RESULTS_NAME = "results.csv"
 _MAX_POINTS = 100_000
@@ -251,7 +253,7 @@ def run_point(raw: dict, source: str, track, point: Mapping[str, float],
         ``point``, the point's values, then :data:`RESULT_COLUMNS`.
     """
     from lapbalance.lap import simulate_lap
-    from lapbalance.liftoff import flagged
+    from lapbalance.liftoff import flagged, smallest_margin
 
     row: dict[str, Any] = {"point": point_key(point), **{k: float(v) for k, v in point.items()}}
     empty = {c: None for c in RESULT_COLUMNS}
@@ -276,6 +278,7 @@ def run_point(raw: dict, source: str, track, point: Mapping[str, float],
         "liftoff_worst_shift": float(max(shifts)) if shifts else None,
         "flagged_corners": len(flagged(res.corners)),
         "liftoff_max_usage_rear": float(max(rear)) if rear else None,
+        "liftoff_margin_min": smallest_margin(res.corners),
         "message": str(caught[0].message) if caught else None,
     })
     return row
@@ -597,7 +600,8 @@ def _write_final(out_dir: Path, rows, keys, car, track, method, n, seed, base_id
 
 
 def sweep_figures_png(rows: Sequence[Mapping], keys: Sequence[str]) -> dict[str, bytes]:
-    """Plots of a sweep as PNG bytes: ``lap_time.png`` and ``liftoff_shift.png``.
+    """Plots of a sweep as PNG bytes: ``lap_time.png``, ``liftoff_margin.png`` and
+    ``liftoff_shift.png``.
 
     1-D sweeps give line plots; 2-D grids give heat maps, other 2-D point sets (Latin
     hypercubes) coloured scatter plots; sweeps over more keys give no plots (an empty dict).
@@ -608,6 +612,9 @@ def sweep_figures_png(rows: Sequence[Mapping], keys: Sequence[str]) -> dict[str,
     from matplotlib.figure import Figure
 
     what = {"lap_time.png": ("lap_time_s", "lap time [s]"),
+            "liftoff_margin.png": ("liftoff_margin_min",
+                                   "smallest lift-off margin [-] (1 = a lift at the limit "
+                                   "keeps the rear)"),
             "liftoff_shift.png": ("liftoff_worst_shift",
                                   "worst lift-off balance shift [-] (> 0 toward oversteer)")}
     out = {}

@@ -32,7 +32,7 @@ import numpy as np
 from lapbalance import handling
 from lapbalance.errors import InputError, closest, did_you_mean
 from lapbalance.lap import CHANNELS
-from lapbalance.liftoff import VERDICTS
+from lapbalance.liftoff import FLAG_VERDICTS, VERDICTS
 
 
 @dataclass(frozen=True)
@@ -61,6 +61,16 @@ CORNER_QUANTITIES = [
     _q("usage_rear_at_min", "corner", "-", "rear grip usage at the slowest point"),
     _q("aero_balance_front_at_min", "corner", "-",
        "front share of downforce at the slowest point, CG convention"),
+    _q("liftoff_margin", "corner", "-",
+       "lift-off margin: a_y where a lift keeps the rear / a_y at the limit, smallest over "
+       "the corner's checked steps (1 = a lift at the limit keeps the rear; corners checked "
+       "for lift-off only)"),
+    _q("coast_margin", "corner", "-", "the same when coasting (no engine braking)"),
+    _q("liftoff_rear_reserve", "corner", "-",
+       "1 - rear usage after a lift at the limit, at the corner's tightest step (< 0 "
+       "saturates)"),
+    _q("liftoff_speed_margin_kph", "corner", "km/h",
+       "limit speed minus the highest safe-lift speed at the corner's tightest step"),
     _q("liftoff_max_shift", "corner", "-",
        "largest balance-index change on lift-off (corners checked for lift-off only)"),
     _q("liftoff_max_usage_rear", "corner", "-",
@@ -87,7 +97,12 @@ LAP_QUANTITIES = [
     _q("car_aero_balance_front_ground", "lap", "-",
        "car's input aero balance as wheel-restrained scales read it"),
     _q("liftoff_rear_saturates_count", "lap", "-",
-       "number of corners whose lift-off verdict is rear-saturates"),
+       "number of corners where a lift at the limit saturates the rear (rear reserve < 0, "
+       "i.e. lift-off margin < 1)"),
+    _q("liftoff_flagged_count", "lap", "-",
+       "number of corners whose lift-off verdict is lift-critical or lift-marginal"),
+    _q("liftoff_critical_count", "lap", "-",
+       "number of corners whose lift-off verdict is lift-critical"),
     _q("balance_migration", "lap", "-",
        "aero balance (CG) at high speed minus at low speed (see [model] bands)"),
     _q("balance_migration_ground", "lap", "-", "the same in the ground convention"),
@@ -619,6 +634,8 @@ def _corner_where(row: dict, quantity: str) -> dict:
     step = None
     if quantity == "liftoff_max_usage_rear":
         step = row.get("liftoff_worst_rear")
+    elif quantity in ("liftoff_margin", "liftoff_rear_reserve", "liftoff_speed_margin_kph"):
+        step = row.get("liftoff_tightest")
     elif quantity in ("liftoff_max_shift", "coast_max_shift", "overrun_share"):
         step = row.get("liftoff_worst_shift")
     if step:
@@ -660,7 +677,12 @@ def _lap_value(result, name: str, model: Model, cache) -> float | None:
     if name in direct:
         return s[direct[name]]
     if name == "liftoff_rear_saturates_count":
-        return float(sum(c.get("liftoff_verdict") == "rear-saturates" for c in result.corners))
+        return float(sum((c.get("liftoff_rear_reserve") is not None
+                          and c["liftoff_rear_reserve"] < 0.0) for c in result.corners))
+    if name == "liftoff_flagged_count":
+        return float(sum(c.get("liftoff_verdict") in FLAG_VERDICTS for c in result.corners))
+    if name == "liftoff_critical_count":
+        return float(sum(c.get("liftoff_verdict") == "lift-critical" for c in result.corners))
     key = ("figures", model)
     f = cache.get(key)
     if f is None:

@@ -71,12 +71,17 @@ def format_compare(result, track: str) -> str:
           _f(r["top_speed_kph"], ".1f"),
           _pct_pair(r["aero_balance_front_low"], r["aero_balance_front_ground_low"]),
           _pct_pair(r["aero_balance_front_high"], r["aero_balance_front_ground_high"]),
-          _f(r["liftoff_worst_shift"], "+.3f"), r["flagged_corners"]] for r in rows],
+          _f(r["liftoff_margin_min"], ".3f"), _f(r["liftoff_margin_delta"], "+.3f"),
+          _f(r["liftoff_reserve_min"], "+.3f"), _f(r["liftoff_reserve_delta"], "+.3f"),
+          r["flagged_corners"], _f(r["liftoff_worst_shift"], "+.3f")] for r in rows],
         ["car", "lap s", "delta s", "top km/h", f"bal <{lo:g} %", f"bal >={hi:g} %",
-         "lift shift", "flagged"]))
+         "margin", "d margin", "reserve", "d reserve", "flagged", "lift shift"]))
     lines.append(f"bal = front share of downforce, mean over steps below {lo:g} km/h / at or "
                  f"above {hi:g} km/h, as CG convention (wheel-restrained scales in "
-                 "brackets); delta = car minus base (negative = faster)")
+                 "brackets); delta = car minus base (negative = faster); margin = smallest "
+                 "lift-off margin over the corners (1 = a lift at the limit keeps the rear); "
+                 "reserve = smallest rear reserve after a lift at the limit (< 0 saturates; "
+                 "it ranks cars whose margin is 1); d = car minus base (> 0 safer)")
     segs = result.segments_for(track)
     labels = result.labels
     by_car = {lab: [s for s in segs if s["car"] == lab] for lab in labels}
@@ -87,18 +92,30 @@ def format_compare(result, track: str) -> str:
             row = [s["segment"], f"{s['start_m']:.0f}", f"{s['end_m']:.0f}",
                    f"{s['time_s']:.3f}"]
             row += [f"{by_car[lab][i]['delta_s']:+.3f}" for lab in labels[1:]]
+            corner = s["kind"] == "corner"
+            row.append(_f(s["liftoff_margin"], ".3f") if corner else "")
+            row += [_f(by_car[lab][i]["liftoff_margin_delta"], "+.3f") if corner else ""
+                    for lab in labels[1:]]
+            row.append(_f(s["liftoff_rear_reserve"], "+.3f") if corner else "")
+            row += [_f(by_car[lab][i]["liftoff_rear_reserve_delta"], "+.3f") if corner else ""
+                    for lab in labels[1:]]
             verdicts = [by_car[lab][i]["liftoff_verdict"] for lab in labels]
-            row.append("/".join(v or "-" for v in verdicts) if s["kind"] == "corner" else "")
+            row.append("/".join(v or "-" for v in verdicts) if corner else "")
             srows.append(row)
         tot = [sum(by_car[lab][i]["delta_s"] for i in range(len(base))) for lab in labels[1:]]
         srows.append(["lap", "", "", f"{sum(s['time_s'] for s in base):.3f}"]
-                     + [f"{t:+.3f}" for t in tot] + [""])
+                     + [f"{t:+.3f}" for t in tot] + [""] * (2 * len(labels) + 1))
         head = ["segment", "from m", "to m", "base s"] + [f"d {j + 1} s"
                                                           for j in range(len(labels) - 1)]
+        head += ["base margin"] + [f"dm {j + 1}" for j in range(len(labels) - 1)]
+        head += ["base reserve"] + [f"dr {j + 1}" for j in range(len(labels) - 1)]
         lines.append("")
         lines.append(table(srows, head + ["lift-off verdicts"]))
         lines.append("C = corner (entry to exit), S = straight between corners; d j = time "
-                     "of car j minus base there; verdicts in car order: "
+                     "of car j minus base there; base margin = the base car's lift-off "
+                     "margin in the corner, dm j = car j's margin minus it (> 0 safer); base "
+                     "reserve, dr j = the same for the rear reserve after a lift at the limit; "
+                     "verdicts in car order: "
                      + "; ".join(f"{j}: {lab}" for j, lab in enumerate(labels)))
     return "\n".join(lines)
 
@@ -119,9 +136,12 @@ def _csv_rows(rows, columns):
 SUMMARY_COLUMNS = ("car", "lap_time_s", "delta_s", "top_speed_kph", "min_speed_kph",
                    "aero_balance_front_low", "aero_balance_front_high",
                    "aero_balance_front_ground_low", "aero_balance_front_ground_high",
-                   "liftoff_worst_shift", "flagged_corners")
+                   "liftoff_worst_shift", "flagged_corners", "liftoff_margin_min",
+                   "liftoff_margin_delta", "liftoff_reserve_min", "liftoff_reserve_delta")
 SEGMENT_COLUMNS = ("car", "segment", "kind", "corner_id", "start_m", "end_m", "time_s",
-                   "delta_s", "min_speed_kph", "liftoff_verdict", "liftoff_max_shift",
+                   "delta_s", "min_speed_kph", "liftoff_verdict", "liftoff_margin",
+                   "liftoff_margin_delta", "liftoff_rear_reserve", "liftoff_rear_reserve_delta",
+                   "liftoff_max_shift",
                    "liftoff_max_usage_rear")
 
 
@@ -300,13 +320,14 @@ def format_sweep(rows, keys, limit: int = 30) -> str:
     body = []
     for r in shown:
         body.append([*(f"{r[k]:.6g}" for k in keys), _f(r["lap_time_s"], ".3f"),
-                     _f(r["top_speed_kph"], ".1f"), _f(r["liftoff_worst_shift"], "+.3f"),
-                     _f(r["flagged_corners"], "d"), _f(r["liftoff_max_usage_rear"], ".3f"),
-                     r["status"]])
-    text = table(body, [*keys, "lap s", "top km/h", "lift shift", "flagged", "rear off",
-                        "status"])
-    text += ("\nlift shift = largest balance change on lift-off over all corners (> 0 toward "
-             "oversteer); rear off = highest rear usage after lift-off")
+                     _f(r["top_speed_kph"], ".1f"), _f(r.get("liftoff_margin_min"), ".3f"),
+                     _f(r["flagged_corners"], "d"), _f(r["liftoff_worst_shift"], "+.3f"),
+                     _f(r["liftoff_max_usage_rear"], ".3f"), r["status"]])
+    text = table(body, [*keys, "lap s", "top km/h", "margin", "flagged", "lift shift",
+                        "rear off", "status"])
+    text += ("\nmargin = smallest lift-off margin over the corners (1 = a lift at the limit "
+             "keeps the rear); lift shift = largest balance change on lift-off over all "
+             "corners (> 0 toward oversteer); rear off = highest rear usage after lift-off")
     return text + ("\n" + note if note else "")
 
 

@@ -8,7 +8,7 @@ from lapbalance.car import load_car
 from lapbalance.cli import main
 from lapbalance.cli.common import (apply_line, echo_json, force_option, json_option,
                                    line_options, set_option, table)
-from lapbalance.liftoff import flagged, verdict_counts
+from lapbalance.liftoff import flagged, ranked, smallest_margin, verdict_counts
 
 
 def track_options(f):
@@ -63,35 +63,49 @@ def format_lap(result, liftoff_only: bool = False) -> str:
                                               for x in s["sectors"]))
         lines.append("")
         rows = []
-        for c in result.corners:
+        for c in ranked(result.corners):
             rows.append([c["id"], c["direction"], f"{c['apex_m']:.0f}",
                          f"{c['min_radius_m']:.0f}", f"{c['min_speed_kph']:.1f}",
                          c["limiting_axle"], f"{c['balance_index_at_min']:+.3f}",
                          c.get("liftoff_verdict", ""),
-                         _num(c.get("liftoff_max_shift"), "+.3f"),
-                         _num(c.get("liftoff_max_usage_rear"), ".3f")])
+                         _num(c.get("liftoff_margin"), ".3f"),
+                         _num(c.get("liftoff_speed_margin_kph"), ".1f"),
+                         _num(c.get("liftoff_rear_reserve"), "+.3f"),
+                         _num(c.get("liftoff_max_shift"), "+.3f")])
         if rows:
             lines.append(table(rows, ["corner", "dir", "apex m", "radius m", "min km/h",
-                                      "limit", "balance", "lift-off", "shift", "rear off"]))
-            lines.append("balance = usage_rear - usage_front at the slowest point "
-                         "(> 0 oversteer-leaning); shift = largest balance change on "
-                         "lift-off; rear off = highest rear usage after lift-off")
+                                      "limit", "balance", "lift-off", "margin", "dv km/h",
+                                      "reserve", "shift"]))
+            lines.append("sorted by lift-off margin, tightest first. balance = usage_rear - "
+                         "usage_front at the slowest point (> 0 oversteer-leaning); margin = "
+                         "a_y where a lift keeps the rear / a_y at the limit (1 = safe at the "
+                         "limit); dv = limit speed minus that safe speed; reserve = 1 - rear "
+                         "usage after a lift at the limit (< 0 saturates); shift = largest "
+                         "balance change on lift-off at the lap's own state")
             lines.append("")
     flags = flagged(result.corners)
     counts = verdict_counts(result.corners)
-    lines.append("lift-off check: " + ", ".join(f"{v} {n}" for v, n in counts.items() if n))
+    low = smallest_margin(result.corners)
+    lines.append("lift-off check: " + ", ".join(f"{v} {n}" for v, n in counts.items() if n)
+                 + ("" if low is None else f"; smallest margin {low:.3f}"))
     if flags:
         rows = []
         for c in flags:
+            t = c["liftoff_tightest"]
             w = c["liftoff_worst_rear"]
-            rows.append([c["id"], c["liftoff_verdict"].upper(), f"{w['distance_m']:.0f}",
-                         f"{w['speed_kph']:.0f}", f"{w['usage_rear_on']:.3f}",
-                         f"{w['usage_rear_off']:.3f}", f"{w['coast_usage_rear']:.3f}",
-                         f"{w['front_load_shift_n']:+.0f}", c["liftoff_reason"]])
-        lines.append(table(rows, ["corner", "verdict", "at m", "km/h", "rear on",
-                                  "rear off", "rear coast", "front +N", "why"]))
-        lines.append("rear on/off/coast = rear usage on throttle, after lift-off with engine "
-                     "braking, and coasting without it")
+            rows.append([c["id"], c["liftoff_verdict"].upper(), f"{t['margin']:.3f}",
+                         f"{t['distance_m']:.0f}", f"{t['limit_speed_kph']:.0f}",
+                         f"{t['safe_speed_kph']:.0f}", f"{t['coast_margin']:.3f}",
+                         f"{w['distance_m']:.0f}", f"{w['usage_rear_on']:.3f}",
+                         f"{w['usage_rear_off']:.3f}", f"{w['front_load_shift_n']:+.0f}",
+                         c["liftoff_reason"]])
+        lines.append(table(rows, ["corner", "verdict", "margin", "at m", "limit km/h",
+                                  "safe km/h", "coast", "lap at m", "rear on", "rear off",
+                                  "front +N", "why"]))
+        lines.append("margin at m = the tightest step; limit/safe km/h = its corner-limit "
+                     "speed and the highest speed where a lift keeps the rear; coast = the "
+                     "margin without engine braking; lap at m, rear on/off, front +N = the "
+                     "lap's own step with the highest rear usage after a lift")
     else:
         lines.append("no corner flagged")
     return "\n".join(lines)
@@ -138,11 +152,19 @@ def lap_command(car_file, track_file, out_dir, overrides, as_json, force, step_m
     track = apply_line(track, car, line, track_width_m, line_margin_m)
     result = simulate_lap(car, track, start_speed_kph=start_speed_kph)
     if out_dir:
+        from lapbalance.liftoff import corner_response
+
         extra = {}
+        curve = corner_response(result)
+        if curve is not None:
+            extra["liftoff_response.csv"] = curve.csv_text().encode("utf-8")
         if plots:
             from lapbalance import plots as _plots
 
-            extra = _plots.lap_figures_png(result)
+            extra.update(_plots.lap_figures_png(result))
+            if curve is not None:
+                extra["liftoff_response.png"] = _plots.figure_png(
+                    _plots.liftoff_response_figure(curve, result.car.name))
         write_lap_folder(result, out_dir, force=force, extra=extra)
     elif plots:
         raise click.UsageError("--plots needs --out DIR")
@@ -151,4 +173,6 @@ def lap_command(car_file, track_file, out_dir, overrides, as_json, force, step_m
         return
     click.echo(format_lap(result, liftoff_only))
     if out_dir:
-        click.echo(f"\nwrote {out_dir}/channels.csv, corners.csv, summary.json")
+        click.echo(f"\nwrote {out_dir}/channels.csv, corners.csv, summary.json"
+                   + (", liftoff_response.csv (tightest corner)"
+                      if "liftoff_response.csv" in extra else ""))
