@@ -34,6 +34,16 @@ import numpy as np
 
 VERDICTS = ("rear-saturates", "watch", "stable", "not-checked")
 
+#: One wording of every verdict, shown beside the verdict code by the terminal, the JSON
+#: output (``liftoff_verdicts``) and the report; keep it in step with :func:`verdict`.
+VERDICT_MEANING = {
+    "rear-saturates": "the rear axle cannot hold the corner once the driver lifts",
+    "watch": "the rear keeps little grip in reserve after lift-off, or the balance moves "
+             "far toward oversteer at high speed",
+    "stable": "the rear keeps a clear grip reserve after lift-off",
+    "not-checked": "no step in the corner corners on throttle, so there is nothing to check",
+}
+
 
 @dataclass(frozen=True)
 class Thresholds:

@@ -108,6 +108,9 @@ def track_command(track_file, step_m, closed, map_png, as_json):
         write_bytes_atomic(map_png, track_map_png(tr))
         info["map_png"] = str(map_png)
     if as_json:
+        from lapbalance import provenance
+
+        info["provenance"] = provenance.build(tracks=[tr])
         echo_json(info)
         return
     kind = "closed circuit" if tr.closed else "open stage"
