@@ -147,7 +147,9 @@ def _dotted(sec: str, key: str) -> str:
 
 
 def overrides(car) -> list[dict]:
-    """The car's ``--set`` overrides, in the order applied.
+    """The car's ``--set`` overrides that are in effect, in car-file key order (an override
+    of a key's other unit, e.g. ``wheelbase_mm`` after ``wheelbase_m``, replaces it, so the
+    order does not change the car).
 
     Returns
     -------

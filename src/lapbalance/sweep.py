@@ -667,66 +667,80 @@ def sweep_figures(rows: Sequence[Mapping], keys: Sequence[str], title: str | Non
     """
     if len(keys) not in (1, 2) or not rows:
         return {}
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
-    from matplotlib.figure import Figure
-
-    what = {"lap_time": ("lap_time_s", "lap time", "s"),
-            "liftoff_shift": ("liftoff_worst_shift",
-                              "worst lift-off balance shift (> 0 toward oversteer)", "-")}
     out = {}
-    for name, (col, label, unit) in what.items():
-        z = np.array([np.nan if r.get(col) is None else float(r[col]) for r in rows])
-        fin = z[np.isfinite(z)]
-        rng = (f"range {fin.min():.4g} to {fin.max():.4g} {unit}"
-               f" (spread {fin.max() - fin.min():.3g})" if fin.size else "no data")
-        fig = Figure(figsize=(6.8, 5.0), dpi=100, layout="constrained")
-        FigureCanvasAgg(fig)
-        ax = fig.add_subplot()
-        x = np.array([float(r[keys[0]]) for r in rows])
-        if len(keys) == 1:
-            order = np.argsort(x, kind="stable")
-            ax.plot(x[order], z[order], marker="o")
-            ax.set_xlabel(keys[0])
-            ax.set_ylabel(f"{label} [{unit}]")
-            ax.yaxis.get_major_formatter().set_useOffset(False)
-            xs = np.unique(x)
-            if len(xs) <= 12:
-                ax.set_xticks(xs, labels=[_value_text(v) for v in xs])
-            ax.grid(True, alpha=0.3)
-            ax.set_title(f"{title + ': ' if title else ''}{label}\n{rng}", fontsize=10)
-        else:
-            y = np.array([float(r[keys[1]]) for r in rows])
-            xs, ys = np.unique(x), np.unique(y)
-            if len(xs) * len(ys) == len(rows) and len(xs) > 1 and len(ys) > 1:
-                grid = np.full((len(ys), len(xs)), np.nan)
-                grid[np.searchsorted(ys, y), np.searchsorted(xs, x)] = z
-                m = ax.pcolormesh(_edges(xs), _edges(ys), np.ma.masked_invalid(grid),
-                                  shading="flat", cmap="viridis")
-                norm = m.norm
-                for i, yy in enumerate(ys):
-                    for j, xx in enumerate(xs):
-                        if np.isfinite(grid[i, j]):
-                            dark = float(norm(grid[i, j])) < 0.6  # viridis: dark low end
-                            ax.text(xx, yy, f"{grid[i, j]:.3f}", ha="center", va="center",
-                                    fontsize=7, color="white" if dark else "black")
-                if len(xs) <= 15:
-                    ax.set_xticks(xs, labels=[_value_text(v) for v in xs])
-                if len(ys) <= 15:
-                    ax.set_yticks(ys, labels=[_value_text(v) for v in ys])
-                ax.grid(False)
-            else:
-                m = ax.scatter(x, y, c=np.ma.masked_invalid(z), cmap="viridis", s=30)
-            cb = fig.colorbar(m, ax=ax)
-            cb.formatter.set_useOffset(False)
-            cb.update_ticks()
-            cb.set_label(f"{label} [{unit}]\ncolour {rng}", fontsize=8)
-            ax.set_xlabel(keys[0])
-            ax.set_ylabel(keys[1])
-            ax.set_title(f"{title + ': ' if title else ''}{label}", fontsize=10)
+    for name in SWEEP_FIGURES:
+        fig = sweep_figure(rows, keys, name, title)
         buf = io.BytesIO()
         fig.savefig(buf, format=fmt, metadata=None if fmt == "png" else {"Date": None})
         out[f"{name}.{fmt}"] = buf.getvalue()
     return out
+
+
+#: Sweep figures: name -> (result column, label, unit).
+SWEEP_FIGURES = {"lap_time": ("lap_time_s", "lap time", "s"),
+                 "liftoff_shift": ("liftoff_worst_shift",
+                                   "worst lift-off balance shift (> 0 toward oversteer)", "-")}
+
+
+def sweep_figure(rows: Sequence[Mapping], keys: Sequence[str], name: str = "lap_time",
+                 title: str | None = None):
+    """One sweep figure (a :class:`matplotlib.figure.Figure`; see :func:`sweep_figures`).
+
+    ``name`` is a key of :data:`SWEEP_FIGURES`; ``keys`` has one or two swept keys.
+    """
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
+    col, label, unit = SWEEP_FIGURES[name]
+    z = np.array([np.nan if r.get(col) is None else float(r[col]) for r in rows])
+    fin = z[np.isfinite(z)]
+    rng = (f"range {fin.min():.4g} to {fin.max():.4g} {unit}"
+           f" (spread {fin.max() - fin.min():.3g})" if fin.size else "no data")
+    fig = Figure(figsize=(6.8, 5.0), dpi=100, layout="constrained")
+    FigureCanvasAgg(fig)
+    ax = fig.add_subplot()
+    x = np.array([float(r[keys[0]]) for r in rows])
+    if len(keys) == 1:
+        order = np.argsort(x, kind="stable")
+        ax.plot(x[order], z[order], marker="o")
+        ax.set_xlabel(keys[0])
+        ax.set_ylabel(f"{label} [{unit}]")
+        ax.yaxis.get_major_formatter().set_useOffset(False)
+        xs = np.unique(x)
+        if len(xs) <= 12:
+            ax.set_xticks(xs, labels=[_value_text(v) for v in xs])
+        ax.grid(True, alpha=0.3)
+        ax.set_title(f"{title + ': ' if title else ''}{label}\n{rng}", fontsize=10)
+    else:
+        y = np.array([float(r[keys[1]]) for r in rows])
+        xs, ys = np.unique(x), np.unique(y)
+        if len(xs) * len(ys) == len(rows) and len(xs) > 1 and len(ys) > 1:
+            grid = np.full((len(ys), len(xs)), np.nan)
+            grid[np.searchsorted(ys, y), np.searchsorted(xs, x)] = z
+            m = ax.pcolormesh(_edges(xs), _edges(ys), np.ma.masked_invalid(grid),
+                              shading="flat", cmap="viridis")
+            norm = m.norm
+            for i, yy in enumerate(ys):
+                for j, xx in enumerate(xs):
+                    if np.isfinite(grid[i, j]):
+                        dark = float(norm(grid[i, j])) < 0.6  # viridis: dark low end
+                        ax.text(xx, yy, f"{grid[i, j]:.3f}", ha="center", va="center",
+                                fontsize=7, color="white" if dark else "black")
+            if len(xs) <= 15:
+                ax.set_xticks(xs, labels=[_value_text(v) for v in xs])
+            if len(ys) <= 15:
+                ax.set_yticks(ys, labels=[_value_text(v) for v in ys])
+            ax.grid(False)
+        else:
+            m = ax.scatter(x, y, c=np.ma.masked_invalid(z), cmap="viridis", s=30)
+        cb = fig.colorbar(m, ax=ax)
+        cb.formatter.set_useOffset(False)
+        cb.update_ticks()
+        cb.set_label(f"{label} [{unit}]\ncolour {rng}", fontsize=8)
+        ax.set_xlabel(keys[0])
+        ax.set_ylabel(keys[1])
+        ax.set_title(f"{title + ': ' if title else ''}{label}", fontsize=10)
+    return fig
 
 
 def _edges(c: np.ndarray) -> np.ndarray:
