@@ -139,7 +139,8 @@ def test_balance_map_shows_cornering_steps_only(ring_lap):
     fig = plots.track_map_figure(ring_lap)
     (lc,) = [c for c in fig.axes[0].collections if c.get_array() is not None]
     arr = np.ma.masked_invalid(np.asarray(lc.get_array(), float))
-    corner = np.abs(ring_lap.channels["ay_mps2"][:-1]) >= 4.0
+    ay = np.abs(ring_lap.channels["ay_mps2"][:-1])
+    corner = (ay >= 4.0) & (np.abs(ring_lap.channels["ax_mps2"][:-1]) <= 0.5 * ay)
     assert np.all(arr.mask[~corner]) and not np.any(arr.mask[corner])
     # the scale is set by the corners, not by the straights' drive-force-loaded rear
     bal = ring_lap.channels["balance_index"][:-1]

@@ -155,18 +155,25 @@ def _track_line(ax, x, y, values, cmap, norm, width=3.0) -> LineCollection:
 
 
 #: Where the balance map shows the balance index: steps whose lateral acceleration reaches
-#: this [m/s²] (the lift-off check's cornering threshold, ISO 9816 start condition); elsewhere
-#: (straights, where drive force on the rear sets the index) the line is grey.
+#: this [m/s²] (the lift-off check's cornering threshold, ISO 9816 start condition) ...
 CORNERING_AY_MPS2 = 4.0
+#: ... and whose longitudinal acceleration is at most this share of the lateral one, so the
+#: car mostly corners. Elsewhere (straights, and corner exits on full throttle, where the
+#: drive force loading the rear tyres sets the index) the line is grey.
+CORNERING_AX_RATIO = 0.5
 
 
-def cornering_mask(result: LapResult, ay_threshold: float | None = None) -> np.ndarray:
-    """Steps where the car corners: ``|a_y| >= ay_threshold`` [m/s²] (default: the lap's
-    lift-off threshold, else :data:`CORNERING_AY_MPS2`)."""
+def cornering_mask(result: LapResult, ay_threshold: float | None = None,
+                   ax_ratio: float = CORNERING_AX_RATIO) -> np.ndarray:
+    """Steps where the car mostly corners: ``|a_y| >= ay_threshold`` [m/s²] (default: the
+    lap's lift-off threshold, else :data:`CORNERING_AY_MPS2`) and ``|a_x| <= ax_ratio |a_y|``
+    [-]."""
     if ay_threshold is None:
         ay_threshold = float(result.settings.get("liftoff_ay_threshold_mps2",
                                                  CORNERING_AY_MPS2))
-    return np.abs(np.asarray(result.channels["ay_mps2"], float)) >= ay_threshold
+    ay = np.abs(np.asarray(result.channels["ay_mps2"], float))
+    ax = np.abs(np.asarray(result.channels["ax_mps2"], float))
+    return (ay >= ay_threshold) & (ax <= ax_ratio * ay)
 
 
 @_styled
@@ -175,10 +182,11 @@ def track_map_figure(result: LapResult, channel: str | None = None) -> Figure:
     apexes, lift-off flags.
 
     By default the colour is the balance index ``u_r - u_f`` on the steps where the car
-    corners (``|a_y|`` at or above the lift-off threshold, 4 m/s² by default; see
-    :func:`cornering_mask`); straights and gentle bends are grey, because there the drive
-    force loading the rear, not the handling balance, sets the index. The colour scale is
-    symmetric about zero over the cornering steps.
+    mostly corners (``|a_y|`` at or above the lift-off threshold, 4 m/s² by default, and
+    ``|a_x| <= |a_y|/2``; see :func:`cornering_mask`); straights, gentle bends and
+    full-throttle exits are grey, because there the drive force loading the rear, not the
+    handling balance, sets the index. The colour scale is symmetric about zero over the
+    cornering steps.
 
     Parameters
     ----------
@@ -206,7 +214,7 @@ def track_map_figure(result: LapResult, channel: str | None = None) -> Figure:
         cb = fig.colorbar(lc, ax=ax, shrink=0.85, extend="both")
         thr = float(result.settings.get("liftoff_ay_threshold_mps2", CORNERING_AY_MPS2))
         cb.set_label(f"balance index u_r - u_f [-] where |a_y| >= {thr:g} m/s²\n"
-                     "(> 0 oversteer-leaning; grey: not cornering)")
+                     "and |a_x| <= |a_y|/2 (> 0 oversteer-leaning; grey: not cornering)")
         title = "cornering balance around the lap"
     else:
         from lapbalance.lap import CHANNELS
@@ -648,10 +656,11 @@ def delta_figure(base: LapResult, other: LapResult, labels: Sequence[str] | None
 
 #: Figures of one lap: file stem -> (function, caption).
 LAP_FIGURES: dict[str, tuple[Callable[[LapResult], Figure], str]] = {
-    "track_map": (track_map_figure, "Balance index where the car corners (|a_y| at or above "
-                  "the lift-off threshold, 4 m/s² by default; grey elsewhere), corner numbers "
-                  "at the apexes, lift-off flags at the step with the highest rear usage "
-                  "after lift-off."),
+    "track_map": (track_map_figure, "Balance index where the car mostly corners (|a_y| at "
+                  "or above the lift-off threshold, 4 m/s² by default, and |a_x| at most half "
+                  "of it; grey elsewhere, where drive force on the rear sets the index), "
+                  "corner numbers at the apexes, lift-off flags at the step with the highest "
+                  "rear usage after lift-off."),
     "speed": (speed_figure, "Speed over distance; dashed: steady corner-limit speed."),
     "usage": (usage_figure, "Front and rear grip usage; shaded where the front axle, the "
               "rear axle or the engine sets the speed."),

@@ -246,7 +246,7 @@ def _provenance_section(record: dict) -> str:
     parts = ['<h2 id="provenance">Provenance</h2>',
              '<p class="note">What was run, so the results can be traced and rerun '
              "(<code>lapbalance rerun summary.json</code> for a lap written with "
-             "<code>--out</code>).</p>", _table(["", "value"], meta)]
+             "<code>--out</code>).</p>", _table(["", "value"], meta, text_cols=(0, 1))]
     files = [[_e(f["role"]), _e(f["path"]), _e(f["bytes"]),
               f"<code>{_e(f['sha256'])}</code>"] for f in record.get("inputs", [])]
     parts += ["<h3>Input files</h3>",
@@ -501,7 +501,10 @@ def build_report(results: Sequence[LapResult] | LapResult, labels: Sequence[str]
         body.append(_comparison_section(results, labels, dpi, disp))
     for j, (r, lab) in enumerate(zip(results, labels, strict=True)):
         body += [f'<h2 id="lap-{j + 1}">{_e(lab)}</h2>', "<h3>Summary</h3>",
-                 _summary_section(r, disp), "<h3>Corners and lift-off check</h3>",
+                 _summary_section(r, disp)]
+        if len(results) == 1:
+            body.append(_setup_section([r], [lab]))
+        body += ["<h3>Corners and lift-off check</h3>",
                  _corner_section(r, disp), "<h3>Figures</h3>", _figures(r, dpi)]
     body.append('<h2 id="assumptions">Assumptions and limits</h2>')
     body.append('<ul class="assumptions">' + "".join(f"<li>{_e(a)}</li>" for a in ASSUMPTIONS)

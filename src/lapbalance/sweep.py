@@ -185,7 +185,7 @@ def auto_workers(n_points: int, cpus: int | None = None) -> int:
 
 #: Points per worker below which a pool costs more to start than it saves (measured, see
 #: DEVELOPERS.md "Sweep workers").
-POINTS_PER_WORKER = 24
+POINTS_PER_WORKER = 50
 
 
 def point_key(point: Mapping[str, float]) -> str:

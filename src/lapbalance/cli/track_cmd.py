@@ -42,8 +42,9 @@ def track_summary(tr: Track) -> dict:
     }
 
 
-def track_map_png(tr: Track) -> bytes:
-    """Draw the track map (corners labelled at their apex) and return PNG bytes."""
+def track_map_png(tr: Track, fmt: str = "png") -> bytes:
+    """Draw the track map (corners labelled at their apex) and return PNG (or ``svg``,
+    ``pdf``) bytes."""
     import matplotlib
 
     matplotlib.use("Agg")
@@ -83,7 +84,7 @@ def track_map_png(tr: Track) -> bytes:
                  "(blue left, orange right)", fontsize=9)
     ax.legend(loc="best", fontsize=8)
     buf = io.BytesIO()
-    fig.savefig(buf, format="png")
+    fig.savefig(buf, format=fmt, metadata=None if fmt == "png" else {"Date": None})
     return buf.getvalue()
 
 
@@ -94,7 +95,8 @@ def track_map_png(tr: Track) -> bytes:
 @click.option("--closed/--open", "closed", default=None,
               help="Force a closed circuit or an open stage (default: from the file).")
 @click.option("--map", "map_png", type=click.Path(dir_okay=False), default=None,
-              metavar="PNG", help="Save a track map with corners labelled.")
+              metavar="FILE", help="Save a track map with corners labelled (PNG; SVG or "
+                                   "PDF when the file name ends in .svg or .pdf).")
 @json_option
 def track_command(track_file, step_m, closed, map_png, as_json):
     """Load TRACK_FILE (CSV), print its length, corners and sectors."""
@@ -105,7 +107,9 @@ def track_command(track_file, step_m, closed, map_png, as_json):
     tr = load_track(track_file, step_m=step_m, closed=closed)
     info = track_summary(tr)
     if map_png:
-        write_bytes_atomic(map_png, track_map_png(tr))
+        suffix = str(map_png).lower().rsplit(".", 1)[-1]
+        write_bytes_atomic(map_png, track_map_png(tr, suffix if suffix in ("svg", "pdf")
+                                                  else "png"))
         info["map_png"] = str(map_png)
     if as_json:
         from lapbalance import provenance
