@@ -82,6 +82,12 @@ def write_provenance(folder: str | Path, record: dict) -> None:
         encoding="utf-8")
 
 
+def _prov_record(result, files):
+    from lapbalance import provenance as _prov
+
+    return _prov.for_lap(result, files)
+
+
 def write_lap_folder(result: LapResult, out_dir: str | Path, force: bool = False,
                      extra: dict[str, bytes] | None = None,
                      files: tuple[tuple[str, str], ...] = ()) -> Path:
@@ -91,14 +97,14 @@ def write_lap_folder(result: LapResult, out_dir: str | Path, force: bool = False
     ``files`` are other inputs for the provenance record, as (role, path). The folder is
     filled in a temporary sibling and swapped in only when complete.
     """
-    from lapbalance import provenance as _prov
-
     out_dir = Path(out_dir)
-    record = _prov.for_lap(result, files)
     with staged_dir(out_dir, force=force) as tmp:
         (tmp / "channels.csv").write_text(channels_csv(result), encoding="utf-8")
         (tmp / "corners.csv").write_text(corners_csv(result), encoding="utf-8")
-        (tmp / "summary.json").write_text(summary_json(result, record), encoding="utf-8")
+        text = summary_json(result, _prov_record(result, files)) if files else \
+            summary_json(result)
+        (tmp / "summary.json").write_text(text, encoding="utf-8")
+        record = json.loads(text)["provenance"]  # the sidecar repeats the summary's record
         for name, data in (extra or {}).items():
             (tmp / name).parent.mkdir(parents=True, exist_ok=True)
             (tmp / name).write_bytes(data)

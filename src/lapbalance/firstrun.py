@@ -52,7 +52,7 @@ def cold_kernels() -> list[str]:
     cold = []
     for name in ENTRY_KERNELS:
         d = getattr(_k, name, None)
-        if d is None:
+        if d is None or not hasattr(d, "signatures"):  # absent, or NUMBA_DISABLE_JIT=1
             continue
         if d.signatures:  # already compiled (or loaded) in this process
             continue
