@@ -99,6 +99,9 @@ def test_open_track_reports_run_time():
     assert "run time " in out and "lap time" not in out
     out = run("lap", GT, RING, "--step-m", "4").output
     assert "lap time " in out and "run time" not in out
+    out = run("sweep", GT, CLIMB, "--step-m", "4", "--vary", "aero.drag_area_m2=0.7,0.8",
+              "--units", "imperial").output
+    assert "Skarhelm Climb (open run)" in out and "run s" in out and "top mph" in out
 
 
 def test_net_lift_car_shows_axle_values_not_a_share():

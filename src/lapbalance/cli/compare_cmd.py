@@ -361,8 +361,12 @@ class _Progress:
             self.bar = None
 
 
-def format_sweep(rows, keys, limit: int = 30) -> str:
+def format_sweep(rows, keys, limit: int = 30, units: str = "metric",
+                 time_word: str = "lap") -> str:
     """Text table of sweep rows (the fastest ``limit`` points when there are more)."""
+    from lapbalance.units import Display
+
+    d = Display(units)
     shown = rows
     note = ""
     if len(rows) > limit:
@@ -372,11 +376,12 @@ def format_sweep(rows, keys, limit: int = 30) -> str:
     body = []
     for r in shown:
         body.append([*(f"{r[k]:.10g}" for k in keys), _f(r["lap_time_s"], ".3f"),
-                     _f(r["top_speed_kph"], ".1f"), _f(r["liftoff_worst_shift"], "+.3f"),
+                     _f(d.speed_kph(r["top_speed_kph"]), ".1f"),
+                     _f(r["liftoff_worst_shift"], "+.3f"),
                      _f(r["flagged_corners"], "d"), _f(r["liftoff_max_usage_rear"], ".3f"),
                      r["status"]])
-    text = table(body, [*keys, "lap s", "top km/h", "lift shift", "flagged", "rear off",
-                        "status"])
+    text = table(body, [*keys, f"{time_word} s", f"top {d.unit('speed')}", "lift shift",
+                        "flagged", "rear off", "status"])
     text += ("\nlift shift = largest balance change on lift-off over all corners (> 0 toward "
              "oversteer); rear off = highest rear usage after lift-off")
     return text + ("\n" + note if note else "")
@@ -407,8 +412,10 @@ def format_sweep(rows, keys, limit: int = 30) -> str:
 @json_option
 @track_options
 @plot_format_option
+@units_option
 def sweep_command(car_file, track_file, vary_specs, lhs_n, seed, workers, cluster, out_dir,
-                  force, overrides, as_json, step_m, closed, start_speed_kph, plot_format):
+                  force, overrides, as_json, step_m, closed, start_speed_kph, plot_format,
+                  units):
     """Run CAR_FILE over TRACK_FILE at every point of a grid (or Latin hypercube) of car
     settings; print lap time and lift-off figures per point."""
     from lapbalance import provenance
@@ -465,7 +472,10 @@ def sweep_command(car_file, track_file, vary_specs, lhs_n, seed, workers, cluste
     if stats.get("reused"):
         click.echo(f"resumed: reused {stats['reused']} of {stats['points']} points from "
                    f"{out_dir}/sweep.csv, computed {stats['computed']}")
-    click.echo(format_sweep(rows, list(vary)))
+    click.echo(f"{car.name} on {getattr(track, 'name', '') or 'track'} "
+               f"({'closed lap' if track.closed else 'open run'})")
+    click.echo(format_sweep(rows, list(vary), units=units,
+                            time_word="lap" if track.closed else "run"))
     if out_dir:
         figs = (f", lap_time.{plot_format}, liftoff_shift.{plot_format}"
                 if len(vary) <= 2 else "")
