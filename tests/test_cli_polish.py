@@ -122,17 +122,27 @@ def test_imperial_units_on_the_terminal():
     assert "km/h" not in out.split("\n\n")[0].splitlines()[2]
 
 
-def test_verdict_wording_is_one_source(tmp_path):
+@pytest.fixture(scope="module")
+def report_html(tmp_path_factory):
+    from lapbalance import report
+
+    rep = tmp_path_factory.mktemp("report") / "r.html"
+    with pytest.MonkeyPatch.context() as mp:  # the per-lap figures are tested elsewhere
+        mp.setattr(report, "_figures", lambda result, dpi: "")
+        r = run("report", GT, RING, "--variant", WING, "--step-m", "8", "--out", rep,
+                "--set", "chassis.mass_kg=1390", "--units", "imperial")
+    assert r.exit_code == 0, r.output
+    return rep.read_text()
+
+
+def test_verdict_wording_is_one_source(report_html):
     doc = json.loads(run("lap", TRUCK, RING, "--step-m", "4", "--json").output)
     assert doc["liftoff_verdicts"] == VERDICT_MEANING
     out = run("lap", TRUCK, RING, "--step-m", "4", "--liftoff-only").output
     assert f"rear-saturates: {VERDICT_MEANING['rear-saturates']}" in out
     assert "REAR-SATURATES" not in out
-    rep = tmp_path / "r.html"
-    assert run("report", TRUCK, RING, "--step-m", "4", "--out", rep).exit_code == 0
-    html = rep.read_text()
     for meaning in VERDICT_MEANING.values():
-        assert meaning in html
+        assert meaning in report_html
 
 
 # -- figures ------------------------------------------------------------------------------------
@@ -154,15 +164,14 @@ def test_track_map_by_any_channel_and_plot_formats(tmp_path, ring_lap):
     fig = plots.track_map_figure(ring_lap, channel="speed_kph")
     assert "speed_kph [km/h]" in [ax.get_ylabel() for ax in fig.axes]
     out = tmp_path / "svg"
-    r = run("lap", GT, RING, "--step-m", "4", "--out", out, "--plots", "--plot-format", "svg",
+    r = run("lap", GT, RING, "--step-m", "8", "--out", out, "--plots", "--plot-format", "svg",
             "--map-channel", "usage_rear")
     assert r.exit_code == 0, r.output
+    assert "SVG figures" in r.output
     svg = (out / "track_map.svg").read_bytes()
     assert b"<svg" in svg[:400] and b"usage_rear" in svg
-    out = tmp_path / "pdf"
-    assert run("lap", GT, RING, "--step-m", "4", "--out", out, "--plots",
-               "--plot-format", "pdf").exit_code == 0
-    assert (out / "speed.pdf").read_bytes().startswith(b"%PDF")
+    assert (out / "speed.svg").is_file() and not list(out.glob("*.png"))
+    assert plots.figure_bytes(plots.speed_figure(ring_lap), "pdf").startswith(b"%PDF")
     r = run("lap", GT, RING, "--out", tmp_path / "x", "--plots", "--map-channel", "sped_kph")
     assert r.exit_code == 2 and 'did you mean "speed_kph"' in r.output
 
@@ -194,12 +203,8 @@ def test_compare_names_files_track_and_shows_setup(tmp_path):
     assert doc["track_names"] == ["Veldmoor Ring"] and len(doc["provenance"]["cars"]) == 2
 
 
-def test_report_has_provenance_setup_and_differences(tmp_path):
-    rep = tmp_path / "r.html"
-    r = run("report", GT, RING, "--variant", WING, "--step-m", "4", "--out", rep,
-            "--set", "chassis.mass_kg=1390", "--units", "imperial")
-    assert r.exit_code == 0, r.output
-    html = rep.read_text()
+def test_report_has_provenance_setup_and_differences(report_html):
+    html = report_html
     assert 'id="provenance"' in html and "SHA-256" in html
     assert "--set chassis.mass_kg=1390" in html
     assert "What differs from the base: Halden GT coupe, high wing" in html

@@ -209,7 +209,7 @@ def track_map_figure(result: LapResult, channel: str | None = None) -> Figure:
         corner = cornering_mask(result)
         shown = np.where(corner, bal, np.nan)
         m = _symmetric_limit(shown)
-        cmap = DIVERGING.with_extremes(bad="#c9ced6")
+        cmap = DIVERGING.with_extremes(bad="#e1e4e8")
         lc = _track_line(ax, x, y, np.ma.masked_invalid(shown), cmap, TwoSlopeNorm(0.0, -m, m))
         cb = fig.colorbar(lc, ax=ax, shrink=0.85, extend="both")
         thr = float(result.settings.get("liftoff_ay_threshold_mps2", CORNERING_AY_MPS2))

@@ -220,7 +220,9 @@ def _setup_section(results: Sequence[LapResult], labels: Sequence[str]) -> str:
     cars = [r.car for r in results]
     rows = [[_e(label), _e(unit)] + [_e(prov.format_value(v)) for v in vals]
             for label, unit, *vals in prov.setup_rows(cars)]
-    parts = ["<h3>Setup</h3>", _table(["quantity", "unit", *labels], rows, text_cols=(0, 1))]
+    parts = ["<h3>Setup</h3>",
+             '<p class="note">Car values as the solver uses them (SI, whatever --units '
+             "says).</p>", _table(["quantity", "unit", *labels], rows, text_cols=(0, 1))]
     for car, lab in zip(cars[1:], labels[1:], strict=True):
         diff = prov.car_differences(cars[0], car)
         parts.append(f"<h3>What differs from the base: {_e(lab)}</h3>")

@@ -98,7 +98,8 @@ def format_compare(result, track: str, units: str = "metric") -> str:
     lo, hi = result.speed_bands_kph
     laps = result.laps[result.tracks.index(track)]
     tl = laps[0].time_label
-    lines = [f"track {_track_name(result, track)} ({'closed lap' if laps[0].track.closed else 'open run'})"]
+    kind = "closed lap" if laps[0].track.closed else "open run"
+    lines = [f"track {_track_name(result, track)} ({kind})"]
 
     def bal(r, lap, which):
         if lap.car.aero.downforce_area < 0:
