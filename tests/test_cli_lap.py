@@ -59,7 +59,10 @@ def test_liftoff_only_prints_flags():
     r = CliRunner().invoke(main, ["lap", str(ROOT / "examples" / "offroad_truck.toml"), RING,
                                   "--liftoff-only"])
     assert r.exit_code == 0
-    assert "LIFT-CRITICAL" in r.output and "lap time" not in r.output
+    # one wording for verdicts in terminal, JSON and report: the code, then its meaning
+    assert "  lift-critical  " in r.output and "lap time" not in r.output
+    from lapbalance.liftoff import VERDICT_MEANING
+    assert f"lift-critical: {VERDICT_MEANING['lift-critical']}" in r.output
 
 
 def test_bad_override_exits_2_one_line():

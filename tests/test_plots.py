@@ -135,7 +135,8 @@ def test_titles_name_car_and_track(laps):
 def test_track_map_colourbar_is_centred_on_zero_and_labelled(laps):
     fig = plots.track_map_figure(laps["gt_coupe"])
     labels = [ax.get_ylabel() for ax in fig.axes]
-    assert "balance index u_r - u_f [-]  (> 0 oversteer-leaning)" in labels
+    assert "balance index u_r - u_f [-] where |a_y| >= 4 m/s²\nand |a_x| <= |a_y|/2 " \
+        "(> 0 oversteer-leaning; grey: not cornering)" in labels
     (lc,) = [c for c in fig.axes[0].collections if c.get_array() is not None]
     assert lc.norm.vcenter == 0.0
     assert lc.norm.vmin == pytest.approx(-lc.norm.vmax)

@@ -200,7 +200,8 @@ def test_text_is_escaped(loop, monkeypatch):
 
 
 def test_write_report_refuses_to_overwrite(tmp_path, monkeypatch, base_lap):
-    monkeypatch.setattr(report, "build_report", lambda results, labels, dpi: "<!DOCTYPE html>")
+    monkeypatch.setattr(report, "build_report",
+                        lambda results, labels, dpi, **kw: "<!DOCTYPE html>")
     out = tmp_path / "sub" / "r.html"
     assert report.write_report(base_lap, out) == out
     assert out.read_text() == "<!DOCTYPE html>"

@@ -245,7 +245,9 @@ def test_cli_sweep_grid(track_file, tmp_path, car):
     r = run(["sweep", str(EXAMPLES / "gt_coupe.toml"), track_file, "--lhs", "3", "--step-m", "2",
              "--vary", "aero.drag_area_m2=0.7:0.9", "--set", "chassis.mass_kg=1250", "--json"])
     assert r.exit_code == 0, r.output
-    data = json.loads(r.output[r.output.index("["):])
+    doc = json.loads(r.output[r.output.index("{"):])
+    data = doc["points"]
+    assert doc["provenance"]["cars"][0]["overrides"][0]["text"] == "chassis.mass_kg=1250"
     assert len(data) == 3 and all(0.7 <= d["aero.drag_area_m2"] <= 0.9 for d in data)
 
 

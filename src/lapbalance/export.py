@@ -67,23 +67,54 @@ def corners_csv(result: LapResult) -> str:
     return csv_text(header, rows)
 
 
-def summary_json(result: LapResult) -> str:
-    """The lap summary as JSON text."""
-    return json.dumps(result.summary(), indent=2, allow_nan=False) + "\n"
+def summary_dict(result: LapResult, provenance: dict | None = None) -> dict:
+    """The lap summary with its provenance record (key ``provenance``)."""
+    from lapbalance import provenance as _prov
+
+    return {**result.summary, "provenance": provenance or _prov.for_lap(result)}
+
+
+def summary_json(result: LapResult, provenance: dict | None = None) -> str:
+    """The lap summary, with its provenance record, as JSON text."""
+    return json.dumps(summary_dict(result, provenance), indent=2, allow_nan=False) + "\n"
+
+
+def write_provenance(folder: str | Path, record: dict) -> None:
+    """Write ``provenance.json`` into a filled output folder: the record plus every file in
+    the folder with its SHA-256 (the CSV files themselves stay plain)."""
+    from lapbalance import provenance as _prov
+
+    folder = Path(folder)
+    (folder / _prov.SIDECAR).write_text(
+        json.dumps(_prov.with_outputs(record, folder), indent=2, allow_nan=False) + "\n",
+        encoding="utf-8")
+
+
+def _prov_record(result, files):
+    from lapbalance import provenance as _prov
+
+    return _prov.for_lap(result, files)
 
 
 def write_lap_folder(result: LapResult, out_dir: str | Path, force: bool = False,
-                     extra: dict[str, bytes] | None = None) -> Path:
-    """Write channels.csv, corners.csv, summary.json (and ``extra`` files) into ``out_dir``.
+                     extra: dict[str, bytes] | None = None,
+                     files: tuple[tuple[str, str], ...] = ()) -> Path:
+    """Write channels.csv, corners.csv, summary.json, provenance.json (and ``extra`` files)
+    into ``out_dir``.
 
-    The folder is filled in a temporary sibling and swapped in only when complete.
+    ``files`` are other inputs for the provenance record, as (role, path). The folder is
+    filled in a temporary sibling and swapped in only when complete.
     """
     out_dir = Path(out_dir)
     with staged_dir(out_dir, force=force) as tmp:
         (tmp / "channels.csv").write_text(channels_csv(result), encoding="utf-8")
         (tmp / "corners.csv").write_text(corners_csv(result), encoding="utf-8")
-        (tmp / "summary.json").write_text(summary_json(result), encoding="utf-8")
+        text = summary_json(result, _prov_record(result, files)) if files else \
+            summary_json(result)
+        (tmp / "summary.json").write_text(text, encoding="utf-8")
+        record = json.loads(text)["provenance"]  # the sidecar repeats the summary's record
         for name, data in (extra or {}).items():
             (tmp / name).parent.mkdir(parents=True, exist_ok=True)
             (tmp / name).write_bytes(data)
+        write_provenance(tmp, record)
     return out_dir

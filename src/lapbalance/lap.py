@@ -161,9 +161,66 @@ class LapResult:
         """The ``limit`` channel as names."""
         return [LIMIT_NAMES[int(c)] for c in self.channels["limit"]]
 
-    def summary(self) -> dict:
+    # Notebook use: a short repr, an HTML table, a DataFrame. Results are read through
+    # attributes and properties (``lap_time_s``, ``summary``, ``provenance``); ``summary`` is
+    # also callable, as it was a method before, so ``result.summary()`` keeps working.
+
+    def __repr__(self) -> str:
+        tr = getattr(self.track, "name", "") or "track"
+        return (f"LapResult(car={self.car.name!r}, track={tr!r}, "
+                f"{self.time_label.replace(' ', '_')}_s={self.lap_time_s:.3f}, "
+                f"steps={len(self.channels.get('distance_m', ()))}, "
+                f"corners={len(self.corners)})")
+
+    def _repr_html_(self) -> str:
+        from lapbalance.report import summary_table_html
+
+        return summary_table_html(self)
+
+    @property
+    def time_label(self) -> str:
+        """``"lap time"`` on a closed circuit, ``"run time"`` on an open (point-to-point) one."""
+        return time_label(self.track)
+
+    @property
+    def summary(self) -> _Summary:
         """Plain-JSON summary (lap time, speeds, sectors, smallest lift-off margin and verdict
-        counts, corners, settings)."""
+        counts, corners, settings) as a dict.
+
+        A property; calling it (``result.summary()``) returns the same dict, for code written
+        when it was a method.
+        """
+        return _Summary(self._summary())
+
+    @property
+    def provenance(self) -> dict:
+        """What was run: versions, input files with SHA-256, overrides, the resolved car,
+        track and solver settings, time (see :mod:`lapbalance.provenance`)."""
+        from lapbalance import provenance
+
+        return provenance.for_lap(self)
+
+    def to_frame(self):
+        """The channels as a :class:`pandas.DataFrame`, one row per step (``limit`` as names).
+
+        Needs pandas (``pip install 'lapbalance[frames]'``).
+        """
+        try:
+            import pandas as pd
+        except ImportError:
+            raise ImportError("LapResult.to_frame needs pandas; install it with "
+                              "pip install 'lapbalance[frames]' (or pip install pandas)"
+                              ) from None
+        cols = {k: np.asarray(v) for k, v in self.channels.items()}
+        if "limit" in cols:
+            cols["limit"] = np.array(self.limit_names(), dtype=object)
+        df = pd.DataFrame(cols)
+        df.attrs["car"] = self.car.name
+        df.attrs["track"] = getattr(self.track, "name", "")
+        df.attrs["units"] = {k: CHANNELS[k][0] for k in cols if k in CHANNELS}
+        return df
+
+    def _summary(self) -> dict:
         ch = self.channels
         v = ch["speed_mps"]
         return {
@@ -178,6 +235,10 @@ class LapResult:
             "aero_balance_front_cg": _nan_none(self.car.aero.balance_cg),
             "aero_balance_front_ground": _nan_none(self.car.aero.balance_ground(
                 self.car.chassis.cg_height, self.car.chassis.wheelbase)),
+            "aero_net_lift": bool(self.car.aero.downforce_area < 0),
+            "downforce_area_front_m2": float(self.car.aero.front_area_cg),
+            "downforce_area_rear_m2": float(self.car.aero.rear_area_cg),
+            "time_label": self.time_label,
             "air_density_kg_m3": float(self.car.air.density),
             "sectors": self.sectors,
             "liftoff_margin_min": liftoff.smallest_margin(self.corners),
@@ -186,6 +247,18 @@ class LapResult:
             "settings": {k: _jsonable(v) for k, v in self.settings.items()},
             "caution": CAUTION,
         }
+
+
+class _Summary(dict):
+    """The summary dict; calling it returns itself (``summary`` used to be a method)."""
+
+    def __call__(self) -> dict:
+        return self
+
+
+def time_label(track) -> str:
+    """``"lap time"`` for a closed track, ``"run time"`` for an open (point-to-point) one."""
+    return "lap time" if bool(getattr(track, "closed", True)) else "run time"
 
 
 CAUTION = ("Quasi-static estimate: confirm every setup change with qualified engineers and "

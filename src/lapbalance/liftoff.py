@@ -77,6 +77,19 @@ VERDICTS = ("lift-critical", "lift-marginal", "lift-close", "lift-safe", "not-ch
 #: Verdicts that flag a corner (worst first).
 FLAG_VERDICTS = ("lift-critical", "lift-marginal")
 
+#: One wording of every verdict, shown beside the verdict code by the terminal, the JSON
+#: output (``liftoff_verdicts``) and the report; keep it in step with :func:`verdict`.
+VERDICT_MEANING = {
+    "lift-critical": "a lift saturates the rear even with the driver 10 % or more below the "
+                     "limit lateral acceleration (margin below 0.90)",
+    "lift-marginal": "a lift saturates the rear in the last 5-10 % of the lateral grip "
+                     "(margin 0.90 to 0.95)",
+    "lift-close": "a lift at the limit leaves the rear within 5 % of its grip, either side: "
+                  "inside the spread of tyre grip, the model cannot call it",
+    "lift-safe": "a lift at the very limit leaves the rear at least 5 % of its grip",
+    "not-checked": "no step in the corner corners on throttle, so there is nothing to check",
+}
+
 
 @dataclass(frozen=True)
 class Thresholds:

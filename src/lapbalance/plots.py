@@ -180,14 +180,47 @@ def draw_track_edges(ax, track, color: str | None = None) -> bool:
     return True
 
 
+#: Where the balance map shows the balance index: steps whose lateral acceleration reaches
+#: this [m/s²] (the lift-off check's cornering threshold, ISO 9816 start condition) ...
+CORNERING_AY_MPS2 = 4.0
+#: ... and whose longitudinal acceleration is at most this share of the lateral one, so the
+#: car mostly corners. Elsewhere (straights, and corner exits on full throttle, where the
+#: drive force loading the rear tyres sets the index) the line is grey.
+CORNERING_AX_RATIO = 0.5
+
+
+def cornering_mask(result: LapResult, ay_threshold: float | None = None,
+                   ax_ratio: float = CORNERING_AX_RATIO) -> np.ndarray:
+    """Steps where the car mostly corners: ``|a_y| >= ay_threshold`` [m/s²] (default: the
+    lap's lift-off threshold, else :data:`CORNERING_AY_MPS2`) and ``|a_x| <= ax_ratio |a_y|``
+    [-]."""
+    if ay_threshold is None:
+        ay_threshold = float(result.settings.get("liftoff_ay_threshold_mps2",
+                                                 CORNERING_AY_MPS2))
+    ay = np.abs(np.asarray(result.channels["ay_mps2"], float))
+    ax = np.abs(np.asarray(result.channels["ax_mps2"], float))
+    return (ay >= ay_threshold) & (ax <= ax_ratio * ay)
+
+
 @_styled
-def track_map_figure(result: LapResult) -> Figure:
-    """Track map coloured by the balance index, corner ids at the apexes, lift-off flags.
+def track_map_figure(result: LapResult, channel: str | None = None) -> Figure:
+    """Track map coloured by the cornering balance (or by any channel), corner ids at the
+    apexes, lift-off flags.
+
+    By default the colour is the balance index ``u_r - u_f`` on the steps where the car
+    mostly corners (``|a_y|`` at or above the lift-off threshold, 4 m/s² by default, and
+    ``|a_x| <= |a_y|/2``; see :func:`cornering_mask`); straights, gentle bends and
+    full-throttle exits are grey, because there the drive force loading the rear, not the
+    handling balance, sets the index. The colour scale is symmetric about zero over the
+    cornering steps.
 
     Parameters
     ----------
     result : LapResult
         A simulated lap. [-]
+    channel : str, optional
+        Colour by this channel instead (any key of ``result.channels``, e.g. ``speed_kph``);
+        signed channels get the diverging map centred on zero, others the sequential one.
 
     Returns
     -------
@@ -195,14 +228,39 @@ def track_map_figure(result: LapResult) -> Figure:
     """
     ch = result.channels
     x, y, d = np.asarray(ch["x_m"]), np.asarray(ch["y_m"]), _distance(result)
-    bal = np.asarray(ch["balance_index"], float)
-    m = _symmetric_limit(bal)
     fig = _figure(7.5, 6.0)
     ax = fig.add_subplot()
     draw_track_edges(ax, result.track)
-    lc = _track_line(ax, x, y, bal, DIVERGING, TwoSlopeNorm(0.0, -m, m))
-    cb = fig.colorbar(lc, ax=ax, shrink=0.85, extend="both")
-    cb.set_label("balance index u_r - u_f [-]  (> 0 oversteer-leaning)")
+    if channel is None:
+        bal = np.asarray(ch["balance_index"], float)
+        corner = cornering_mask(result)
+        shown = np.where(corner, bal, np.nan)
+        m = _symmetric_limit(shown)
+        cmap = DIVERGING.with_extremes(bad="#e1e4e8")
+        lc = _track_line(ax, x, y, np.ma.masked_invalid(shown), cmap, TwoSlopeNorm(0.0, -m, m))
+        cb = fig.colorbar(lc, ax=ax, shrink=0.85, extend="both")
+        thr = float(result.settings.get("liftoff_ay_threshold_mps2", CORNERING_AY_MPS2))
+        cb.set_label(f"balance index u_r - u_f [-] where |a_y| >= {thr:g} m/s²\n"
+                     "and |a_x| <= |a_y|/2 (> 0 oversteer-leaning; grey: not cornering)")
+        title = "cornering balance around the lap"
+    else:
+        from lapbalance.lap import CHANNELS
+
+        vals = np.asarray(ch[channel], float)
+        unit = CHANNELS.get(channel, ("", ""))[0]
+        fin = vals[np.isfinite(vals)]
+        if fin.size and fin.min() < 0 < fin.max():
+            m = _symmetric_limit(vals)
+            lc = _track_line(ax, x, y, vals, DIVERGING, TwoSlopeNorm(0.0, -m, m))
+        else:
+            lo, hi = (float(fin.min()), float(fin.max())) if fin.size else (0.0, 1.0)
+            from matplotlib.colors import Normalize
+
+            lc = _track_line(ax, x, y, vals, SEQUENTIAL, Normalize(lo, hi if hi > lo else lo + 1))
+        cb = fig.colorbar(lc, ax=ax, shrink=0.85)
+        cb.formatter.set_useOffset(False)
+        cb.set_label(f"{_plain(channel)} [{unit}]" if unit else _plain(channel))
+        title = f"{_plain(channel)} around the lap"
     ax.plot(x[0], y[0], marker="s", color=PALETTE["ink"], markersize=6, linestyle="none",
             label="start")
     for c in result.corners:
@@ -221,7 +279,7 @@ def track_map_figure(result: LapResult) -> Figure:
     ax.legend(loc="best")
     line = getattr(result.track, "line", "centreline")
     on = "" if line == "centreline" else f" ({line} line)"
-    ax.set_title(f"{_names(result)}: balance around the lap{on}")
+    ax.set_title(f"{_names(result)}: {title}{on}")
     return fig
 
 
@@ -252,7 +310,7 @@ def speed_figure(result: LapResult) -> Figure:
     ax.set_ylabel("speed [km/h]")
     _corner_axis(ax, result)
     ax.legend(loc="lower right", ncols=2)
-    ax.set_title(f"{_names(result)}: speed, lap {result.lap_time_s:.3f} s")
+    ax.set_title(f"{_names(result)}: speed, {result.time_label} {result.lap_time_s:.3f} s")
     return fig
 
 
@@ -385,6 +443,20 @@ def aero_balance_figure(result: LapResult) -> Figure:
     v = np.asarray(ch["speed_kph"], float)
     fig = _figure(7.0, 4.2)
     ax = fig.add_subplot()
+    if result.car.aero.downforce_area < 0:
+        # Net lift: a share of a negative total means nothing; show the axle loads instead.
+        for key, label, color in (("aero_front_n", "front axle", PALETTE["front"]),
+                                  ("aero_rear_n", "rear axle", PALETTE["rear"])):
+            f = np.asarray(ch[key], float)
+            ax.scatter(v, f, s=4, color=color, alpha=0.25, linewidths=0)
+            xb, yb = _binned(v, f, 10.0)
+            ax.plot(xb, yb, color=color, marker="o", markersize=3, label=label)
+        ax.axhline(0.0, color=PALETTE["muted"], linewidth=0.7)
+        ax.set_xlabel("speed [km/h]")
+        ax.set_ylabel("aero load on the axle [N]\n(CG convention, < 0 = lift)")
+        ax.legend(loc="best")
+        ax.set_title(f"{_names(result)}: net lift, axle aero loads vs speed")
+        return fig
     series = (("aero_balance_front", "on track (CG convention)", PALETTE["aero"]),
               ("aero_balance_front_ground", "wheel-restrained scales (ground convention)",
                PALETTE["ground"]))
@@ -399,9 +471,6 @@ def aero_balance_figure(result: LapResult) -> Figure:
     if not any_finite:
         ax.text(0.5, 0.5, "no downforce: aero balance undefined", transform=ax.transAxes,
                 ha="center", color=PALETTE["muted"])
-    elif np.nanmean(np.asarray(ch["downforce_n"], float)) < 0:
-        ax.text(0.02, 0.02, "net lift: shares of a negative total can leave 0-100 %",
-                transform=ax.transAxes, fontsize=8, color=PALETTE["muted"])
     ax.set_xlabel("speed [km/h]")
     ax.set_ylabel("front share of downforce [%]")
     ax.legend(loc="best")
@@ -605,7 +674,7 @@ def overlay_figure(results: Sequence[LapResult], labels: Sequence[str] | None = 
         color = SERIES[j % len(SERIES)]
         d = _distance(r)
         axes[0].plot(d, r.channels["speed_kph"], color=color, label=f"{lab} "
-                     f"({r.lap_time_s:.3f} s)", linewidth=1.4 if j == 0 else 1.1)
+                     f"({r.time_label} {r.lap_time_s:.3f} s)", linewidth=1.4 if j == 0 else 1.1)
         axes[1].plot(d, r.channels["balance_index"], color=color, label=lab,
                      linewidth=1.4 if j == 0 else 1.1)
     axes[0].set_ylabel("speed [km/h]")
@@ -682,16 +751,19 @@ def delta_figure(base: LapResult, other: LapResult, labels: Sequence[str] | None
     axm.set_title("where the time goes", fontsize=9)
     track = _plain(getattr(base.track, "name", "") or "track")
     total = other.lap_time_s - base.lap_time_s
-    fig.suptitle(f"{lo} (other) vs {lb} (base) — {track}: lap time delta {total:+.3f} s",
+    fig.suptitle(f"{lo} (other) vs {lb} (base) — {track}: {base.time_label} delta "
+                 f"{total:+.3f} s",
                  fontsize=10.5)
     return fig
 
 
 #: Figures of one lap: file stem -> (function, caption).
 LAP_FIGURES: dict[str, tuple[Callable[[LapResult], Figure], str]] = {
-    "track_map": (track_map_figure, "Balance index around the lap, corner numbers at the "
-                  "apexes, lift-off flags (critical, marginal) at the corner's tightest "
-                  "step."),
+    "track_map": (track_map_figure, "Balance index where the car mostly corners (|a_y| at "
+                  "or above the lift-off threshold, 4 m/s² by default, and |a_x| at most half "
+                  "of it; grey elsewhere, where drive force on the rear sets the index), "
+                  "corner numbers at the apexes, lift-off flags (critical, marginal) at the "
+                  "corner's tightest step."),
     "speed": (speed_figure, "Speed over distance; dashed: steady corner-limit speed."),
     "usage": (usage_figure, "Front and rear grip usage; shaded where the front axle, the "
               "rear axle or the engine sets the speed."),
@@ -699,7 +771,8 @@ LAP_FIGURES: dict[str, tuple[Callable[[LapResult], Figure], str]] = {
                    "convention), ground-force transfer; lateral transfer moves load between "
                    "the wheels of an axle."),
     "aero_balance": (aero_balance_figure, "Aero balance vs speed on track (CG convention) "
-                     "and as wheel-restrained scales read it (ground convention)."),
+                     "and as wheel-restrained scales read it (ground convention); for a car "
+                     "with net lift, the axle aero loads instead."),
     "gg": (gg_figure, "Longitudinal vs lateral acceleration, coloured by speed."),
     "liftoff": (liftoff_figure, "Lift-off margin per corner, tightest first (with engine "
                 "braking and coasting), and the rear reserve after a lift at the limit "
@@ -726,6 +799,54 @@ def figure_png(fig: Figure, dpi: int = 110) -> bytes:
     fig.savefig(buf, format="png", dpi=dpi)
     fig.clear()
     return buf.getvalue()
+
+
+def figure_bytes(fig: Figure, fmt: str = "png", dpi: int = 110) -> bytes:
+    """Render ``fig`` as ``png``, ``svg`` or ``pdf`` bytes and release it.
+
+    Parameters
+    ----------
+    fig : matplotlib.figure.Figure
+        The figure (it is cleared afterwards). [-]
+    fmt : str
+        ``"png"``, ``"svg"`` or ``"pdf"``. [-]
+    dpi : int
+        Resolution of PNG output (and of raster parts of the others). [dots per inch]
+    """
+    if fmt not in ("png", "svg", "pdf"):
+        raise ValueError(f"figure format {fmt!r} is not png, svg or pdf")
+    buf = io.BytesIO()
+    meta = {"Date": None} if fmt == "pdf" else ({"Date": None} if fmt == "svg" else None)
+    fig.savefig(buf, format=fmt, dpi=dpi, metadata=meta)
+    fig.clear()
+    return buf.getvalue()
+
+
+def lap_figures(result: LapResult, fmt: str = "png", dpi: int = 110,
+                map_channel: str | None = None) -> dict[str, bytes]:
+    """Every lap figure of :data:`LAP_FIGURES` as file bytes (``lapbalance lap --plots``).
+
+    Parameters
+    ----------
+    result : LapResult
+        A simulated lap. [-]
+    fmt : str
+        ``"png"``, ``"svg"`` or ``"pdf"``. [-]
+    dpi : int
+        Resolution. [dots per inch]
+    map_channel : str, optional
+        Channel that colours the track map (default: the cornering balance). [-]
+
+    Returns
+    -------
+    dict of str -> bytes
+        File name (``<figure>.<fmt>``) -> contents. [-]
+    """
+    out = {}
+    for name, (fn, _) in LAP_FIGURES.items():
+        fig = fn(result, map_channel) if name == "track_map" and map_channel else fn(result)
+        out[f"{name}.{fmt}"] = figure_bytes(fig, fmt, dpi)
+    return out
 
 
 def lap_figures_png(result: LapResult, dpi: int = 110) -> dict[str, bytes]:

@@ -75,6 +75,8 @@ figcaption {{ color: var(--muted); font-size: 12.5px; margin-top: 4px; }}
 .note {{ color: var(--muted); font-size: 12.5px; }}
 ul.assumptions li {{ margin-bottom: 3px; }}
 footer {{ margin-top: 36px; color: var(--muted); font-size: 12px; }}
+code {{ font-size: 12px; word-break: break-all; }}
+details {{ margin: 8px 0; }}
 """
 
 
@@ -159,25 +161,40 @@ def _pct(x) -> str:
     return "–" if x is None else f"{x * 100:.1f} %"
 
 
-def _summary_section(result: LapResult) -> str:
-    s = result.summary()
+def _summary_section(result: LapResult, disp=None) -> str:
+    from lapbalance.units import METRIC
+
+    d = disp or METRIC
+    su, lu = d.unit("speed"), d.unit("length")
+    s = result.summary
     rows = [
         ["car", _e(s["car"])],
-        ["track", _e(f"{s['track']} ({s['length_m']:.0f} m, "
+        ["track", _e(f"{s['track']} ({d.length(s['length_m']):.0f} {lu}, "
                      f"{'closed lap' if s['closed'] else 'open run'})")],
-        ["lap time", _num(s["lap_time_s"], ".3f", " s")],
-        ["top speed", _num(s["top_speed_kph"], ".1f", " km/h")],
-        ["minimum speed", _num(s["min_speed_kph"], ".1f", " km/h")],
-        ["mean speed", _num(s["mean_speed_kph"], ".1f", " km/h")],
-        ["aero balance, front share on track (CG convention)",
-         _pct(s["aero_balance_front_cg"])],
-        ["aero balance, front share on wheel-restrained scales (ground convention)",
-         _pct(s["aero_balance_front_ground"])],
-        ["air density", _num(s["air_density_kg_m3"], ".4f", " kg/m³")],
+        [result.time_label, _num(s["lap_time_s"], ".3f", " s")],
+        ["top speed", _num(d.speed_kph(s["top_speed_kph"]), ".1f", f" {su}")],
+        ["minimum speed", _num(d.speed_kph(s["min_speed_kph"]), ".1f", f" {su}")],
+        ["mean speed", _num(d.speed_kph(s["mean_speed_kph"]), ".1f", f" {su}")],
     ]
+    if s.get("aero_net_lift"):
+        rows += [
+            ["aero: net lift (a front share of a negative total means nothing)", "–"],
+            ["front axle downforce area, CG convention (&lt; 0 = lift)",
+             _num(s["downforce_area_front_m2"], "+.3f", " m²")],
+            ["rear axle downforce area, CG convention (&lt; 0 = lift)",
+             _num(s["downforce_area_rear_m2"], "+.3f", " m²")],
+        ]
+    else:
+        rows += [
+            ["aero balance, front share on track (CG convention)",
+             _pct(s["aero_balance_front_cg"])],
+            ["aero balance, front share on wheel-restrained scales (ground convention)",
+             _pct(s["aero_balance_front_ground"])],
+        ]
+    rows.append(["air density", _num(s["air_density_kg_m3"], ".4f", " kg/m³")])
     for sec in s["sectors"]:
-        rows.append([f"sector {sec['sector']} ({sec['start_m']:.0f}–{sec['end_m']:.0f} m)",
-                     _num(sec["time_s"], ".3f", " s")])
+        rows.append([f"sector {sec['sector']} ({d.length(sec['start_m']):.0f}–"
+                     f"{d.length(sec['end_m']):.0f} {lu})", _num(sec["time_s"], ".3f", " s")])
     counts = verdict_counts(result.corners)
     rows.append(["lift-off verdicts", _e(", ".join(f"{n} {v}" for v, n in counts.items()
                                                    if n) or "no corners")])
@@ -186,13 +203,106 @@ def _summary_section(result: LapResult) -> str:
     return _table(["quantity", "value"], rows)
 
 
+def summary_table_html(result: LapResult) -> str:
+    """The summary table of one lap as an HTML fragment (``LapResult._repr_html_``)."""
+    return (f"<div><strong>{_e(result.car.name)}</strong> on "
+            f"{_e(getattr(result.track, 'name', '') or 'track')}"
+            + _summary_section(result) + "</div>")
+
+
+def _verdict_legend() -> str:
+    from lapbalance.liftoff import VERDICT_MEANING
+
+    items = "".join(f"<li><strong>{_e(v)}</strong>: {_e(m)}</li>"
+                    for v, m in VERDICT_MEANING.items())
+    return f'<ul class="note">{items}</ul>'
+
+
+def _setup_section(results: Sequence[LapResult], labels: Sequence[str]) -> str:
+    """Setup table of every car and, per variant, the car-file keys that differ from the base."""
+    from lapbalance import provenance as prov
+
+    cars = [r.car for r in results]
+    rows = [[_e(label), _e(unit)] + [_e(prov.format_value(v)) for v in vals]
+            for label, unit, *vals in prov.setup_rows(cars)]
+    parts = ["<h3>Setup</h3>",
+             '<p class="note">Car values as the solver uses them (SI, whatever --units '
+             "says).</p>", _table(["quantity", "unit", *labels], rows, text_cols=(0, 1))]
+    for car, lab in zip(cars[1:], labels[1:], strict=True):
+        diff = prov.car_differences(cars[0], car)
+        parts.append(f"<h3>What differs from the base: {_e(lab)}</h3>")
+        if not diff:
+            parts.append('<p class="note">No car-file key differs from the base.</p>')
+            continue
+        parts.append(_table(["key", f"base ({labels[0]})", lab],
+                            [[_e(k), _e(prov.format_value(a)), _e(prov.format_value(b))]
+                             for k, a, b in diff], text_cols=(0,)))
+    return "\n".join(parts)
+
+
+def _provenance_section(record: dict) -> str:
+    """What was run: versions, input files with SHA-256, overrides, settings."""
+    import json as _json
+
+    meta = [["lapbalance", _e(record.get("lapbalance_version"))],
+            ["run (UTC)", _e(record.get("run_utc"))],
+            ["Python / numpy / numba", _e(f"{record.get('python')} / {record.get('numpy')} / "
+                                          f"{record.get('numba')}")]]
+    if record.get("command"):
+        meta.append(["command", f"<code>{_e(record['command'])}</code>"])
+    parts = ['<h2 id="provenance">Provenance</h2>',
+             '<p class="note">What was run, so the results can be traced and rerun '
+             "(<code>lapbalance rerun summary.json</code> for a lap written with "
+             "<code>--out</code>).</p>", _table(["", "value"], meta, text_cols=(0, 1))]
+    files = [[_e(f["role"]), _e(f["path"]), _e(f["bytes"]),
+              f"<code>{_e(f['sha256'])}</code>"] for f in record.get("inputs", [])]
+    parts += ["<h3>Input files</h3>",
+              _table(["role", "path", "bytes", "SHA-256"], files, text_cols=(0, 1, 3))]
+    ov = [[_e(c["name"]), f"<code>--set {_e(o['text'])}</code>"]
+          for c in record.get("cars", []) for o in c.get("overrides", [])]
+    parts += ["<h3>Overrides</h3>", _table(["car", "override"], ov, text_cols=(0, 1)) if ov
+              else '<p class="note">No --set overrides.</p>']
+    tr = [[_e(t["name"]), _e(t["step_m"]), _e("closed" if t["closed"] else "open"),
+           _e(f"{t['length_m']:.1f}"), _e(t["points"])] for t in record.get("tracks", [])]
+    parts += ["<h3>Track processing</h3>",
+              _table(["track", "step [m]", "kind", "length [m]", "points"], tr,
+                     text_cols=(0, 2))]
+    solver = record.get("solver") or {}
+    parts += ["<h3>Solver settings and thresholds</h3>",
+              _table(["setting", "value"], [[_e(k), _e(_json.dumps(v))]
+                                           for k, v in solver.items()], text_cols=(0, 1))]
+    for c in record.get("cars", []):
+        res = c.get("resolved")
+        if not res:
+            continue
+        flat = []
+
+        def walk(prefix, obj, flat=flat):
+            if isinstance(obj, dict):
+                for k, v in obj.items():
+                    walk(f"{prefix}.{k}" if prefix else k, v)
+            else:
+                flat.append([_e(prefix), _e(_json.dumps(obj))])
+
+        walk("", res)
+        parts.append(f"<details><summary>Resolved car in SI: {_e(c['name'])} "
+                     f"({len(flat)} parameters)</summary>"
+                     + _table(["parameter", "value (SI)"], flat, text_cols=(0, 1))
+                     + "</details>")
+    return "\n".join(parts)
+
+
 def _verdict_cell(c: dict) -> tuple[str, str]:
     v = c.get("liftoff_verdict", "not-checked")
     cls = f"verdict v-{v}" if v in VERDICTS else "verdict"
     return _e(v), cls
 
 
-def _corner_section(result: LapResult, dpi: int = 100) -> str:
+def _corner_section(result: LapResult, dpi: int = 100, disp=None) -> str:
+    from lapbalance.units import METRIC
+
+    d = disp or METRIC
+    su, lu = d.unit("speed"), d.unit("length")
     if not result.corners:
         return '<p class="note">No corners were detected on this track.</p>'
     rows, classes = [], []
@@ -200,8 +310,9 @@ def _corner_section(result: LapResult, dpi: int = 100) -> str:
         vtxt, vcls = _verdict_cell(c)
         bal = c["balance_index_at_min"]
         rows.append([
-            _e(k + 1), _e(c["id"]), _e(c["direction"]), _num(c["apex_m"], ".0f"),
-            _num(c["min_radius_m"], ".0f"), _num(c["min_speed_kph"], ".1f"),
+            _e(k + 1), _e(c["id"]), _e(c["direction"]), _num(d.length(c["apex_m"]), ".0f"),
+            _num(d.length(c["min_radius_m"]), ".0f"), _num(d.speed_kph(c["min_speed_kph"]),
+                                                           ".1f"),
             _e(c["limiting_axle"]),
             f'<span class="{"pos" if bal > 0 else "neg"}">{_num(bal, "+.3f")}</span>',
             vtxt, _num(c.get("liftoff_margin"), ".3f"), _num(c.get("coast_margin"), ".3f"),
@@ -210,10 +321,11 @@ def _corner_section(result: LapResult, dpi: int = 100) -> str:
             _num(c.get("liftoff_max_shift"), "+.3f"), _e(c.get("liftoff_reason", "")),
         ])
         classes.append([""] * 8 + [vcls] + [""] * 5 + ["why"])
-    table = _table(["rank", "corner", "dir", "apex [m]", "min radius [m]", "min speed [km/h]",
-                    "limiting axle", "balance at min [-]", "lift-off verdict", "margin [-]",
-                    "coasting margin [-]", "speed margin [km/h]", "rear reserve [-]",
-                    "worst shift [-]", "why"], rows, text_cols=(1, 2, 6, 14),
+    table = _table(["rank", "corner", "dir", f"apex [{lu}]", f"min radius [{lu}]",
+                    f"min speed [{su}]", "limiting axle", "balance at min [-]",
+                    "lift-off verdict", "margin [-]", "coasting margin [-]",
+                    f"speed margin [{su}]", "rear reserve [-]", "worst shift [-]", "why"],
+                   rows, text_cols=(1, 2, 6, 14),
                    cell_classes=classes)
     legend = ('<p class="note">Ranked by lift-off margin, tightest first. margin = lateral '
               "acceleration up to which a lift (engine braking in the gear of that speed) "
@@ -224,7 +336,8 @@ def _corner_section(result: LapResult, dpi: int = 100) -> str:
               "limit (&lt; 0: the rear saturates); balance = u_r − u_f at the slowest point "
               "(&gt; 0 oversteer-leaning); worst shift = largest change of the balance index "
               "on lift-off at the lap's own state.</p>")
-    return table + "\n" + legend + "\n" + _response(result, dpi) + "\n" + _worst_steps(result)
+    return (table + "\n" + legend + "\n" + _verdict_legend() + "\n" + _response(result, dpi)
+            + "\n" + _worst_steps(result, d))
 
 
 def _response(result: LapResult, dpi: int) -> str:
@@ -242,7 +355,10 @@ def _response(result: LapResult, dpi: int) -> str:
                    "and coasting. Dotted: the highest safe-lift lateral acceleration."))
 
 
-def _worst_steps(result: LapResult) -> str:
+def _worst_steps(result: LapResult, d=None) -> str:
+    from lapbalance.units import METRIC
+
+    d = d or METRIC
     rows, classes = [], []
     for c in ranked(result.corners):
         if c.get("liftoff_verdict") not in FLAG_VERDICTS:
@@ -254,9 +370,9 @@ def _worst_steps(result: LapResult) -> str:
                 continue
             vtxt, vcls = _verdict_cell(c)
             rows.append([
-                _e(c["id"]), vtxt, _e(what), _num(w["distance_m"], ".0f"),
-                _num(w["speed_kph"], ".1f"), _num(w["balance_shift"], "+.3f"),
-                _num(w["front_load_shift_n"], "+.0f"),
+                _e(c["id"]), vtxt, _e(what), _num(d.length(w["distance_m"]), ".0f"),
+                _num(d.speed_kph(w["speed_kph"]), ".1f"), _num(w["balance_shift"], "+.3f"),
+                _num(d.force(w["front_load_shift_n"]), "+.0f"),
                 _num(w["usage_front_on"], ".3f"), _num(w["usage_front_off"], ".3f"),
                 _num(w["usage_rear_on"], ".3f"), _num(w["usage_rear_off"], ".3f"),
                 _num(w["coast_balance_shift"], "+.3f"), _num(w["coast_usage_rear"], ".3f"),
@@ -266,8 +382,9 @@ def _worst_steps(result: LapResult) -> str:
         return ('<p class="note">No corner is flagged by the lift-off check (none '
                 "lift-critical or lift-marginal).</p>")
     return ("<h3>Flagged corners: the two worst steps at the lap's own state</h3>\n"
-            + _table(["corner", "verdict", "step", "at [m]", "speed [km/h]",
-                      "balance shift [-]", "front load change [N]", "u_f on", "u_f off",
+            + _table(["corner", "verdict", "step", f"at [{d.unit('length')}]",
+                      f"speed [{d.unit('speed')}]", "balance shift [-]",
+                      f"front load change [{d.unit('force')}]", "u_f on", "u_f off",
                       "u_r on", "u_r off", "coasting shift [-]", "u_r coasting"], rows,
                      text_cols=(0, 2), cell_classes=classes))
 
@@ -280,11 +397,16 @@ def _figures(result: LapResult, dpi: int) -> str:
     return "\n".join(out)
 
 
-def _comparison_section(results: Sequence[LapResult], labels: Sequence[str], dpi: int) -> str:
+def _comparison_section(results: Sequence[LapResult], labels: Sequence[str], dpi: int,
+                        disp=None) -> str:
+    from lapbalance.units import METRIC
+
+    d = disp or METRIC
+    su = d.unit("speed")
     base = results[0]
     nsec = max(len(r.sectors) for r in results)
-    header = (["variant", "lap time [s]", "Δ to base [s]", "top [km/h]", "min [km/h]",
-               "mean [km/h]", "aero bal. CG", "aero bal. ground"]
+    header = (["variant", f"{base.time_label} [s]", "Δ to base [s]", f"top [{su}]",
+               f"min [{su}]", f"mean [{su}]", "aero bal. CG", "aero bal. ground"]
               + [f"S{j + 1} Δ [s]" for j in range(nsec)]
               + ["lift-critical", "lift-marginal", "smallest margin", "Δ margin"])
     rows = []
@@ -299,21 +421,25 @@ def _comparison_section(results: Sequence[LapResult], labels: Sequence[str], dpi
             else:
                 dsec.append("–")
         counts = verdict_counts(r.corners)
+        lift = s.get("aero_net_lift")
         rows.append([_e(lab), _num(s["lap_time_s"], ".3f"),
                      _num(s["lap_time_s"] - sb["lap_time_s"], "+.3f"),
-                     _num(s["top_speed_kph"], ".1f"), _num(s["min_speed_kph"], ".1f"),
-                     _num(s["mean_speed_kph"], ".1f"), _pct(s["aero_balance_front_cg"]),
-                     _pct(s["aero_balance_front_ground"])] + dsec
+                     _num(d.speed_kph(s["top_speed_kph"]), ".1f"),
+                     _num(d.speed_kph(s["min_speed_kph"]), ".1f"),
+                     _num(d.speed_kph(s["mean_speed_kph"]), ".1f"),
+                     "net lift" if lift else _pct(s["aero_balance_front_cg"]),
+                     "net lift" if lift else _pct(s["aero_balance_front_ground"])] + dsec
                     + [_e(counts["lift-critical"]), _e(counts["lift-marginal"]),
                        _num(smallest_margin(r.corners), ".3f"),
                        _num(_delta(smallest_margin(r.corners), smallest_margin(base.corners)),
                             "+.3f")])
     parts = ['<h2 id="comparison">Comparison</h2>',
              f'<p class="note">Base: {_e(labels[0])}. Δ = variant − base '
-             "(&gt; 0: the variant is slower).</p>", _table(header, rows)]
+             "(&gt; 0: the variant is slower).</p>", _table(header, rows),
+             _setup_section(results, labels)]
     ids = [c["id"] for c in base.corners]
     if ids:
-        head = ["corner"] + [f"{lab} min [km/h]" for lab in labels] + \
+        head = ["corner"] + [f"{lab} min [{su}]" for lab in labels] + \
                [f"{lab} margin" for lab in labels] + \
                [f"{lab} Δ margin" for lab in labels[1:]] + \
                [f"{lab} verdict" for lab in labels]
@@ -323,7 +449,7 @@ def _comparison_section(results: Sequence[LapResult], labels: Sequence[str], dpi
             vcells, margins = [], []
             for r in results:
                 c = r.corners[k] if k < len(r.corners) and r.corners[k]["id"] == cid else None
-                row.append(_num(c["min_speed_kph"], ".1f") if c else "–")
+                row.append(_num(d.speed_kph(c["min_speed_kph"]), ".1f") if c else "–")
                 cls.append("")
                 vcells.append(_verdict_cell(c) if c else ("–", ""))
                 margins.append(c.get("liftoff_margin") if c else None)
@@ -353,7 +479,8 @@ def _delta(x, base):
 
 
 def build_report(results: Sequence[LapResult] | LapResult, labels: Sequence[str] | None = None,
-                 dpi: int = 100, generated: str | None = None) -> str:
+                 dpi: int = 100, generated: str | None = None, *, units: str = "metric",
+                 provenance: dict | None = None) -> str:
     """Build the HTML report of one lap or of several variants.
 
     Parameters
@@ -366,6 +493,12 @@ def build_report(results: Sequence[LapResult] | LapResult, labels: Sequence[str]
         Resolution of the embedded figures. [dots per inch]
     generated : str, optional
         Time stamp printed under the title (default: now, UTC). [-]
+    units : str
+        Display units of the tables: ``"metric"`` or ``"imperial"`` (mph, lbf, ft); the
+        figures stay metric. [-]
+    provenance : dict, optional
+        Provenance record (:mod:`lapbalance.provenance`) shown in the "Provenance" section
+        (default: built from the results). [-]
 
     Returns
     -------
@@ -377,7 +510,14 @@ def build_report(results: Sequence[LapResult] | LapResult, labels: Sequence[str]
     results = list(results)
     if not results:
         raise ValueError("build_report needs at least one lap result")
+    from lapbalance import provenance as _prov
+    from lapbalance.units import Display
+
+    disp = Display(units)
     labels = _labels(results, labels)
+    if provenance is None:
+        provenance = _prov.build([r.car for r in results], [results[0].track],
+                                 solver=results[0].settings)
     track = getattr(results[0].track, "name", "") or "track"
     if generated is None:
         generated = _dt.datetime.now(_dt.UTC).strftime("%Y-%m-%d %H:%M UTC")
@@ -386,7 +526,7 @@ def build_report(results: Sequence[LapResult] | LapResult, labels: Sequence[str]
     else:
         title = f"Lap balance report: {len(results)} variants on {track}"
     tr = results[0].track
-    meta = (f"{track}, {float(tr.length_m):.0f} m, "
+    meta = (f"{track}, {disp.length(float(tr.length_m)):.0f} {disp.unit('length')}, "
             f"{'closed lap' if tr.closed else 'open run'}, step "
             f"{float(tr.step_m):.2f} m · generated {generated} by lapbalance {__version__}")
     nav = ["<nav><ul>"]
@@ -395,18 +535,23 @@ def build_report(results: Sequence[LapResult] | LapResult, labels: Sequence[str]
     for j, lab in enumerate(labels):
         nav.append(f'<li><a href="#lap-{j + 1}">{_e(lab)}</a></li>')
     nav.append('<li><a href="#assumptions">Assumptions and limits</a></li>')
+    nav.append('<li><a href="#provenance">Provenance</a></li>')
     nav.append("</ul></nav>")
     body = [f"<h1>{_e(title)}</h1>", f'<p class="meta">{_e(meta)}</p>',
             f'<div class="caution" role="note">{_e(CAUTION)}</div>', "\n".join(nav)]
     if len(results) > 1:
-        body.append(_comparison_section(results, labels, dpi))
+        body.append(_comparison_section(results, labels, dpi, disp))
     for j, (r, lab) in enumerate(zip(results, labels, strict=True)):
         body += [f'<h2 id="lap-{j + 1}">{_e(lab)}</h2>', "<h3>Summary</h3>",
-                 _summary_section(r), "<h3>Corners and lift-off check</h3>",
-                 _corner_section(r, dpi), "<h3>Figures</h3>", _figures(r, dpi)]
+                 _summary_section(r, disp)]
+        if len(results) == 1:
+            body.append(_setup_section([r], [lab]))
+        body += ["<h3>Corners and lift-off check</h3>",
+                 _corner_section(r, dpi, disp), "<h3>Figures</h3>", _figures(r, dpi)]
     body.append('<h2 id="assumptions">Assumptions and limits</h2>')
     body.append('<ul class="assumptions">' + "".join(f"<li>{_e(a)}</li>" for a in ASSUMPTIONS)
                 + "</ul>")
+    body.append(_provenance_section(provenance))
     body.append(f"<footer>{_e(CAUTION)}</footer>")
     return ("<!DOCTYPE html>\n"
             '<html lang="en">\n<head>\n<meta charset="utf-8">\n'
@@ -416,7 +561,8 @@ def build_report(results: Sequence[LapResult] | LapResult, labels: Sequence[str]
 
 
 def write_report(results: Sequence[LapResult] | LapResult, path: str | Path, force: bool = False,
-                 labels: Sequence[str] | None = None, dpi: int = 100) -> Path:
+                 labels: Sequence[str] | None = None, dpi: int = 100, *,
+                 units: str = "metric", provenance: dict | None = None) -> Path:
     """Build the report and write it atomically to ``path``.
 
     Parameters
@@ -443,4 +589,5 @@ def write_report(results: Sequence[LapResult] | LapResult, path: str | Path, for
     if path.exists() and not force:
         raise InputError("already exists; pass --force to replace it or choose another --out",
                          path)
-    return write_text_atomic(path, build_report(results, labels, dpi))
+    return write_text_atomic(path, build_report(results, labels, dpi, units=units,
+                                                provenance=provenance))

@@ -147,11 +147,47 @@ def parse_vary(text: str, method: str = "grid") -> tuple[str, list[float]]:
         if n == 1 and lo != hi:
             raise InputError(f'n = 1 in "{rhs}" gives one value but lo != hi; write a single '
                              "value instead", src, key)
-        return key, [float(x) for x in np.linspace(lo, hi, n)]
+        return key, typed_range(parts[0], parts[1], n)
     items = [s.strip() for s in rhs.split(",")]
     if not rhs or any(not s for s in items):
         raise InputError(f'"{rhs}" has an empty value; write a,b,c or lo:hi:n', src, key)
     return key, [num(s) for s in items]
+
+
+def typed_range(lo: str, hi: str, n: int) -> list[float]:
+    """``n`` evenly spaced values from ``lo`` to ``hi`` as typed: computed in decimal, so
+    ``0.5:0.7:3`` gives 0.6, not 0.6000000000000001 (values that are not short decimals,
+    such as thirds, come out as the nearest float)."""
+    from decimal import Decimal, localcontext
+
+    with localcontext() as ctx:
+        ctx.prec = 34
+        a, b = Decimal(lo.strip()), Decimal(hi.strip())
+        if n == 1:
+            return [float(a)]
+        step = (b - a) / (n - 1)
+        return [float(a + i * step) for i in range(n - 1)] + [float(b)]
+
+
+def auto_workers(n_points: int, cpus: int | None = None) -> int:
+    """Default number of local worker processes for a sweep of ``n_points`` points.
+
+    One process per CPU core this process may use (at most 8), each running the solver on one
+    numba thread, once there are enough points to pay for starting the pool (about
+    :data:`POINTS_PER_WORKER` points per worker); below that, 1 (run in this process, where
+    the kernels' parallel loops use every core).
+    """
+    if cpus is None:
+        try:
+            cpus = len(os.sched_getaffinity(0))
+        except (AttributeError, OSError):
+            cpus = os.cpu_count() or 1
+    return max(1, min(int(cpus), 8, int(n_points) // POINTS_PER_WORKER))
+
+
+#: Points per worker below which a pool costs more to start than it saves (measured, see
+#: DEVELOPERS.md "Sweep workers").
+POINTS_PER_WORKER = 50
 
 
 def point_key(point: Mapping[str, float]) -> str:
@@ -393,7 +429,8 @@ def _base_id(car: Car, track, keys: Sequence[str], options: Mapping) -> str:
 def sweep(car, track, vary: Mapping[str, Sequence[float]], method: str = "grid",
           n: int | None = None, workers: int = 1, cluster=None, out=None, seed: int = 0,
           progress: Callable[[int, int, dict], None] | None = None, *, force: bool = False,
-          simulate_options: Mapping[str, Any] | None = None) -> list[dict]:
+          simulate_options: Mapping[str, Any] | None = None, stats: dict | None = None,
+          plot_format: str = "png") -> list[dict]:
     """Run ``car`` over ``track`` at every point of a grid or a Latin hypercube.
 
     Parameters
@@ -425,6 +462,11 @@ def sweep(car, track, vary: Mapping[str, Sequence[float]], method: str = "grid",
         Start over even if ``out`` holds results (of this or another sweep).
     simulate_options : mapping, optional
         Keyword arguments for :func:`~lapbalance.lap.simulate_lap`.
+    stats : dict, optional
+        Filled with ``points``, ``reused`` (found in ``OUT/sweep.csv`` from an earlier run)
+        and ``computed``. [-]
+    plot_format : str
+        Format of the plots in ``out``: ``png``, ``svg`` or ``pdf``. [-]
 
     Returns
     -------
@@ -476,6 +518,8 @@ def sweep(car, track, vary: Mapping[str, Sequence[float]], method: str = "grid",
     done = {k: v for k, v in done.items() if k in want}
     todo = [p for p in points if point_key(p) not in done]
     total = len(points)
+    if stats is not None:
+        stats.update(points=total, reused=total - len(todo), computed=len(todo))
     count = [len(done)]
 
     fh = open(log, "a", encoding="utf-8", newline="") if log is not None else None
@@ -506,7 +550,8 @@ def sweep(car, track, vary: Mapping[str, Sequence[float]], method: str = "grid",
 
     rows = [done[point_key(p)] for p in points]
     if out_dir is not None:
-        _write_final(out_dir, rows, keys, car, track, method, n, seed, base_id, header)
+        _write_final(out_dir, rows, keys, car, track, method, n, seed, base_id, header,
+                     plot_format, total - len(todo))
     return rows
 
 
@@ -582,11 +627,12 @@ def _run_dask(cluster, raw, source, track, todo, options, record) -> None:
 
 
 def _write_final(out_dir: Path, rows, keys, car, track, method, n, seed, base_id,
-                 header) -> None:
+                 header, plot_format="png", reused=0) -> None:
     cols = ["point", *keys, *RESULT_COLUMNS]
     write_text_atomic(out_dir / RESULTS_NAME,
                       csv_text(cols, ([_fmt(r.get(c)) for c in cols] for r in rows)))
-    for name, data in sweep_figures_png(rows, keys).items():
+    title = f"{car.name} on {getattr(track, 'name', '') or 'track'}"
+    for name, data in sweep_figures(rows, keys, title=title, fmt=plot_format).items():
         write_bytes_atomic(out_dir / name, data)
     ok = [r for r in rows if r["status"] == "ok"]
     best = min(ok, key=lambda r: r["lap_time_s"]) if ok else None
@@ -594,67 +640,114 @@ def _write_final(out_dir: Path, rows, keys, car, track, method, n, seed, base_id
         "car": car.name, "car_file": car.source, "track": getattr(track, "name", ""),
         "track_length_m": float(track.length_m), "method": method, "n": n, "seed": seed,
         "keys": list(keys), "points": len(rows), "ok": len(ok),
-        "infeasible": len(rows) - len(ok), "base_id": base_id,
+        "infeasible": len(rows) - len(ok), "reused": reused, "base_id": base_id,
         "best": None if best is None else {k: best[k] for k in ("point", *keys, "lap_time_s")},
     })
 
 
-def sweep_figures_png(rows: Sequence[Mapping], keys: Sequence[str]) -> dict[str, bytes]:
+def sweep_figures_png(rows: Sequence[Mapping], keys: Sequence[str],
+                      title: str | None = None) -> dict[str, bytes]:
     """Plots of a sweep as PNG bytes: ``lap_time.png``, ``liftoff_margin.png`` and
-    ``liftoff_shift.png``.
+    ``liftoff_shift.png``
+    (see :func:`sweep_figures`)."""
+    return sweep_figures(rows, keys, title=title, fmt="png")
 
-    1-D sweeps give line plots; 2-D grids give heat maps, other 2-D point sets (Latin
-    hypercubes) coloured scatter plots; sweeps over more keys give no plots (an empty dict).
+
+def _value_text(v: float) -> str:
+    """A swept value as typed (shortest repr, no float noise)."""
+    return f"{v:.10g}"
+
+
+def sweep_figures(rows: Sequence[Mapping], keys: Sequence[str], title: str | None = None,
+                  fmt: str = "png") -> dict[str, bytes]:
+    """Plots of a sweep: ``lap_time.<fmt>`` and ``liftoff_shift.<fmt>`` (png, svg or pdf).
+
+    1-D sweeps give line plots; 2-D grids give heat maps with a tick at every cell centre
+    (the swept values as typed) and the value written in each cell; other 2-D point sets
+    (Latin hypercubes) coloured scatter plots; sweeps over more keys give no plots (an empty
+    dict). The colour scale runs from the smallest to the largest value of the sweep (no
+    offset notation) and the colour-bar label states that range, so a small spread shows as
+    small. ``title`` (e.g. "car on track") heads every plot.
     """
     if len(keys) not in (1, 2) or not rows:
         return {}
+    out = {}
+    for name in SWEEP_FIGURES:
+        fig = sweep_figure(rows, keys, name, title)
+        buf = io.BytesIO()
+        fig.savefig(buf, format=fmt, metadata=None if fmt == "png" else {"Date": None})
+        out[f"{name}.{fmt}"] = buf.getvalue()
+    return out
+
+
+#: Sweep figures: name -> (result column, label, unit).
+SWEEP_FIGURES = {"lap_time": ("lap_time_s", "lap time", "s"),
+                 "liftoff_margin": ("liftoff_margin_min",
+                                    "smallest lift-off margin (1 = a lift at the limit keeps "
+                                    "the rear)", "-"),
+                 "liftoff_shift": ("liftoff_worst_shift",
+                                   "worst lift-off balance shift (> 0 toward oversteer)", "-")}
+
+
+def sweep_figure(rows: Sequence[Mapping], keys: Sequence[str], name: str = "lap_time",
+                 title: str | None = None):
+    """One sweep figure (a :class:`matplotlib.figure.Figure`; see :func:`sweep_figures`).
+
+    ``name`` is a key of :data:`SWEEP_FIGURES`; ``keys`` has one or two swept keys.
+    """
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
 
-    what = {"lap_time.png": ("lap_time_s", "lap time [s]"),
-            "liftoff_margin.png": ("liftoff_margin_min",
-                                   "smallest lift-off margin [-] (1 = a lift at the limit "
-                                   "keeps the rear)"),
-            "liftoff_shift.png": ("liftoff_worst_shift",
-                                  "worst lift-off balance shift [-] (> 0 toward oversteer)")}
-    out = {}
-    for name, (col, label) in what.items():
-        z = np.array([np.nan if r.get(col) is None else float(r[col]) for r in rows])
-        fig = Figure(figsize=(6.4, 4.8), dpi=100, layout="constrained")
-        FigureCanvasAgg(fig)
-        ax = fig.add_subplot()
-        x = np.array([float(r[keys[0]]) for r in rows])
-        if len(keys) == 1:
-            order = np.argsort(x, kind="stable")
-            ax.plot(x[order], z[order], marker="o")
-            ax.set_xlabel(keys[0])
-            ax.set_ylabel(label)
-            ax.grid(True, alpha=0.3)
+    col, label, unit = SWEEP_FIGURES[name]
+    z = np.array([np.nan if r.get(col) is None else float(r[col]) for r in rows])
+    fin = z[np.isfinite(z)]
+    rng = (f"range {fin.min():.4g} to {fin.max():.4g} {unit}"
+           f" (spread {fin.max() - fin.min():.3g})" if fin.size else "no data")
+    fig = Figure(figsize=(6.8, 5.0), dpi=100, layout="constrained")
+    FigureCanvasAgg(fig)
+    ax = fig.add_subplot()
+    x = np.array([float(r[keys[0]]) for r in rows])
+    if len(keys) == 1:
+        order = np.argsort(x, kind="stable")
+        ax.plot(x[order], z[order], marker="o")
+        ax.set_xlabel(keys[0])
+        ax.set_ylabel(f"{label} [{unit}]")
+        ax.yaxis.get_major_formatter().set_useOffset(False)
+        xs = np.unique(x)
+        if len(xs) <= 12:
+            ax.set_xticks(xs, labels=[_value_text(v) for v in xs])
+        ax.grid(True, alpha=0.3)
+        ax.set_title(f"{title + ': ' if title else ''}{label}\n{rng}", fontsize=10)
+    else:
+        y = np.array([float(r[keys[1]]) for r in rows])
+        xs, ys = np.unique(x), np.unique(y)
+        if len(xs) * len(ys) == len(rows) and len(xs) > 1 and len(ys) > 1:
+            grid = np.full((len(ys), len(xs)), np.nan)
+            grid[np.searchsorted(ys, y), np.searchsorted(xs, x)] = z
+            m = ax.pcolormesh(_edges(xs), _edges(ys), np.ma.masked_invalid(grid),
+                              shading="flat", cmap="viridis")
+            norm = m.norm
+            for i, yy in enumerate(ys):
+                for j, xx in enumerate(xs):
+                    if np.isfinite(grid[i, j]):
+                        dark = float(norm(grid[i, j])) < 0.6  # viridis: dark low end
+                        ax.text(xx, yy, f"{grid[i, j]:.3f}", ha="center", va="center",
+                                fontsize=7, color="white" if dark else "black")
+            if len(xs) <= 15:
+                ax.set_xticks(xs, labels=[_value_text(v) for v in xs])
+            if len(ys) <= 15:
+                ax.set_yticks(ys, labels=[_value_text(v) for v in ys])
+            ax.grid(False)
         else:
-            y = np.array([float(r[keys[1]]) for r in rows])
-            xs, ys = np.unique(x), np.unique(y)
-            if len(xs) * len(ys) == len(rows) and len(xs) > 1 and len(ys) > 1:
-                grid = np.full((len(ys), len(xs)), np.nan)
-                grid[np.searchsorted(ys, y), np.searchsorted(xs, x)] = z
-                m = ax.pcolormesh(_edges(xs), _edges(ys), np.ma.masked_invalid(grid),
-                                  shading="flat", cmap="viridis")
-                norm = m.norm
-                for i, yy in enumerate(ys):
-                    for j, xx in enumerate(xs):
-                        if np.isfinite(grid[i, j]):
-                            dark = float(norm(grid[i, j])) < 0.6  # viridis: dark low end
-                            ax.text(xx, yy, f"{grid[i, j]:.3f}", ha="center", va="center",
-                                    fontsize=7, color="white" if dark else "black")
-            else:
-                m = ax.scatter(x, y, c=np.ma.masked_invalid(z), cmap="viridis", s=30)
-            fig.colorbar(m, ax=ax, label=label)
-            ax.set_xlabel(keys[0])
-            ax.set_ylabel(keys[1])
-        ax.set_title(label.split(" [")[0])
-        buf = io.BytesIO()
-        fig.savefig(buf, format="png")
-        out[name] = buf.getvalue()
-    return out
+            m = ax.scatter(x, y, c=np.ma.masked_invalid(z), cmap="viridis", s=30)
+        cb = fig.colorbar(m, ax=ax)
+        cb.formatter.set_useOffset(False)
+        cb.update_ticks()
+        cb.set_label(f"{label} [{unit}]\ncolour {rng}", fontsize=8)
+        ax.set_xlabel(keys[0])
+        ax.set_ylabel(keys[1])
+        ax.set_title(f"{title + ': ' if title else ''}{label}", fontsize=10)
+    return fig
 
 
 def _edges(c: np.ndarray) -> np.ndarray:

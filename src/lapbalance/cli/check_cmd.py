@@ -72,9 +72,12 @@ def check_command(car_file, track_file, targets_file, overrides, as_json, step_m
     outcomes = check(result, targets)
     ok = all_passed(outcomes)
     if as_json:
+        from lapbalance.provenance import for_lap
+
         echo_json({"car": car.name, "track": getattr(track, "name", ""),
                    "targets_file": str(targets_file), "passed": ok,
-                   "targets": [o.to_dict() for o in outcomes]})
+                   "targets": [o.to_dict() for o in outcomes],
+                   "provenance": for_lap(result, [("targets", targets_file)])})
     else:
         click.echo(format_outcomes(outcomes, car.name, getattr(track, "name", "")))
     if not ok:

@@ -59,3 +59,41 @@ def table(rows: list[list], header: list[str], align: str | None = None) -> str:
         if j == 0:
             out.append("  ".join("-" * w for w in widths))
     return "\n".join(out)
+
+
+units_option = click.option(
+    "--units", "units", type=click.Choice(["metric", "imperial"]), default="metric",
+    show_default=True,
+    help="Units shown on the terminal and in the report (imperial: mph, lbf, ft); files "
+         "always stay SI with the unit in the column name.")
+plot_format_option = click.option(
+    "--plot-format", "plot_format", type=click.Choice(["png", "svg", "pdf"]), default="png",
+    show_default=True, help="File format of the figures.")
+
+
+def prepare_solver() -> None:
+    """Compile the solver with progress on stderr if numba's cache is cold (first run)."""
+    import sys
+
+    from lapbalance import firstrun
+
+    firstrun.ensure_ready(sys.stderr)
+
+
+_TRACK_SUFFIXES = (".csv", ".txt", ".tsv")
+
+
+def check_car_track_order(car_file, track_file, car_arg: str = "CAR_FILE",
+                          track_arg: str = "TRACK_FILE") -> None:
+    """Refuse swapped CAR and TRACK arguments with a hint (before any file is parsed)."""
+    from pathlib import Path
+
+    from lapbalance.errors import InputError
+
+    c, t = Path(str(car_file)), Path(str(track_file))
+    car_is_track = c.suffix.lower() in _TRACK_SUFFIXES
+    track_is_car = t.suffix.lower() == ".toml"
+    if car_is_track and track_is_car:
+        raise InputError(f"{c.name} looks like a track and {t.name} like a car file: the "
+                         f"arguments are swapped; give the car first, then the track "
+                         f"({car_arg} {track_arg})", c)

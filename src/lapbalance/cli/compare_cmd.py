@@ -11,7 +11,8 @@ import click
 from lapbalance.car import load_car
 from lapbalance.cli import main
 from lapbalance.cli.common import (apply_line, echo_json, force_option, json_option,
-                                   line_options, set_option, table)
+                                   line_options, plot_format_option, prepare_solver,
+                                   set_option, table, units_option)
 from lapbalance.cli.lap_cmd import track_options
 from lapbalance.errors import InputError
 
@@ -61,24 +62,66 @@ def _pct_pair(cg, ground) -> str:
     return f"{cg * 100:.1f} ({ground * 100:.1f})"
 
 
-def format_compare(result, track: str) -> str:
-    """Text tables of one track: the lap summary and the per-segment time deltas."""
+def _track_name(result, key: str) -> str:
+    i = result.tracks.index(key)
+    return getattr(result.laps[i][0].track, "name", "") or key
+
+
+def format_setup(result, key: str | None = None) -> str:
+    """Setup table of every car and, per variant, the car-file keys that differ from the base."""
+    from lapbalance import provenance as prov
+
+    i = 0 if key is None else result.tracks.index(key)
+    cars = [r.car for r in result.laps[i]]
+    labels = result.labels
+    rows = [[label, unit, *(prov.format_value(v) for v in vals)]
+            for label, unit, *vals in prov.setup_rows(cars)]
+    lines = ["setup", table(rows, ["quantity", "unit", *labels], "ll" + "r" * len(labels))]
+    for car, lab in zip(cars[1:], labels[1:], strict=True):
+        diff = prov.car_differences(cars[0], car)
+        lines.append("")
+        lines.append(f"what differs from the base: {lab}")
+        if diff:
+            lines.append(table([[k, prov.format_value(a), prov.format_value(b)]
+                                for k, a, b in diff], ["key", "base", "variant"], "lll"))
+        else:
+            lines.append("(no car-file key differs)")
+    return "\n".join(lines)
+
+
+def format_compare(result, track: str, units: str = "metric") -> str:
+    """Text tables of one track (by key): the lap summary and the per-segment time deltas."""
+    from lapbalance.units import Display
+
+    d = Display(units)
+    su, lu = d.unit("speed"), d.unit("length")
     rows = result.summary_for(track)
     lo, hi = result.speed_bands_kph
-    lines = [f"track {track}"]
+    laps = result.laps[result.tracks.index(track)]
+    tl = laps[0].time_label
+    kind = "closed lap" if laps[0].track.closed else "open run"
+    lines = [f"track {_track_name(result, track)} ({kind})"]
+
+    def bal(r, lap, which):
+        if lap.car.aero.downforce_area < 0:
+            return "net lift"
+        return _pct_pair(r[f"aero_balance_front_{which}"],
+                         r[f"aero_balance_front_ground_{which}"])
+
     lines.append(table(
         [[r["car"], _f(r["lap_time_s"], ".3f"), _f(r["delta_s"], "+.3f"),
-          _f(r["top_speed_kph"], ".1f"),
-          _pct_pair(r["aero_balance_front_low"], r["aero_balance_front_ground_low"]),
-          _pct_pair(r["aero_balance_front_high"], r["aero_balance_front_ground_high"]),
+          _f(d.speed_kph(r["top_speed_kph"]), ".1f"), bal(r, lap, "low"), bal(r, lap, "high"),
           _f(r["liftoff_margin_min"], ".3f"), _f(r["liftoff_margin_delta"], "+.3f"),
           _f(r["liftoff_reserve_min"], "+.3f"), _f(r["liftoff_reserve_delta"], "+.3f"),
-          r["flagged_corners"], _f(r["liftoff_worst_shift"], "+.3f")] for r in rows],
-        ["car", "lap s", "delta s", "top km/h", f"bal <{lo:g} %", f"bal >={hi:g} %",
-         "margin", "d margin", "reserve", "d reserve", "flagged", "lift shift"]))
-    lines.append(f"bal = front share of downforce, mean over steps below {lo:g} km/h / at or "
-                 f"above {hi:g} km/h, as CG convention (wheel-restrained scales in "
-                 "brackets); delta = car minus base (negative = faster); margin = smallest "
+          r["flagged_corners"], _f(r["liftoff_worst_shift"], "+.3f")]
+         for r, lap in zip(rows, laps, strict=True)],
+        ["car", f"{tl} s", "delta s", f"top {su}", f"bal <{d.speed_kph(lo):.0f} %",
+         f"bal >={d.speed_kph(hi):.0f} %", "margin", "d margin", "reserve", "d reserve",
+         "flagged", "lift shift"]))
+    lines.append(f"bal = front share of downforce, mean over steps below {d.speed_kph(lo):.0f} "
+                 f"{su} / at or above {d.speed_kph(hi):.0f} {su}, as CG convention "
+                 "(wheel-restrained scales in brackets; 'net lift': the car lifts, a share "
+                 "means nothing); delta = car minus base (negative = faster); margin = smallest "
                  "lift-off margin over the corners (1 = a lift at the limit keeps the rear); "
                  "reserve = smallest rear reserve after a lift at the limit (< 0 saturates; "
                  "it ranks cars whose margin is 1); d = car minus base (> 0 safer)")
@@ -89,7 +132,7 @@ def format_compare(result, track: str) -> str:
     if len(base) > 1:
         srows = []
         for i, s in enumerate(base):
-            row = [s["segment"], f"{s['start_m']:.0f}", f"{s['end_m']:.0f}",
+            row = [s["segment"], f"{d.length(s['start_m']):.0f}", f"{d.length(s['end_m']):.0f}",
                    f"{s['time_s']:.3f}"]
             row += [f"{by_car[lab][i]['delta_s']:+.3f}" for lab in labels[1:]]
             corner = s["kind"] == "corner"
@@ -103,9 +146,9 @@ def format_compare(result, track: str) -> str:
             row.append("/".join(v or "-" for v in verdicts) if corner else "")
             srows.append(row)
         tot = [sum(by_car[lab][i]["delta_s"] for i in range(len(base))) for lab in labels[1:]]
-        srows.append(["lap", "", "", f"{sum(s['time_s'] for s in base):.3f}"]
+        srows.append([tl.split()[0], "", "", f"{sum(s['time_s'] for s in base):.3f}"]
                      + [f"{t:+.3f}" for t in tot] + [""] * (2 * len(labels) + 1))
-        head = ["segment", "from m", "to m", "base s"] + [f"d {j + 1} s"
+        head = ["segment", f"from {lu}", f"to {lu}", "base s"] + [f"d {j + 1} s"
                                                           for j in range(len(labels) - 1)]
         head += ["base margin"] + [f"dm {j + 1}" for j in range(len(labels) - 1)]
         head += ["base reserve"] + [f"dr {j + 1}" for j in range(len(labels) - 1)]
@@ -145,11 +188,14 @@ SEGMENT_COLUMNS = ("car", "segment", "kind", "corner_id", "start_m", "end_m", "t
                    "liftoff_max_usage_rear")
 
 
+_FMT = ["png"]  # figure format of the running compare (set by the command)
+
+
 def _png(fig) -> bytes:
     if isinstance(fig, bytes):
         return fig
     buf = io.BytesIO()
-    fig.savefig(buf, format="png")
+    fig.savefig(buf, format=_FMT[0], metadata=None if _FMT[0] == "png" else {"Date": None})
     return buf.getvalue()
 
 
@@ -200,6 +246,16 @@ def _delta_map_png(base, others, labels) -> bytes:
     return _png(fig)
 
 
+def compare_figures(result, i: int, key: str, fmt: str = "png") -> dict[str, bytes]:
+    """Overlay and delta-map figures of track ``i`` as ``png``, ``svg`` or ``pdf`` bytes."""
+    _FMT[0] = fmt
+    try:
+        out = compare_figures_png(result, i, key)
+    finally:
+        _FMT[0] = "png"
+    return {name[: -len(".png")] + "." + fmt: data for name, data in out.items()}
+
+
 def compare_figures_png(result, i: int, key: str) -> dict[str, bytes]:
     """Overlay and delta-map PNGs of track ``i``; uses lapbalance.plots when it has them."""
     laps, labels = result.laps[i], result.labels
@@ -233,19 +289,23 @@ def compare_figures_png(result, i: int, key: str) -> dict[str, bytes]:
 @click.option("--out", "out_dir", type=click.Path(file_okay=False),
               help="Write compare_<track>.csv, corners_<track>.csv and plots here.")
 @click.option("--plots/--no-plots", default=True, show_default=True,
-              help="With --out, also write PNG figures.")
+              help="With --out, also write figures.")
+@plot_format_option
 @force_option
 @json_option
 @track_options
+@units_option
 @line_options
 def compare_command(base_file, variant_files, track_files, set_variants, out_dir, plots,
-                    force, as_json, step_m, closed, start_speed_kph, line, track_width_m,
-                    line_margin_m):
+                    plot_format, force, as_json, step_m, closed, start_speed_kph, units, line,
+                    track_width_m, line_margin_m):
     """Run BASE_FILE and each VARIANT_FILE (car files, e.g. with base = "...") over every
-    --track; print lap times, deltas, aero balance and per-corner time won or lost.
+    --track; print lap times, deltas, aero balance, lift-off margins, per-corner time won or
+    lost, a setup table and what each variant changes from the base.
 
     With --line min-curvature every car drives the line built for BASE_FILE's width, so the
     comparison shows the cars, not their lines."""
+    from lapbalance import provenance
     from lapbalance.compare import compare
 
     if not variant_files and not set_variants:
@@ -262,27 +322,48 @@ def compare_command(base_file, variant_files, track_files, set_variants, out_dir
         variants.append(items)
     tracks = _load_tracks(track_files, step_m, closed)
     tracks = [apply_line(t, base, line, track_width_m, line_margin_m) for t in tracks]
+    if out_dir:  # refuse an occupied folder before the laps are run, not after
+        from lapbalance.outputs import check_output_dir
+
+        check_output_dir(out_dir, force)
+    prepare_solver()
     opts = {"start_speed_kph": start_speed_kph} if start_speed_kph is not None else {}
     result = compare(base, variants, tracks, simulate_options=opts)
+    cars = [r.car for r in result.laps[0]]
+    record = provenance.build(cars, tracks, solver=result.laps[0][0].settings,
+                              settings={"labels": result.labels,
+                                        "set_variants": list(set_variants),
+                                        "speed_bands_kph": list(result.speed_bands_kph)})
+    written: list[str] = []
     if out_dir:
+        from lapbalance.export import write_provenance
         from lapbalance.outputs import staged_dir
 
         with staged_dir(out_dir, force=force) as tmp:
             for i, key in enumerate(result.tracks):
-                (tmp / f"compare_{key}.csv").write_text(
-                    _csv_rows(result.summary_for(key), SUMMARY_COLUMNS), encoding="utf-8")
-                (tmp / f"corners_{key}.csv").write_text(
-                    _csv_rows(result.segments_for(key), SEGMENT_COLUMNS), encoding="utf-8")
+                for name, text in (
+                        (f"compare_{key}.csv", _csv_rows(result.summary_for(key),
+                                                         SUMMARY_COLUMNS)),
+                        (f"corners_{key}.csv", _csv_rows(result.segments_for(key),
+                                                         SEGMENT_COLUMNS))):
+                    (tmp / name).write_text(text, encoding="utf-8")
+                    written.append(name)
                 if plots:
-                    for name, data in compare_figures_png(result, i, key).items():
+                    for name, data in compare_figures(result, i, key, plot_format).items():
                         (tmp / name).write_bytes(data)
+                        written.append(name)
+            write_provenance(tmp, record)
+            written.append(provenance.SIDECAR)
     if as_json:
-        echo_json(result.to_json())
+        echo_json({**result.to_json(),
+                   "track_names": [_track_name(result, k) for k in result.tracks],
+                   "provenance": record})
         return
-    click.echo("\n\n".join(format_compare(result, key) for key in result.tracks))
+    click.echo("\n\n".join(format_compare(result, key, units) for key in result.tracks))
+    click.echo("")
+    click.echo(format_setup(result))
     if out_dir:
-        click.echo(f"\nwrote {out_dir}/compare_<track>.csv, corners_<track>.csv"
-                   + (" and plots" if plots else ""))
+        click.echo(f"\nwrote {len(written)} files in {out_dir}/: " + ", ".join(written))
 
 
 # --------------------------------------------------------------------------------------------
@@ -309,8 +390,12 @@ class _Progress:
             self.bar = None
 
 
-def format_sweep(rows, keys, limit: int = 30) -> str:
+def format_sweep(rows, keys, limit: int = 30, units: str = "metric",
+                 time_word: str = "lap") -> str:
     """Text table of sweep rows (the fastest ``limit`` points when there are more)."""
+    from lapbalance.units import Display
+
+    d = Display(units)
     shown = rows
     note = ""
     if len(rows) > limit:
@@ -319,12 +404,13 @@ def format_sweep(rows, keys, limit: int = 30) -> str:
         note = f"(fastest {len(shown)} of {len(rows)} points; all in results.csv with --out)"
     body = []
     for r in shown:
-        body.append([*(f"{r[k]:.6g}" for k in keys), _f(r["lap_time_s"], ".3f"),
-                     _f(r["top_speed_kph"], ".1f"), _f(r.get("liftoff_margin_min"), ".3f"),
+        body.append([*(f"{r[k]:.10g}" for k in keys), _f(r["lap_time_s"], ".3f"),
+                     _f(d.speed_kph(r["top_speed_kph"]), ".1f"),
+                     _f(r.get("liftoff_margin_min"), ".3f"),
                      _f(r["flagged_corners"], "d"), _f(r["liftoff_worst_shift"], "+.3f"),
                      _f(r["liftoff_max_usage_rear"], ".3f"), r["status"]])
-    text = table(body, [*keys, "lap s", "top km/h", "margin", "flagged", "lift shift",
-                        "rear off", "status"])
+    text = table(body, [*keys, f"{time_word} s", f"top {d.unit('speed')}", "margin",
+                        "flagged", "lift shift", "rear off", "status"])
     text += ("\nmargin = smallest lift-off margin over the corners (1 = a lift at the limit "
              "keeps the rear); lift shift = largest balance change on lift-off over all "
              "corners (> 0 toward oversteer); rear off = highest rear usage after lift-off")
@@ -342,8 +428,10 @@ def format_sweep(rows, keys, limit: int = 30) -> str:
               help="Latin hypercube of N points over the --vary ranges instead of a grid.")
 @click.option("--seed", type=int, default=0, show_default=True,
               help="Seed of the Latin hypercube.")
-@click.option("--workers", type=int, default=1, show_default=True,
-              help="Local processes to run points in parallel.")
+@click.option("--workers", type=int, default=None,
+              help="Local processes to run points in parallel (default: one per CPU core, "
+                   "up to 8, each on one solver thread, once the sweep has at least 50 "
+                   "points per worker; else 1, in this process).")
 @click.option("--cluster", default=None, metavar="ADDRESS",
               help="Run on a Dask scheduler, e.g. tcp://10.0.0.5:8786 (needs "
                    "lapbalance[cluster]).")
@@ -353,16 +441,20 @@ def format_sweep(rows, keys, limit: int = 30) -> str:
 @set_option
 @json_option
 @track_options
+@plot_format_option
+@units_option
 @line_options
 def sweep_command(car_file, track_file, vary_specs, lhs_n, seed, workers, cluster, out_dir,
-                  force, overrides, as_json, step_m, closed, start_speed_kph, line,
-                  track_width_m, line_margin_m):
+                  force, overrides, as_json, step_m, closed, start_speed_kph, plot_format,
+                  units, line, track_width_m, line_margin_m):
     """Run CAR_FILE over TRACK_FILE at every point of a grid (or Latin hypercube) of car
     settings; print lap time and lift-off figures per point.
 
     With --line min-curvature the line is built once for CAR_FILE's width (a swept
     chassis.overall_width_m does not move it)."""
-    from lapbalance.sweep import parse_vary, sweep
+    from lapbalance import provenance
+    from lapbalance.cli.common import check_car_track_order
+    from lapbalance.sweep import auto_workers, parse_vary, sweep, sweep_points
 
     method = "lhs" if lhs_n is not None else "grid"
     vary: dict[str, list[float]] = {}
@@ -371,15 +463,23 @@ def sweep_command(car_file, track_file, vary_specs, lhs_n, seed, workers, cluste
         if key in vary:
             raise InputError("is given twice; vary each key once", "--vary", key)
         vary[key] = values
+    check_car_track_order(car_file, track_file)
     car = load_car(car_file, overrides)
     (track,) = _load_tracks([track_file], step_m, closed)
     track = apply_line(track, car, line, track_width_m, line_margin_m)
     opts = {"start_speed_kph": start_speed_kph} if start_speed_kph is not None else {}
+    if workers is None:
+        workers = 1 if cluster else auto_workers(len(sweep_points(vary, method, lhs_n, seed)))
+        if not as_json:
+            click.echo(f"sweep: {workers} worker process{'es' if workers > 1 else ''} "
+                       "(--workers to change)", err=True)
+    prepare_solver()
     bar = _Progress()
+    stats: dict = {}
     try:
         rows = sweep(car, track, vary, method=method, n=lhs_n, workers=workers,
                      cluster=cluster, out=out_dir, seed=seed, progress=bar, force=force,
-                     simulate_options=opts)
+                     simulate_options=opts, stats=stats, plot_format=plot_format)
     except KeyboardInterrupt:
         bar.close()
         kept = (f"; finished points are kept in {out_dir}/sweep.csv, rerun the same command "
@@ -388,10 +488,31 @@ def sweep_command(car_file, track_file, vary_specs, lhs_n, seed, workers, cluste
         sys.exit(130)
     finally:
         bar.close()
-    if as_json:
-        echo_json(rows)
-        return
-    click.echo(format_sweep(rows, list(vary)))
+    from lapbalance.lap import LIFTOFF_AY_THRESHOLD
+
+    record = provenance.build([car], [track],
+                              solver={**opts, "liftoff_ay_threshold_mps2": LIFTOFF_AY_THRESHOLD},
+                              settings={"vary": vary, "method": method, "lhs_points": lhs_n,
+                                        "seed": seed, "workers": workers,
+                                        "cluster": cluster})
     if out_dir:
-        click.echo(f"\nwrote {out_dir}/results.csv, sweep.csv, sweep.json"
-                   + (" and plots" if len(vary) <= 2 else ""))
+        from pathlib import Path
+
+        from lapbalance.export import write_provenance
+
+        write_provenance(Path(out_dir), record)
+    if as_json:
+        echo_json({"points": rows, "reused": stats.get("reused", 0), "provenance": record})
+        return
+    if stats.get("reused"):
+        click.echo(f"resumed: reused {stats['reused']} of {stats['points']} points from "
+                   f"{out_dir}/sweep.csv, computed {stats['computed']}")
+    click.echo(f"{car.name} on {getattr(track, 'name', '') or 'track'} "
+               f"({'closed lap' if track.closed else 'open run'})")
+    click.echo(format_sweep(rows, list(vary), units=units,
+                            time_word="lap" if track.closed else "run"))
+    if out_dir:
+        figs = (f", lap_time.{plot_format}, liftoff_shift.{plot_format}"
+                if len(vary) <= 2 else "")
+        click.echo(f"\nwrote {out_dir}/results.csv, sweep.csv, sweep.json, "
+                   f"{provenance.SIDECAR}{figs}")

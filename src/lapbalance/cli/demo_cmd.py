@@ -55,8 +55,10 @@ def demo_command(out_dir, force):
     _say(f"demo: loading {car_file.name} and {track_file.name}")
     car = load_car(car_file)
     track = load_track(track_file)
-    _say("demo: simulating the lap (the first run compiles the solver, ~30 s; later runs "
-         "are fast)")
+    from lapbalance.cli.common import prepare_solver
+
+    prepare_solver()
+    _say("demo: simulating the lap")
     result = simulate_lap(car, track)
     click.echo(format_lap(result))
     click.echo("")
@@ -102,6 +104,12 @@ def demo_command(out_dir, force):
         (tmp / "tunnel_corrected.csv").write_text(columns_csv_text(corr), encoding="utf-8")
         if report_html is not None:
             (tmp / "report.html").write_text(report_html, encoding="utf-8")
-    click.echo(f"wrote {out}/ (channels.csv, corners.csv, summary.json, tunnel_corrected.csv"
+        from lapbalance import provenance
+        from lapbalance.export import write_provenance
+
+        write_provenance(tmp, provenance.for_lap(
+            result, [("tunnel-readings", root / "examples" / "gt_coupe_tunnel_sweep.csv")]))
+    click.echo(f"wrote {out}/ (channels.csv, corners.csv, summary.json, provenance.json, "
+               "tunnel_corrected.csv"
                f"{', report.html' if report_html else ''})")
     click.echo(f"caution: {CAUTION}")

@@ -7,7 +7,8 @@ import click
 from lapbalance.car import load_car
 from lapbalance.cli import main
 from lapbalance.cli.common import (apply_line, echo_json, force_option, json_option,
-                                   line_options, set_option, table)
+                                   line_options, plot_format_option, set_option, table,
+                                   units_option)
 from lapbalance.liftoff import flagged, ranked, smallest_margin, verdict_counts
 
 
@@ -21,61 +22,106 @@ def track_options(f):
     return f
 
 
-def load_inputs(car_file, track_file, overrides, step_m, closed):
+def load_inputs(car_file, track_file, overrides, step_m, closed, prepare: bool = True):
+    """Load the car and the track (and compile the solver with progress on a first run)."""
+    from lapbalance.cli.common import check_car_track_order, prepare_solver
     from lapbalance.track import load_track
 
     if not 0 < step_m <= 50:
         from lapbalance.errors import InputError
 
         raise InputError(f"= {step_m} must be between 0 and 50 m", "--step-m")
+    check_car_track_order(car_file, track_file)
     car = load_car(car_file, overrides)
     track = load_track(track_file, step_m=step_m, closed=closed)
+    if prepare:
+        prepare_solver()
     return car, track
 
 
-def format_lap(result, liftoff_only: bool = False) -> str:
-    """Human-readable lap summary (text)."""
-    s = result.summary()
+def overrides_line(car) -> str | None:
+    """``overrides: --set a.b=1 --set c.d=2`` for a car with --set overrides, else None."""
+    from lapbalance.provenance import overrides
+
+    ov = overrides(car)
+    if not ov:
+        return None
+    return "overrides: " + " ".join(f"--set {o['text']}" for o in ov)
+
+
+def aero_line(s: dict, car, disp) -> str | None:
+    """The aero line of the header: the front share, or axle lift values for a net-lift car."""
+    bal_cg, bal_g = s["aero_balance_front_cg"], s["aero_balance_front_ground"]
+    if s.get("aero_net_lift"):
+        ae = car.aero
+        v = 200.0 / 3.6  # reference speed for the axle forces [m/s]
+        q = 0.5 * car.air.density * v * v
+        fu = disp.unit("force")
+        return (f"aero: net lift, so a front share means nothing; axle downforce areas "
+                f"front {ae.front_area_cg:+.3f} m², rear {ae.rear_area_cg:+.3f} m² (CG "
+                f"convention, < 0 = lift): at {disp.speed(v):.0f} {disp.unit('speed')} "
+                f"front {disp.force(q * ae.front_area_cg):+.0f} {fu}, rear "
+                f"{disp.force(q * ae.rear_area_cg):+.0f} {fu}")
+    if bal_cg is None:
+        return None
+    return (f"aero balance (front share) {bal_cg * 100:.1f} % on track (CG convention); "
+            f"{bal_g * 100:.1f} % as wheel-restrained scales read it")
+
+
+def format_lap(result, liftoff_only: bool = False, units: str = "metric") -> str:
+    """Human-readable lap summary (text), in the display ``units`` (metric or imperial)."""
+    from lapbalance.liftoff import VERDICT_MEANING
+    from lapbalance.units import Display
+
+    d = Display(units)
+    su, lu, fu = d.unit("speed"), d.unit("length"), d.unit("force")
+    s = result.summary
     lines = []
     if not liftoff_only:
-        lines.append(f"{s['car']} on {s['track']} ({s['length_m']:.0f} m, "
+        lines.append(f"{s['car']} on {s['track']} ({d.length(s['length_m']):.0f} {lu}, "
                      f"{'closed lap' if s['closed'] else 'open run'})")
+        ov = overrides_line(result.car)
+        if ov:
+            lines.append(ov)
         line_note = _line_note(result.track)
         if line_note:
             lines.append(line_note)
-        lines.append(f"lap time {s['lap_time_s']:.3f} s   top {s['top_speed_kph']:.1f} km/h   "
-                     f"min {s['min_speed_kph']:.1f} km/h   mean {s['mean_speed_kph']:.1f} km/h")
-        bal_cg, bal_g = s["aero_balance_front_cg"], s["aero_balance_front_ground"]
-        if bal_cg is not None:
-            lines.append(f"aero balance (front share) {bal_cg * 100:.1f} % on track "
-                         f"(CG convention); {bal_g * 100:.1f} % as wheel-restrained scales "
-                         "read it")
+        lines.append(f"{result.time_label} {s['lap_time_s']:.3f} s   "
+                     f"top {d.speed_kph(s['top_speed_kph']):.1f} {su}   "
+                     f"min {d.speed_kph(s['min_speed_kph']):.1f} {su}   "
+                     f"mean {d.speed_kph(s['mean_speed_kph']):.1f} {su}")
+        al = aero_line(s, result.car, d)
+        if al:
+            lines.append(al)
         if result.car.aero.aero_map is not None:
             ch = result.channels
             fast = ch["speed_kph"] >= 100.0
             if fast.any():
                 b = ch["aero_balance_front"][fast]
-                lines.append(f"aero map: on-track balance above 100 km/h ranges "
-                             f"{b.min() * 100:.1f} % to {b.max() * 100:.1f} % (CG convention); "
-                             f"front ride height {ch['ride_height_front_mm'].min():.1f} to "
+                lines.append(f"aero map: on-track balance above {d.speed_kph(100.0):.0f} {su} "
+                             f"ranges {b.min() * 100:.1f} % to {b.max() * 100:.1f} % (CG "
+                             f"convention); front ride height "
+                             f"{ch['ride_height_front_mm'].min():.1f} to "
                              f"{ch['ride_height_front_mm'].max():.1f} mm")
         lines.append("sectors: " + "   ".join(f"S{x['sector']} {x['time_s']:.3f} s"
                                               for x in s["sectors"]))
         lines.append("")
         rows = []
         for c in ranked(result.corners):
-            rows.append([c["id"], c["direction"], f"{c['apex_m']:.0f}",
-                         f"{c['min_radius_m']:.0f}", f"{c['min_speed_kph']:.1f}",
+            dv = c.get("liftoff_speed_margin_kph")
+            rows.append([c["id"], c["direction"], f"{d.length(c['apex_m']):.0f}",
+                         f"{d.length(c['min_radius_m']):.0f}",
+                         f"{d.speed_kph(c['min_speed_kph']):.1f}",
                          c["limiting_axle"], f"{c['balance_index_at_min']:+.3f}",
                          c.get("liftoff_verdict", ""),
                          _num(c.get("liftoff_margin"), ".3f"),
-                         _num(c.get("liftoff_speed_margin_kph"), ".1f"),
+                         "" if dv is None else f"{d.speed_kph(dv):.1f}",
                          _num(c.get("liftoff_rear_reserve"), "+.3f"),
                          _num(c.get("liftoff_max_shift"), "+.3f")])
         if rows:
-            lines.append(table(rows, ["corner", "dir", "apex m", "radius m", "min km/h",
-                                      "limit", "balance", "lift-off", "margin", "dv km/h",
-                                      "reserve", "shift"]))
+            lines.append(table(rows, ["corner", "dir", f"apex {lu}", f"radius {lu}",
+                                      f"min {su}", "limit", "balance", "lift-off", "margin",
+                                      f"dv {su}", "reserve", "shift"]))
             lines.append("sorted by lift-off margin, tightest first. balance = usage_rear - "
                          "usage_front at the slowest point (> 0 oversteer-leaning); margin = "
                          "a_y where a lift keeps the rear / a_y at the limit (1 = safe at the "
@@ -93,22 +139,36 @@ def format_lap(result, liftoff_only: bool = False) -> str:
         for c in flags:
             t = c["liftoff_tightest"]
             w = c["liftoff_worst_rear"]
-            rows.append([c["id"], c["liftoff_verdict"].upper(), f"{t['margin']:.3f}",
-                         f"{t['distance_m']:.0f}", f"{t['limit_speed_kph']:.0f}",
-                         f"{t['safe_speed_kph']:.0f}", f"{t['coast_margin']:.3f}",
-                         f"{w['distance_m']:.0f}", f"{w['usage_rear_on']:.3f}",
-                         f"{w['usage_rear_off']:.3f}", f"{w['front_load_shift_n']:+.0f}",
+            rows.append([c["id"], c["liftoff_verdict"], f"{t['margin']:.3f}",
+                         f"{d.length(t['distance_m']):.0f}",
+                         f"{d.speed_kph(t['limit_speed_kph']):.0f}",
+                         f"{d.speed_kph(t['safe_speed_kph']):.0f}", f"{t['coast_margin']:.3f}",
+                         f"{d.length(w['distance_m']):.0f}", f"{w['usage_rear_on']:.3f}",
+                         f"{w['usage_rear_off']:.3f}", f"{d.force(w['front_load_shift_n']):+.0f}",
                          c["liftoff_reason"]])
-        lines.append(table(rows, ["corner", "verdict", "margin", "at m", "limit km/h",
-                                  "safe km/h", "coast", "lap at m", "rear on", "rear off",
-                                  "front +N", "why"]))
-        lines.append("margin at m = the tightest step; limit/safe km/h = its corner-limit "
-                     "speed and the highest speed where a lift keeps the rear; coast = the "
-                     "margin without engine braking; lap at m, rear on/off, front +N = the "
-                     "lap's own step with the highest rear usage after a lift")
+        lines.append(table(rows, ["corner", "verdict", "margin", f"at {lu}", f"limit {su}",
+                                  f"safe {su}", "coast", f"lap at {lu}", "rear on", "rear off",
+                                  f"front +{fu}", "why"]))
+        lines.append("margin at = the tightest step; limit/safe = its corner-limit speed and "
+                     "the highest speed where a lift keeps the rear; coast = the margin "
+                     "without engine braking; lap at, rear on/off, front + = the lap's own "
+                     "step with the highest rear usage after a lift")
+        for v in dict.fromkeys(c["liftoff_verdict"] for c in flags):
+            lines.append(f"{v}: {VERDICT_MEANING.get(v, '')}")
     else:
         lines.append("no corner flagged")
     return "\n".join(lines)
+
+
+def lap_json(result, files=()) -> dict:
+    """The ``--json`` output of a lap: the summary, the verdict wording and the provenance."""
+    from lapbalance.export import summary_dict
+    from lapbalance.liftoff import VERDICT_MEANING
+    from lapbalance.provenance import for_lap
+
+    out = summary_dict(result, for_lap(result, files))
+    out["liftoff_verdicts"] = dict(VERDICT_MEANING)
+    return out
 
 
 def _line_note(track) -> str:
@@ -130,49 +190,66 @@ def _num(x, fmt):
 @click.argument("car_file", type=click.Path(dir_okay=False))
 @click.argument("track_file", type=click.Path(dir_okay=False))
 @click.option("--out", "out_dir", type=click.Path(file_okay=False),
-              help="Write channels.csv, corners.csv and summary.json here.")
+              help="Write channels.csv, corners.csv, summary.json and provenance.json here.")
 @set_option
 @json_option
 @force_option
 @track_options
 @line_options
 @click.option("--liftoff-only", is_flag=True, help="Print only the lift-off check.")
-@click.option("--plots", is_flag=True, help="Also write PNG figures into --out.")
+@click.option("--plots", is_flag=True, help="Also write the figures into --out.")
+@plot_format_option
+@click.option("--map-channel", "map_channel", default=None, metavar="CHANNEL",
+              help="Colour the track-map figure by this channel (e.g. speed_kph, "
+                   "usage_rear; default: the balance index where the car corners).")
+@units_option
 def lap_command(car_file, track_file, out_dir, overrides, as_json, force, step_m, closed,
-                start_speed_kph, line, track_width_m, line_margin_m, liftoff_only, plots):
-    """Run CAR_FILE around TRACK_FILE; print lap time, sectors, corners and lift-off flags."""
-    from lapbalance.export import write_lap_folder
-    from lapbalance.lap import simulate_lap
+                start_speed_kph, line, track_width_m, line_margin_m, liftoff_only, plots,
+                plot_format, map_channel, units):
+    """Run CAR_FILE around TRACK_FILE; print lap time, sectors, corners and lift-off flags.
 
+    With --out, summary.json records what was run (inputs with SHA-256, overrides, the
+    resolved car, settings); `lapbalance rerun OUT/summary.json` runs it again.
+    """
+    from lapbalance.export import write_lap_folder
+    from lapbalance.lap import CHANNELS, simulate_lap
+
+    if map_channel is not None and map_channel not in CHANNELS:
+        from lapbalance.errors import InputError, did_you_mean
+
+        raise InputError(f'"{map_channel}" is not a channel; '
+                         f"{did_you_mean(map_channel, CHANNELS)}", "--map-channel")
     if out_dir:  # refuse an occupied folder before the lap is run, not after
         from lapbalance.outputs import check_output_dir
 
         check_output_dir(out_dir, force)
+    elif plots:
+        raise click.UsageError("--plots needs --out DIR")
     car, track = load_inputs(car_file, track_file, overrides, step_m, closed)
     track = apply_line(track, car, line, track_width_m, line_margin_m)
     result = simulate_lap(car, track, start_speed_kph=start_speed_kph)
+    extra = {}
     if out_dir:
         from lapbalance.liftoff import corner_response
 
-        extra = {}
         curve = corner_response(result)
         if curve is not None:
             extra["liftoff_response.csv"] = curve.csv_text().encode("utf-8")
         if plots:
             from lapbalance import plots as _plots
 
-            extra.update(_plots.lap_figures_png(result))
+            extra.update(_plots.lap_figures(result, fmt=plot_format, map_channel=map_channel))
             if curve is not None:
-                extra["liftoff_response.png"] = _plots.figure_png(
-                    _plots.liftoff_response_figure(curve, result.car.name))
+                fig = _plots.liftoff_response_figure(curve, result.car.name)
+                extra[f"liftoff_response.{plot_format}"] = _plots.figure_bytes(fig, plot_format)
         write_lap_folder(result, out_dir, force=force, extra=extra)
-    elif plots:
-        raise click.UsageError("--plots needs --out DIR")
     if as_json:
-        echo_json(result.summary())
+        echo_json(lap_json(result))
         return
-    click.echo(format_lap(result, liftoff_only))
+    click.echo(format_lap(result, liftoff_only, units))
     if out_dir:
-        click.echo(f"\nwrote {out_dir}/channels.csv, corners.csv, summary.json"
+        click.echo(f"\nwrote {out_dir}/channels.csv, corners.csv, summary.json, "
+                   f"provenance.json"
                    + (", liftoff_response.csv (tightest corner)"
-                      if "liftoff_response.csv" in extra else ""))
+                      if "liftoff_response.csv" in extra else "")
+                   + (f" and {plot_format.upper()} figures" if plots else ""))

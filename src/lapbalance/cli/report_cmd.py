@@ -8,7 +8,7 @@ import click
 
 from lapbalance.car import load_car
 from lapbalance.cli import main
-from lapbalance.cli.common import apply_line, line_options, set_option
+from lapbalance.cli.common import apply_line, line_options, set_option, units_option
 from lapbalance.cli.lap_cmd import load_inputs, track_options
 
 
@@ -24,13 +24,17 @@ from lapbalance.cli.lap_cmd import load_inputs, track_options
 @click.option("--force", is_flag=True, help="Replace an existing report file.")
 @track_options
 @line_options
+@units_option
 def report_command(car_file, track_file, variants, overrides, out_file, force, step_m, closed,
-                   start_speed_kph, line, track_width_m, line_margin_m):
+                   start_speed_kph, line, track_width_m, line_margin_m, units):
     """Run CAR_FILE (and every --variant) around TRACK_FILE; write a self-contained HTML report.
 
     --set overrides apply to every car, so variants differ only by their own files. With
-    --line min-curvature every car drives the line built for CAR_FILE's width.
+    --line min-curvature every car drives the line built for CAR_FILE's width. The
+    report ends with a provenance section (inputs with SHA-256, overrides, settings) and,
+    with variants, a setup table and what each variant changes from the base.
     """
+    from lapbalance import provenance
     from lapbalance.errors import InputError
     from lapbalance.lap import simulate_lap
     from lapbalance.report import write_report
@@ -51,7 +55,8 @@ def report_command(car_file, track_file, variants, overrides, out_file, force, s
         click.echo(f"[{j + 1}/{len(cars)}] {lab}: running the lap ...", err=True)
         results.append(simulate_lap(c, track, start_speed_kph=start_speed_kph))
     click.echo("rendering figures ...", err=True)
-    write_report(results, out, force=force, labels=labels)
+    record = provenance.build(cars, [track], solver=results[0].settings)
+    write_report(results, out, force=force, labels=labels, units=units, provenance=record)
     times = ", ".join(f"{lab} {r.lap_time_s:.3f} s" for lab, r in zip(labels, results,
                                                                        strict=True))
     click.echo(f"wrote {out} ({times})")

@@ -46,9 +46,9 @@ def track_summary(tr: Track) -> dict:
     }
 
 
-def track_map_png(tr: Track) -> bytes:
+def track_map_png(tr: Track, fmt: str = "png") -> bytes:
     """Draw the track map (corners labelled at their apex; edges and the driving line when
-    the track has a width) and return PNG bytes."""
+    the track has a width) and return PNG (or ``svg``, ``pdf``) bytes."""
     import matplotlib
 
     matplotlib.use("Agg")
@@ -93,7 +93,7 @@ def track_map_png(tr: Track) -> bytes:
                  "(blue left, orange right)", fontsize=9)
     ax.legend(loc="best", fontsize=8)
     buf = io.BytesIO()
-    fig.savefig(buf, format="png")
+    fig.savefig(buf, format=fmt, metadata=None if fmt == "png" else {"Date": None})
     return buf.getvalue()
 
 
@@ -104,7 +104,8 @@ def track_map_png(tr: Track) -> bytes:
 @click.option("--closed/--open", "closed", default=None,
               help="Force a closed circuit or an open stage (default: from the file).")
 @click.option("--map", "map_png", type=click.Path(dir_okay=False), default=None,
-              metavar="PNG", help="Save a track map with corners labelled.")
+              metavar="FILE", help="Save a track map with corners labelled (PNG; SVG or "
+                                   "PDF when the file name ends in .svg or .pdf).")
 @line_options
 @click.option("--car-width-m", type=float, default=None, metavar="M",
               help="Car width for --line min-curvature [m] (default 2.0, or from --car).")
@@ -166,9 +167,14 @@ def track_command(track_file, step_m, closed, map_png, line, track_width_m, line
         write_text_atomic(out_csv, track_csv_text(tr, note))
         info["out_csv"] = str(out_csv)
     if map_png:
-        write_bytes_atomic(map_png, track_map_png(tr))
+        suffix = str(map_png).lower().rsplit(".", 1)[-1]
+        write_bytes_atomic(map_png, track_map_png(tr, suffix if suffix in ("svg", "pdf")
+                                                  else "png"))
         info["map_png"] = str(map_png)
     if as_json:
+        from lapbalance import provenance
+
+        info["provenance"] = provenance.build(tracks=[tr])
         echo_json(info)
         return
     kind = "closed circuit" if tr.closed else "open stage"

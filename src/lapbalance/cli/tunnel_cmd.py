@@ -12,7 +12,7 @@ from lapbalance import tunnel
 from lapbalance.air import isa_density
 from lapbalance.car import load_car
 from lapbalance.cli import main
-from lapbalance.cli.common import echo_json, force_option, json_option, set_option, table
+from lapbalance.cli.common import echo_json, json_option, set_option, table
 from lapbalance.errors import InputError
 from lapbalance.outputs import columns_csv_text, write_text_atomic
 from lapbalance.units import KPH
@@ -111,7 +111,8 @@ def _print_reading(r: tunnel.CorrectedReading, measured_label: str, band=None):
               help="Moment reference point height above ground [m].")
 @click.option("--out", "out_path", type=click.Path(dir_okay=False),
               help="Write the corrected table to this CSV file (table form).")
-@force_option
+@click.option("--force", is_flag=True,
+              help="Replace the --out file (and its provenance sidecar) if it exists.")
 @json_option
 def tunnel_command(readings, car_file, overrides, front_n, rear_n, drag_n, cg_text,
                    wheelbase_m, restraint_height_m, drag_height_m, cl, cd, cpm, clf, clr,
@@ -211,6 +212,8 @@ def tunnel_command(readings, car_file, overrides, front_n, rear_n, drag_n, cg_te
         b = tunnel.balance_band(f, r, d, h_lo, h_hi, L, z, source="--cg-height-m")
         band = ((h_lo, h_hi), b)
     if as_json:
+        from lapbalance import provenance
+
         out = res.as_dict()
         out["measured_label"] = label
         if band is not None:
@@ -219,6 +222,10 @@ def tunnel_command(readings, car_file, overrides, front_n, rear_n, drag_n, cg_te
             out["balance_front_at_cg_height_max"] = band[1][1]
             out["balance_front_min"] = min(band[1])
             out["balance_front_max"] = max(band[1])
+        params = click.get_current_context().params
+        out["provenance"] = provenance.build(
+            [car] if car is not None else [],
+            settings={k: v for k, v in params.items() if v is not None and k != "as_json"})
         echo_json(out)
         return
     _print_reading(res, label, band)
@@ -229,7 +236,9 @@ def _table_form(readings, car, restraint_height_m, drag_height_m, air_density, o
     if car is None:
         raise click.UsageError("the table form needs --car CAR.toml (CG height, wheelbase)")
     if out_path and not force:
-        if Path(out_path).exists():
+        from lapbalance.provenance import sidecar_for
+
+        if Path(out_path).exists() or sidecar_for(out_path).exists():
             raise InputError(f"{out_path} already exists; pass --force to replace it or "
                              "choose another --out", "--out")
     tab = tunnel.read_readings(readings)
@@ -239,12 +248,25 @@ def _table_form(readings, car, restraint_height_m, drag_height_m, air_density, o
         raise InputError(f"= {rho:g} kg/m³ is not physical (0.3 to 1.6)", "--air-density")
     cols = tunnel.correct_table(tab, car.chassis.cg_height, car.chassis.wheelbase,
                                 restraint_height_m, rho, dh)
+    from lapbalance import provenance
+
+    record = provenance.build([car], files=[("tunnel-readings", readings)],
+                              settings={"restraint_height_m": restraint_height_m,
+                                        "drag_height_m": dh, "tunnel_air_density_kg_m3": rho})
     if out_path:
+        import json
+
         write_text_atomic(out_path, columns_csv_text(cols))
+        side = provenance.sidecar_for(out_path)
+        write_text_atomic(side, json.dumps(
+            {**record, "outputs": [provenance.file_record(out_path, "output")]},
+            indent=2, allow_nan=False) + "\n")
     if as_json:
-        echo_json({k: [None if isinstance(v, float) and not math.isfinite(v) else
-                       (float(v) if not isinstance(v, str) else v) for v in col]
-                   for k, col in cols.items()})
+        out = {k: [None if isinstance(v, float) and not math.isfinite(v) else
+                   (float(v) if not isinstance(v, str) else v) for v in col]
+               for k, col in cols.items()}
+        out["provenance"] = record
+        echo_json(out)
         return
     click.echo(f"{car.name}: CG height {car.chassis.cg_height:g} m, wheelbase "
                f"{car.chassis.wheelbase:g} m, restraint height {restraint_height_m:g} m, "
@@ -265,4 +287,4 @@ def _table_form(readings, car, restraint_height_m, drag_height_m, air_density, o
     click.echo("balance_front_measured: as read (restrained); balance_front_cg: corrected, "
                "CG convention")
     if out_path:
-        click.echo(f"wrote {out_path}")
+        click.echo(f"wrote {out_path} and {provenance.sidecar_for(out_path).name}")
