@@ -139,8 +139,8 @@ def test_verdict_wording_is_one_source(report_html):
     doc = json.loads(run("lap", TRUCK, RING, "--step-m", "4", "--json").output)
     assert doc["liftoff_verdicts"] == VERDICT_MEANING
     out = run("lap", TRUCK, RING, "--step-m", "4", "--liftoff-only").output
-    assert f"rear-saturates: {VERDICT_MEANING['rear-saturates']}" in out
-    assert "REAR-SATURATES" not in out
+    assert f"lift-critical: {VERDICT_MEANING['lift-critical']}" in out
+    assert "LIFT-CRITICAL" not in out
     for meaning in VERDICT_MEANING.values():
         assert meaning in report_html
 

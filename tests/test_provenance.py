@@ -154,7 +154,7 @@ def test_json_outputs_carry_provenance(tmp_path):
                                   "--step-m", "2", "--json"])
     doc = json.loads(r.output)
     assert doc["provenance"]["inputs"][0]["role"] == "car"
-    assert set(doc["liftoff_verdicts"]) >= {"rear-saturates", "watch", "stable"}
+    assert set(doc["liftoff_verdicts"]) >= {"lift-critical", "lift-marginal", "lift-close", "lift-safe"}
     r = CliRunner().invoke(main, ["track", str(TR / "veldmoor_ring.csv"), "--json"])
     assert json.loads(r.output)["provenance"]["inputs"][0]["role"] == "track"
     r = CliRunner().invoke(main, ["check", str(EX / "gt_coupe.toml"),

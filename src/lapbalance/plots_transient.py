@@ -76,7 +76,7 @@ def figures_figure(sweeps: Sequence, car_name: str = "") -> Figure:
             ax.plot(ay, y, color=c, marker="o", ms=3, label=f"R = {sw.radius_m:g} m")
             if spin.any():
                 ax.plot(ay[spin], y[spin], ls="none", marker="X", ms=7,
-                        color=PALETTE["rear-saturates"])
+                        color=PALETTE["lift-critical"])
         for ax in axs.flat:
             ax.axvline(sw.ay_limit_mps2, color=c, lw=0.8, ls=":")
     for ax, (_key, lab, ref) in zip(axs.flat, panels, strict=True):
