@@ -38,8 +38,15 @@ Alignment (the distance axis)
   speed over distance: a coarse start from the circular cross-correlation of the two traces
   (FFT), then ``scipy.optimize.least_squares`` on ``v_log(d_i) - v_model(k d_i + c)`` with a
   soft-L1 loss (``f_scale`` = 1 m/s), so that the places where model and car differ most
-  weigh less. When factors are fitted, the alignment is repeated against the fitted model
-  (whose speed trace matches the log better) and the fit is repeated once.
+  weigh less. A third parameter, the ratio of logged to model speed, absorbs a car that is
+  uniformly slower or faster than the model: without it, that difference would be read as a
+  shift along the braking zones (a speed error divided by the speed gradient) and bias the
+  offset by metres. When factors are fitted and the fitted model's speed trace matches the
+  log to within ``REALIGN_RMS_FACTOR`` times the log's speed noise (estimated from its second
+  differences), the alignment is repeated against the fitted model and the fit once more;
+  otherwise (a fitted model that still differs in shape, e.g. grip fitted on a car whose drag
+  is wrong) the alignment against the model as given is kept. ``Alignment.reference`` says
+  which.
 
 Comparison
 ----------
@@ -126,6 +133,9 @@ WINDOW_MIN_HALF_M = 10.0
 SMOOTH_SIGMA_M = 3.0
 #: A segment whose model and logged speed differ by less than this is "close". [km/h]
 CLOSE_KPH = 1.0
+#: Realign against the fitted model only when its speed RMS against the log is within this
+#: factor of the log's own speed noise. Engineering judgement. [-]
+REALIGN_RMS_FACTOR = 1.5
 #: Bounds of every fitted factor. [-]
 FACTOR_BOUNDS = (0.5, 2.0)
 #: Relative finite-difference step of the fit's Jacobian. The lap solver's speed tolerance is
@@ -249,6 +259,8 @@ class Alignment:
         RMS of logged minus model speed over the lap after alignment. [km/h]
     cross_track_rms_m : float
         RMS distance of the positions from the track line (NaN without positions). [m]
+    reference : str
+        The lap the speed traces were matched to: ``"model"`` or ``"fitted model"``. [-]
     """
 
     method: str
@@ -256,6 +268,7 @@ class Alignment:
     offset_m: float
     speed_rms_kph: float
     cross_track_rms_m: float = math.nan
+    reference: str = "model"
 
     def to_dict(self) -> dict:
         return {k: _json_float(v) for k, v in dataclasses.asdict(self).items()}
@@ -900,17 +913,29 @@ def align_speed(lap: LoggedLap, model, scale0: float | None = None) -> Alignment
     else:
         c0 = -k0 * dl[0]
 
-    def res(p):
-        return vl - _model_speed_at(model, p[0] * dl + p[1]) if closed else \
-            vl - np.interp(p[0] * dl + p[1], dm, vm)
+    def speed_at(k, c):
+        return _model_speed_at(model, k * dl + c) if closed else np.interp(k * dl + c, dm, vm)
 
-    sol = least_squares(res, [k0, c0], loss="soft_l1", f_scale=1.0,
-                        x_scale=[0.01, 10.0], method="trf")
+    def res(p):  # p = (scale, offset, speed ratio log/model)
+        return vl - p[2] * speed_at(p[0], p[1])
+
+    sol = least_squares(res, [k0, c0, 1.0], loss="soft_l1", f_scale=1.0,
+                        x_scale=[0.01, 10.0, 0.01], method="trf")
     k, c = float(sol.x[0]), float(sol.x[1])
     if closed:
         c = (c + 0.5 * L) % L - 0.5 * L
-    rms = float(np.sqrt(np.mean(res([k, c]) ** 2)) * 3.6)
+    rms = float(np.sqrt(np.mean((vl - speed_at(k, c)) ** 2)) * 3.6)
     return Alignment("speed", k, c, rms)
+
+
+def speed_noise_kph(speed_mps) -> float:
+    """Speed noise of a log from its second differences (robust: MAD). [km/h]
+
+    For white noise of standard deviation σ the second difference has variance 6σ²; the
+    true speed of a car changes too smoothly between samples at 5 Hz or faster to matter.
+    """
+    d2 = np.diff(np.asarray(speed_mps, float), 2)
+    return float(1.4826 * np.median(np.abs(d2 - np.median(d2))) / math.sqrt(6.0) * 3.6)
 
 
 def aligned_distance(lap: LoggedLap, al: Alignment) -> np.ndarray:
@@ -1147,7 +1172,9 @@ def factor_overrides(car: Car, factors, values) -> dict[str, Any]:
     return out
 
 
-def _check_factors(factors) -> tuple[str, ...]:
+def check_factors(factors) -> tuple[str, ...]:
+    """Clean a list of factor names (see :data:`FACTORS`); InputError for unknown or clashing
+    names."""
     factors = tuple(dict.fromkeys(f.strip().lower() for f in factors if f.strip()))
     for f in factors:
         if f not in FACTORS:
@@ -1186,7 +1213,7 @@ def fit_factors(car: Car, track, grid, windows, factors, *, corner_weight: float
 
     from lapbalance.lap import simulate_lap
 
-    factors = _check_factors(factors)
+    factors = check_factors(factors)
     if not factors:
         raise InputError("no factor to fit; give --fit grip,drag (any of "
                          f"{', '.join(FACTORS)})", "--fit")
@@ -1248,8 +1275,8 @@ def fit_factors(car: Car, track, grid, windows, factors, *, corner_weight: float
 
 
 def correlate(car: Car, track, log: Log, *, lap: int | None = None, align: str = "auto",
-              fit=(), corner_weight: float = 1.0, straight_weight: float = 1.0
-              ) -> Correlation:
+              fit=(), corner_weight: float = 1.0, straight_weight: float = 1.0,
+              model=None) -> Correlation:
     """Correlate ``car`` on ``track`` with one lap of ``log``.
 
     Parameters
@@ -1267,6 +1294,8 @@ def correlate(car: Car, track, log: Log, *, lap: int | None = None, align: str =
         Factors to fit (:data:`FACTORS`); empty = compare only.
     corner_weight, straight_weight : float
         Fit residual weights. [-]
+    model : LapResult, optional
+        The lap of ``car`` on ``track`` if already run (default: run it here).
 
     Returns
     -------
@@ -1282,7 +1311,7 @@ def correlate(car: Car, track, log: Log, *, lap: int | None = None, align: str =
                          "--align speed", log.source, "--align")
     method = "positions" if align == "auto" and log.has_positions else \
         ("speed" if align == "auto" else align)
-    factors = _check_factors(fit)
+    factors = check_factors(fit)
     if lap is None:
         j = log.fastest()
     else:
@@ -1291,7 +1320,8 @@ def correlate(car: Car, track, log: Log, *, lap: int | None = None, align: str =
                              f"{len(log.laps)}", "--lap")
         j = lap - 1
     the_lap = log.laps[j]
-    model = simulate_lap(car, track)
+    if model is None:
+        model = simulate_lap(car, track)
 
     def do_align(ref):
         al = align_positions(the_lap, ref) if method == "positions" else \
@@ -1306,14 +1336,17 @@ def correlate(car: Car, track, log: Log, *, lap: int | None = None, align: str =
         result = fit_factors(car, track, grid, windows, factors, corner_weight=corner_weight,
                              straight_weight=straight_weight)
         fitted = simulate_lap(result.car, track)
-        if method == "speed":  # realign against the fitted model and fit once more
-            al, grid = do_align(fitted)
-            windows = comparison_windows(fitted)
-            result = fit_factors(car, track, grid, windows, factors,
-                                 corner_weight=corner_weight, straight_weight=straight_weight,
-                                 x0=result.values)
-            fitted = simulate_lap(result.car, track)
-        windows = comparison_windows(model)
+        if method == "speed":
+            al2, grid2 = do_align(fitted)
+            noise = speed_noise_kph(the_lap.speed_mps)
+            if al2.speed_rms_kph <= REALIGN_RMS_FACTOR * noise:
+                # the fitted model explains the log down to its noise: align against it
+                al = dataclasses.replace(al2, reference="fitted model")
+                grid = grid2
+                result = fit_factors(car, track, grid, windows, factors,
+                                     corner_weight=corner_weight,
+                                     straight_weight=straight_weight, x0=result.values)
+                fitted = simulate_lap(result.car, track)
     rows = segment_table(model, grid, windows)
     if fitted is not None:
         vf = np.asarray(fitted.channels["speed_mps"], float)
@@ -1546,8 +1579,7 @@ def log_csv_text(columns: dict[str, np.ndarray], comments: tuple[str, ...] = ())
     buf.write(",".join(names) + "\n")
     arrs = [np.asarray(columns[n]) for n in names]
     for i in range(arrs[0].size):
-        buf.write(",".join(f"{a[i]:g}" if abs(a[i]) < 1e5 else f"{a[i]:.2f}" for a in arrs)
-                  + "\n")
+        buf.write(",".join(f"{a[i]:.12g}" for a in arrs) + "\n")
     return buf.getvalue()
 
 
