@@ -1209,7 +1209,7 @@ def fit_factors(car: Car, track, grid, windows, factors, *, corner_weight: float
     FitResult
     """
     from scipy.optimize import least_squares
-    from scipy.stats import t as student_t
+    from scipy.special import stdtrit
 
     from lapbalance.lap import simulate_lap
 
@@ -1258,7 +1258,7 @@ def fit_factors(car: Car, track, grid, windows, factors, *, corner_weight: float
     except np.linalg.LinAlgError:
         cov = np.full((p, p), np.inf)
     std = np.sqrt(np.clip(np.diag(cov), 0, None))
-    tq = float(student_t.ppf(0.975, dof))
+    tq = float(stdtrit(dof, 0.975))  # Student's t quantile
     ci = np.column_stack([sol.x - tq * std, sol.x + tq * std])
     with np.errstate(invalid="ignore", divide="ignore"):
         corr = cov / np.outer(std, std)
