@@ -198,6 +198,8 @@ def test_projection_onto_a_circle_matches_the_arc_length():
     off = np.array([2.0, -3.0, 0.5, 4.0, -1.0])  # left positive (inside of a left turn)
     x, y = (R - off) * np.sin(phi), R - (R - off) * np.cos(phi)
     s, n = C.project(track, x, y)
+    # Source: closed form, arc length of a circle s = R·phi (the resampled line is a polygon
+    # of 1 m chords, so its length is scaled by length / (2 pi R))
     assert np.allclose(s, R * phi * track.length_m / (2 * np.pi * R), atol=0.05)
     assert np.allclose(n, off, atol=0.02)
 
@@ -222,6 +224,26 @@ def test_identical_log_matches_and_noise_does_not_bias_minima(car, ring, model, 
     assert np.nanmax(np.abs(corr.trace["time_delta_s"])) < 0.1
     corners = [r for r in rows if r["kind"] == "corner"]
     assert np.mean([r["model_kph"] - r["log_sample_kph"] for r in corners]) > 0.0
+
+
+def test_spreadsheet_shaped_log_still_fits(car, ring, tmp_path):
+    """Whole km/h, whole metres, times to 10 ms, 25 Hz, a blank line and a text column:
+    the grip factor still comes back within 1 % (consistency check, not a validation)."""
+    true = car.with_overrides(C.factor_overrides(car, ("grip",), (0.96,)))
+    lap = simulate_lap(true, ring, assess_liftoff=False)
+    cols = C.synthetic_log(lap, rate_hz=25.0, speed_noise_kph=0.7, positions=False, seed=12,
+                           distance_scale=0.985, time_offset_s=77.0)
+    rows = [f"{t:.2f},{v:.0f},{d:.0f},ok" for t, v, d in
+            zip(cols["time_s"], cols["speed_kph"], cols["distance_m"], strict=True)]
+    rows.insert(500, "")
+    p = tmp_path / "sheet.csv"
+    p.write_text("time_s,speed_kph,distance_m,status\n" + "\n".join(rows) + "\n",
+                 encoding="utf-8")
+    corr = C.correlate(car, ring, C.load_log(p, ring), fit=("grip",))
+    assert abs(corr.fit.values[0] / 0.96 - 1) < 0.01
+    assert abs(corr.alignment.scale * 0.985 - 1) < 0.002
+    ranks = sorted(r["rank"] for r in corr.segments)
+    assert ranks == list(range(1, len(corr.segments) + 1))
 
 
 def test_factor_keys_cover_every_grip_drag_power_spelling(car):
@@ -265,7 +287,7 @@ def test_cli_writes_folder_and_a_variant_every_command_reads(tmp_path):
     out = tmp_path / "corr"
     res = runner.invoke(main, ["correlate", str(CAR), str(RING), str(DEMO_LOG), "--fit",
                                "grip", "--write-variant", str(variant), "--out", str(out),
-                               "--plots"])
+                               "--plots", "--set", "chassis.mass_kg=1310"])
     assert res.exit_code == 0, res.output
     assert "aligned by positions" in res.output and "grip" in res.output
     assert sorted(p.name for p in out.iterdir()) == ["correlation.png", "segments.csv",
@@ -274,6 +296,7 @@ def test_cli_writes_folder_and_a_variant_every_command_reads(tmp_path):
     assert "base = " in text and "[tyres.front]" in text
     fitted = load_car(variant)
     base = load_car(CAR)
+    assert fitted.chassis.mass == 1310.0  # the --set the fit ran with is part of the variant
     ratio = fitted.tyres.front.mu_lateral / base.tyres.front.mu_lateral
     assert 0.9 < ratio < 1.0
     assert fitted.tyres.rear.mu_lateral / base.tyres.rear.mu_lateral == pytest.approx(
