@@ -60,8 +60,9 @@ is the set of steps around the model's slowest point where the model runs within
 ``APEX_BAND`` of that minimum (at least ``WINDOW_MIN_HALF_M`` each side); for each straight,
 the steps around the model's top speed within ``TOP_BAND`` of it. The logged minimum (top)
 speed is the model's minimum (top) speed plus the mean of ``v_log - v_model`` over that
-window, with the model seen through the log's sampling (:func:`_as_logged`). A plain minimum of noisy samples is biased low by about twice the noise (the lowest
-of many noisy samples), a plain maximum high; the window mean is not. The lowest (highest)
+window, with the model seen through the log's sampling (:func:`_as_logged`). A plain
+minimum of noisy samples is biased low by about twice the noise (the lowest of many noisy
+samples), a plain maximum high; the window mean is not. The lowest (highest)
 smoothed logged sample is reported beside it. Peak lateral acceleration is compared the same
 way (window around the model's peak ``|a_y|``); without an ``ay_mps2`` column the log's
 ``v² κ`` is used.
@@ -1101,8 +1102,9 @@ def segment_table(model, grid, windows) -> list[dict]:
         ``segment``, ``kind``, ``corner_id``, ``start_m``, ``end_m``, ``at_m`` (model
         extreme) [m], ``model_kph``, ``log_kph`` (window estimate), ``log_sample_kph``
         (lowest/highest smoothed logged sample), ``model_minus_log_kph``, ``verdict``
-        (``optimistic`` = the model is faster, ``pessimistic``, ``close``), corners also ``model_ay_mps2``, ``log_ay_mps2``; ``covered`` (share of the window
-        with log data).
+        (``optimistic`` = the model is faster, ``pessimistic``, ``close``), corners also
+        ``model_ay_mps2``, ``log_ay_mps2``; ``covered`` (share of the window with log
+        data).
     """
     vm = np.asarray(model.channels["speed_mps"], float)
     aym = np.abs(np.asarray(model.channels["ay_mps2"], float))
@@ -1479,7 +1481,8 @@ def variant_text(fit: FitResult, base_file, variant_file, *, name: str | None = 
     top = sections.pop("", {})
     top.pop("base", None)
     lines.append(f"base = {_toml_value(Path(base_rel).as_posix())}")
-    lines.append(f"name = {_toml_value(name or top.pop('name', None) or fit.car.name + ' (fitted)')}")
+    car_name = name or top.pop("name", None) or fit.car.name + " (fitted)"
+    lines.append(f"name = {_toml_value(car_name)}")
     top.pop("name", None)
     for k, v in top.items():
         lines.append(f"{k} = {_toml_value(v)}")

@@ -19,9 +19,9 @@ def format_correlation(corr) -> str:
              + (f", {s['partial_laps_left_out']} partial left out"
                 if s["partial_laps_left_out"] else "")
              + f", {s['sample_rate_hz']:.0f} Hz, split by {s['split_by']}"]
+    dt = corr.model.lap_time_s - corr.lap.lap_time_s
     lines.append(f"lap {corr.lap.number}: logged {corr.lap.lap_time_s:.3f} s, model "
-                 f"{corr.model.lap_time_s:.3f} s ({corr.model.lap_time_s - corr.lap.lap_time_s:+.3f}"
-                 " s, negative = model faster)"
+                 f"{corr.model.lap_time_s:.3f} s ({dt:+.3f} s, negative = model faster)"
                  + (f", fitted model {corr.fitted.lap_time_s:.3f} s" if corr.fitted else ""))
     cr = "" if al.cross_track_rms_m != al.cross_track_rms_m else \
         f", positions {al.cross_track_rms_m:.2f} m RMS from the track line"
