@@ -414,8 +414,8 @@ def write_report(results: Sequence[LapResult] | LapResult, path: str | Path, for
     if path.exists() and not force:
         raise InputError("already exists; pass --force to replace it or choose another --out",
                          path)
-    return write_text_atomic(path, build_report(results, labels, dpi,
-                                                correlation=correlation))
+    extra = {} if correlation is None else {"correlation": correlation}
+    return write_text_atomic(path, build_report(results, labels, dpi, **extra))
 
 
 def correlation_section(corr, dpi: int = 100) -> str:
