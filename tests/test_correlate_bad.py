@@ -11,6 +11,7 @@ from __future__ import annotations
 import re
 from pathlib import Path
 
+import numpy as np
 import pytest
 from click.testing import CliRunner
 
@@ -68,3 +69,66 @@ def test_bad_log_gives_one_clear_line(name, tmp_path):
         assert bad in err[0]
         assert pattern.search(err[0]), err[0]
     assert not (tmp_path / "r.html").exists()
+
+
+# --------------------------------------------------------------------------------------------
+# Mangled logs: a reader answers with InputError or a Log, never with another exception
+# --------------------------------------------------------------------------------------------
+
+from hypothesis import HealthCheck, given, settings  # noqa: E402
+from hypothesis import strategies as st  # noqa: E402
+
+
+@pytest.fixture(scope="module")
+def good_log_lines():
+    from lapbalance import correlate as C
+    from lapbalance.car import load_car
+    from lapbalance.lap import simulate_lap
+    from lapbalance.track import load_track
+
+    track = load_track(RING)
+    lap = simulate_lap(load_car(CAR), track, assess_liftoff=False)
+    cols = C.synthetic_log(lap, rate_hz=2.0, speed_noise_kph=0.5, position_noise_m=0.5,
+                           seed=3)
+    return track, C.log_csv_text(cols).splitlines()
+
+
+_CELLS = st.sampled_from(["", "nan", "inf", "-1", "1e9", "abc", '"7,5"', "12;3", "0", "\t",
+                          '"', "1e-9"])
+
+
+@settings(max_examples=40, deadline=None,
+          suppress_health_check=[HealthCheck.too_slow, HealthCheck.function_scoped_fixture])
+@given(data=st.data())
+def test_mangled_log_gives_input_error_or_a_log(good_log_lines, tmp_path, data):
+    from lapbalance import correlate as C
+    from lapbalance.errors import InputError
+
+    track, lines = good_log_lines
+    lines = list(lines)
+    for _ in range(data.draw(st.integers(1, 4))):
+        kind = data.draw(st.sampled_from(["cell", "drop", "dup", "swap", "header"]))
+        j = data.draw(st.integers(1, len(lines) - 1))
+        if kind == "cell":
+            cells = lines[j].split(",")
+            cells[data.draw(st.integers(0, len(cells) - 1))] = data.draw(_CELLS)
+            lines[j] = ",".join(cells)
+        elif kind == "drop":
+            del lines[j]
+        elif kind == "dup":
+            lines.insert(j, lines[j])
+        elif kind == "swap" and j + 1 < len(lines):
+            lines[j], lines[j + 1] = lines[j + 1], lines[j]
+        elif kind == "header":
+            cells = lines[0].split(",")
+            cells[data.draw(st.integers(0, len(cells) - 1))] = data.draw(
+                st.sampled_from(["time", "speed", "x_m", "", "TIME_S", "speed_mps"]))
+            lines[0] = ",".join(cells)
+    p = tmp_path / "mangled.csv"
+    p.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    try:
+        log = C.load_log(p, track)
+    except InputError as e:
+        assert "\n" not in e.one_line() and str(p) in e.one_line()
+    else:
+        assert log.laps and all(np.all(np.isfinite(lap.speed_mps)) for lap in log.laps)
