@@ -1425,7 +1425,7 @@ def correlate(car: Car, track, log: Log, *, lap: int | None = None, align: str =
         elif method == "positions":
             row["distance_scale"] = align_positions(lp, model).scale
         else:
-            row["distance_scale"] = float(track.length_m / max(lp.logger_distance_m[-1], 1.0))
+            row["distance_scale"] = align_speed(lp, model).scale
         laps.append(row)
     return Correlation(log, the_lap, model, fitted, al, trace, rows, result, laps)
 
