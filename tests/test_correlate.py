@@ -104,6 +104,10 @@ def test_alignment_from_positions_and_from_speed_agree_on_the_demo_ring(car, rin
     assert np.max(np.abs((p.scale * d + p.offset_m) - (s.scale * d + s.offset_m))) < 1.0
     # Both recover the logger's distance error (it reads 1.2 % long).
     assert abs(p.scale * 1.012 - 1) < 5e-4
+    # The time delta starts at the line at 0 and ends at the lap-time difference.
+    td = corr.trace["time_delta_s"]
+    assert abs(td[0]) < 0.02
+    assert abs(td[-1] - (corr.lap.lap_time_s - corr.model.lap_time_s)) < 0.05
 
 
 def test_two_lap_log_splits_into_two_laps(ring, changed_lap, tmp_path):

@@ -974,6 +974,8 @@ def _on_grid(lap: LoggedLap, s: np.ndarray, model) -> dict[str, np.ndarray]:
     g = np.asarray(model.channels["distance_m"], float)
     L = float(model.track.length_m)
     s0, s1 = float(s[0]), float(s[-1])
+    if model.track.closed and s0 <= 0.0 and s1 >= (1.0 - LAP_END_TOL) * L:
+        s0 = 0.0  # a line-to-line lap (with a few samples beyond the line at each end)
     if model.track.closed:
         u = s0 + np.mod(g - s0, L)
     else:
