@@ -480,7 +480,7 @@ def _delta(x, base):
 
 def build_report(results: Sequence[LapResult] | LapResult, labels: Sequence[str] | None = None,
                  dpi: int = 100, generated: str | None = None, *, units: str = "metric",
-                 provenance: dict | None = None) -> str:
+                 provenance: dict | None = None, correlation=None) -> str:
     """Build the HTML report of one lap or of several variants.
 
     Parameters
@@ -499,6 +499,9 @@ def build_report(results: Sequence[LapResult] | LapResult, labels: Sequence[str]
     provenance : dict, optional
         Provenance record (:mod:`lapbalance.provenance`) shown in the "Provenance" section
         (default: built from the results). [-]
+    correlation : Correlation, optional
+        A correlation with a logged lap (:func:`lapbalance.correlate.correlate`); adds the
+        section of :func:`correlation_section`. [-]
 
     Returns
     -------
@@ -534,6 +537,8 @@ def build_report(results: Sequence[LapResult] | LapResult, labels: Sequence[str]
         nav.append('<li><a href="#comparison">Comparison</a></li>')
     for j, lab in enumerate(labels):
         nav.append(f'<li><a href="#lap-{j + 1}">{_e(lab)}</a></li>')
+    if correlation is not None:
+        nav.append('<li><a href="#correlation">Correlation with the log</a></li>')
     nav.append('<li><a href="#assumptions">Assumptions and limits</a></li>')
     nav.append('<li><a href="#provenance">Provenance</a></li>')
     nav.append("</ul></nav>")
@@ -548,6 +553,8 @@ def build_report(results: Sequence[LapResult] | LapResult, labels: Sequence[str]
             body.append(_setup_section([r], [lab]))
         body += ["<h3>Corners and lift-off check</h3>",
                  _corner_section(r, dpi, disp), "<h3>Figures</h3>", _figures(r, dpi)]
+    if correlation is not None:
+        body.append(correlation_section(correlation, dpi))
     body.append('<h2 id="assumptions">Assumptions and limits</h2>')
     body.append('<ul class="assumptions">' + "".join(f"<li>{_e(a)}</li>" for a in ASSUMPTIONS)
                 + "</ul>")
@@ -562,7 +569,8 @@ def build_report(results: Sequence[LapResult] | LapResult, labels: Sequence[str]
 
 def write_report(results: Sequence[LapResult] | LapResult, path: str | Path, force: bool = False,
                  labels: Sequence[str] | None = None, dpi: int = 100, *,
-                 units: str = "metric", provenance: dict | None = None) -> Path:
+                 units: str = "metric", provenance: dict | None = None,
+                 correlation=None) -> Path:
     """Build the report and write it atomically to ``path``.
 
     Parameters
@@ -577,6 +585,8 @@ def write_report(results: Sequence[LapResult] | LapResult, path: str | Path, for
         As :func:`build_report`. [-]
     dpi : int
         Resolution of the embedded figures. [dots per inch]
+    correlation : Correlation, optional
+        As :func:`build_report`. [-]
 
     Returns
     -------
@@ -590,4 +600,75 @@ def write_report(results: Sequence[LapResult] | LapResult, path: str | Path, for
         raise InputError("already exists; pass --force to replace it or choose another --out",
                          path)
     return write_text_atomic(path, build_report(results, labels, dpi, units=units,
-                                                provenance=provenance))
+                                                provenance=provenance, correlation=correlation))
+
+
+
+def correlation_section(corr, dpi: int = 100) -> str:
+    """HTML section of a correlation with a logged lap (self-contained fragment).
+
+    Parameters
+    ----------
+    corr : Correlation
+        From :func:`lapbalance.correlate.correlate`. [-]
+    dpi : int
+        Resolution of the embedded figure. [dots per inch]
+
+    Returns
+    -------
+    str
+        ``<h2 id="correlation">`` and its tables and figure. [-]
+    """
+    from lapbalance.plots_correlate import correlation_figure
+
+    s = corr.summary()
+    al = corr.alignment
+    parts = ['<h2 id="correlation">Correlation with the log</h2>']
+    rows = [["log", _e(Path(s["log"]).name)],
+            ["complete laps (partial left out)",
+             _e(f"{s['laps_in_log']} ({s['partial_laps_left_out']})")],
+            ["lap compared", _e(s["lap_compared"])],
+            ["logged lap time", _num(s["logged_lap_time_s"], ".3f", " s")],
+            ["model lap time", _num(s["model_lap_time_s"], ".3f", " s")],
+            ["alignment", _e(f"{al.method}: distance scale {al.scale:.5f} track m per logger "
+                             f"m, offset {al.offset_m:+.2f} m")],
+            ["speed RMS, log − model", _num(al.speed_rms_kph, ".2f", " km/h")]]
+    if s["fitted_lap_time_s"] is not None:
+        rows.append(["fitted model lap time", _num(s["fitted_lap_time_s"], ".3f", " s")])
+    parts.append(_table(["quantity", "value"], rows))
+    seg_rows, classes = [], []
+    for r in corr.segments:
+        d = r["model_minus_log_kph"]
+        cls = "pos" if r["verdict"] == "optimistic" else (
+            "neg" if r["verdict"] == "pessimistic" else "")
+        seg_rows.append([_e(r["segment"]), _num(r["at_m"], ".0f"), _num(r["model_kph"], ".1f"),
+                         _num(r["log_kph"], ".1f"), f'<span class="{cls}">{_num(d, "+.1f")}'
+                         "</span>", _e(r["verdict"]), _num(r.get("fitted_kph"), ".1f"),
+                         _num(r.get("model_ay_mps2"), ".1f"), _num(r.get("log_ay_mps2"), ".1f")])
+        classes.append([""] * 9)
+    parts.append("<h3>Corner minimum and straight top speeds</h3>")
+    parts.append(_table(["segment", "at [m]", "model [km/h]", "log [km/h]",
+                         "model − log [km/h]", "model is", "fitted [km/h]",
+                         "model peak a_y [m/s²]", "log peak a_y [m/s²]"], seg_rows,
+                        text_cols=(0, 5), cell_classes=classes))
+    parts.append('<p class="note">C = corner (minimum speed), S = straight (top speed). The '
+                 "logged value is the model's extreme plus the mean log − model difference "
+                 "over the window around it, so sample noise does not bias it; optimistic = "
+                 "the model is faster than the car there.</p>")
+    if corr.fit is not None:
+        f = corr.fit
+        frows = [[_e(r["factor"]), _num(r["value"], ".4f"), _num(r["std"], ".4f"),
+                  _e(f"{_num(r['ci95_low'], '.4f')} – {_num(r['ci95_high'], '.4f')}")]
+                 for r in f.table()]
+        parts.append("<h3>Fitted factors</h3>")
+        parts.append(_table(["factor", "value", "± 1σ", "95 % interval"], frows))
+        parts.append(f'<p class="note">Least squares on {f.n_residuals} corner minimum and '
+                     f"straight top speeds (weights corner {f.weights['corner']:g}, straight "
+                     f"{f.weights['straight']:g}); residual RMS {f.residual_rms_kph:.2f} km/h; "
+                     "confidence from s²(JᵀJ)⁻¹. Every other car value is taken as right, so "
+                     "an error elsewhere shows up as a biased factor.</p>")
+    parts.append(_img(plots.figure_png(correlation_figure(corr), dpi), "correlation with the "
+                      "log", "Speed over distance (log, model, fitted model), time delta "
+                      "log − model (rising where the model gains on the car), and model − log "
+                      "speed per corner and straight."))
+    return "\n".join(parts)

@@ -56,7 +56,7 @@ def main(debug: bool) -> None:
 from lapbalance.cli import car_cmd  # noqa: E402,F401
 
 for _mod in ("track_cmd", "lap_cmd", "demo_cmd", "tunnel_cmd", "compare_cmd", "check_cmd",
-             "report_cmd", "liftrun_cmd", "rerun_cmd"):
+             "report_cmd", "liftrun_cmd", "rerun_cmd", "correlate_cmd"):
     try:
         __import__(f"lapbalance.cli.{_mod}")
     except ModuleNotFoundError as _e:  # a command module not written yet

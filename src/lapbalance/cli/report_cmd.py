@@ -22,11 +22,16 @@ from lapbalance.cli.lap_cmd import load_inputs, track_options
 @click.option("--out", "out_file", required=True, type=click.Path(dir_okay=False),
               help="HTML file to write, e.g. report.html.")
 @click.option("--force", is_flag=True, help="Replace an existing report file.")
+@click.option("--log", "log_file", type=click.Path(dir_okay=False),
+              help="A logged run (CSV) of CAR_FILE on TRACK_FILE: adds a correlation section.")
+@click.option("--log-fit", "log_fit", default="", metavar="FACTORS",
+              help="With --log: factors to fit (grip, grip-front, grip-rear, drag, power).")
 @track_options
 @line_options
 @units_option
 def report_command(car_file, track_file, variants, overrides, out_file, force, step_m, closed,
-                   start_speed_kph, line, track_width_m, line_margin_m, units):
+                   start_speed_kph, line, track_width_m, line_margin_m, units, log_file=None,
+                   log_fit=""):
     """Run CAR_FILE (and every --variant) around TRACK_FILE; write a self-contained HTML report.
 
     --set overrides apply to every car, so variants differ only by their own files. With
@@ -45,6 +50,14 @@ def report_command(car_file, track_file, variants, overrides, out_file, force, s
                          out)
     car, track = load_inputs(car_file, track_file, overrides, step_m, closed)
     track = apply_line(track, car, line, track_width_m, line_margin_m)
+    log = None
+    if log_file:  # read (and check) the log before any lap is run
+        from lapbalance import correlate as C
+
+        fit = C.check_factors(log_fit.split(","))
+        log = C.load_log(log_file, track, track_latlon_origin=C.track_origin(track_file))
+    elif log_fit:
+        raise click.UsageError("--log-fit needs --log FILE")
     cars = [car] + [load_car(v, overrides) for v in variants]
     files = [car_file, *variants]
     labels = [c.name for c in cars]
@@ -54,9 +67,18 @@ def report_command(car_file, track_file, variants, overrides, out_file, force, s
     for j, (c, lab) in enumerate(zip(cars, labels, strict=True)):
         click.echo(f"[{j + 1}/{len(cars)}] {lab}: running the lap ...", err=True)
         results.append(simulate_lap(c, track, start_speed_kph=start_speed_kph))
+    corr = None
+    if log_file:
+        from lapbalance import correlate as C
+
+        click.echo(f"correlating {labels[0]} with {log_file} ...", err=True)
+        corr = C.correlate(car, track, log, fit=fit, model=results[0])
     click.echo("rendering figures ...", err=True)
-    record = provenance.build(cars, [track], solver=results[0].settings)
-    write_report(results, out, force=force, labels=labels, units=units, provenance=record)
+    files = [("log", log_file)] if log_file else []
+    record = provenance.build(cars, [track], files=files, solver=results[0].settings,
+                              settings={"log_fit": log_fit} if log_file else None)
+    write_report(results, out, force=force, labels=labels, units=units, provenance=record,
+                 correlation=corr)
     times = ", ".join(f"{lab} {r.lap_time_s:.3f} s" for lab, r in zip(labels, results,
                                                                        strict=True))
     click.echo(f"wrote {out} ({times})")
