@@ -69,7 +69,7 @@ def test_every_solver_command_says_it_prepares_on_a_cold_cache(cmd, monkeypatch,
     r = run(*cmd)
     assert r.exit_code in (0, 1), r.output
     assert "preparing the solver, first run only" in r.output
-    assert "[4/4] single-state checks" in r.output
+    assert "[6/6] lift-off runs in time" in r.output
 
 
 def test_warm_cache_prints_no_notice(ring_lap):

@@ -294,7 +294,8 @@ def test_cli_writes_folder_and_a_variant_every_command_reads(tmp_path):
                                "--plots", "--set", "chassis.mass_kg=1310"])
     assert res.exit_code == 0, res.output
     assert "aligned by positions" in res.output and "grip" in res.output
-    assert sorted(p.name for p in out.iterdir()) == ["correlation.png", "segments.csv",
+    assert sorted(p.name for p in out.iterdir()) == ["correlation.png", "provenance.json",
+                                                      "segments.csv",
                                                       "summary.json", "trace.csv"]
     text = variant.read_text(encoding="utf-8")
     assert "base = " in text and "[tyres.front]" in text
@@ -320,7 +321,9 @@ def test_report_gets_a_correlation_section(tmp_path):
     assert res.exit_code == 0, res.output
     html = out.read_text(encoding="utf-8")
     assert '<h2 id="correlation">' in html and 'href="#correlation"' in html
-    assert html.count("data:image/png;base64") == 8  # seven lap figures + the correlation
+    # the lap figures, the lift-off response of the tightest corner, and the correlation
+    from lapbalance.plots import LAP_FIGURES
+    assert html.count("data:image/png;base64") == len(LAP_FIGURES) + 2
 
 
 def test_json_summary_is_plain_json(tmp_path):

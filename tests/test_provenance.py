@@ -13,6 +13,7 @@ import pytest
 from click.testing import CliRunner
 
 from lapbalance import provenance
+from lapbalance.rerun import rerun
 from lapbalance.car import load_car
 from lapbalance.cli import main
 from lapbalance.errors import InputError
@@ -69,7 +70,7 @@ def test_rerun_from_summary_alone_gives_the_same_lap_time(inputs, tmp_path, monk
     assert prov["run_utc"].endswith("Z") and prov["lapbalance_version"]
     # rerun from another working folder, with nothing but the summary
     monkeypatch.chdir(tmp_path)
-    res, check = provenance.rerun(out / "summary.json")
+    res, check = rerun(out / "summary.json")
     assert abs(res.lap_time_s - summary["lap_time_s"]) <= 1e-9
     assert abs(check["difference_s"]) <= 1e-9
     # the CLI form says so and exits 0
@@ -85,7 +86,7 @@ def test_rerun_open_run_with_start_speed(inputs, tmp_path):
           "--start-speed-kph", "42.5", "--out", out])
     summary = json.loads((out / "summary.json").read_text())
     assert summary["provenance"]["solver"]["start_speed_kph"] == 42.5
-    res, check = provenance.rerun(out / "summary.json")
+    res, check = rerun(out / "summary.json")
     assert abs(check["difference_s"]) <= 1e-9
     assert res.time_label == "run time"
 
@@ -97,8 +98,8 @@ def test_rerun_refuses_changed_inputs_and_finds_moved_ones(inputs, tmp_path):
     moved = tmp_path / "moved"
     shutil.move(str(cars), str(moved))
     with pytest.raises(InputError, match="not found"):
-        provenance.rerun(out / "summary.json")
-    res, check = provenance.rerun(out / "summary.json", search=[moved])
+        rerun(out / "summary.json")
+    res, check = rerun(out / "summary.json", search=[moved])
     assert abs(check["difference_s"]) <= 1e-9
     # one changed byte in the track: refused, naming the file and the hashes
     p = tracks / "veldmoor_ring.csv"

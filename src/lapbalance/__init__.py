@@ -7,7 +7,7 @@ SI units throughout (m, s, kg, N, rad, W, Pa).
 
 from __future__ import annotations
 
-__version__ = "0.1.0"
+from lapbalance.version import __version__  # noqa: E402
 
 from lapbalance.car import Car, load_car  # noqa: E402
 from lapbalance.errors import InputError, PhysicsWarning  # noqa: E402

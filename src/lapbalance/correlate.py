@@ -1637,19 +1637,28 @@ def log_csv_text(columns: dict[str, np.ndarray], comments: tuple[str, ...] = ())
 
 
 def write_folder(corr: Correlation, out_dir, *, force: bool = False,
-                 extra: dict[str, bytes] | None = None) -> Path:
+                 extra: dict[str, bytes] | None = None, provenance: dict | None = None) -> Path:
     """Write ``trace.csv``, ``segments.csv``, ``summary.json`` (and ``extra`` files) into
-    ``out_dir`` atomically (staged folder; an occupied folder needs ``force``)."""
+    ``out_dir`` atomically (staged folder; an occupied folder needs ``force``). With a
+    ``provenance`` record (:mod:`lapbalance.provenance`) the summary carries it under
+    ``provenance`` and ``provenance.json`` lists every file written with its SHA-256."""
     import json
 
     from lapbalance.outputs import columns_csv_text, staged_dir
 
+    summary = corr.summary()
+    if provenance is not None:
+        summary = {**summary, "provenance": provenance}
     with staged_dir(out_dir, force) as tmp:
         (tmp / "trace.csv").write_text(columns_csv_text(trace_columns(corr), "{:.6g}"),
                                        encoding="utf-8")
         (tmp / "segments.csv").write_text(segments_csv_text(corr), encoding="utf-8")
-        (tmp / "summary.json").write_text(json.dumps(corr.summary(), indent=2,
+        (tmp / "summary.json").write_text(json.dumps(summary, indent=2,
                                                      allow_nan=False) + "\n", encoding="utf-8")
         for name, data in (extra or {}).items():
             (tmp / name).write_bytes(data)
+        if provenance is not None:
+            from lapbalance.export import write_provenance
+
+            write_provenance(tmp, provenance)
     return Path(out_dir)

@@ -21,7 +21,11 @@ from collections.abc import Callable
 #: are compiled with them.
 ENTRY_KERNELS = ("corner_limits", "speed_passes", "final_pass", "control_for_ax",
                  "max_accel_control", "max_decel_control", "state_control", "corner_limit",
-                 "engine_force", "state")
+                 "engine_force", "state", "liftoff_margins", "liftoff_response")
+#: Entry-point kernels of the single-track lift-off runs (in
+#: :mod:`lapbalance.transient_kernels`); compiled in the same first run, since every command
+#: that runs a lap also runs lift-off in time for a car with a ``[transient]`` section.
+TRANSIENT_KERNELS = ("integrate", "steady_turn")
 
 #: What the user is told (one wording for every command).
 MESSAGE = "preparing the solver, first run only (about 30 s; later runs start at once)"
@@ -42,16 +46,20 @@ _TINY_CAR = {
     "suspension": {"roll_stiffness_front_share": 0.55, "roll_centre_height_front_m": 0.05,
                    "roll_centre_height_rear_m": 0.08},
     "air": {"density_kg_m3": 1.2},
+    "transient": {"yaw_inertia_kgm2": 1800.0, "cornering_stiffness_front_n_per_rad": 90000.0,
+                  "cornering_stiffness_rear_n_per_rad": 110000.0, "relaxation_length_m": 0.4,
+                  "steering_ratio": 14.0},
 }
 
 
 def cold_kernels() -> list[str]:
     """Entry-point kernels without a current on-disk cache entry (empty list: warm)."""
     from lapbalance import kernels as _k
+    from lapbalance import transient_kernels as _tk
 
     cold = []
-    for name in ENTRY_KERNELS:
-        d = getattr(_k, name, None)
+    for mod, name in [(_k, n) for n in ENTRY_KERNELS] + [(_tk, n) for n in TRANSIENT_KERNELS]:
+        d = getattr(mod, name, None)
         if d is None or not hasattr(d, "signatures"):  # absent, or NUMBA_DISABLE_JIT=1
             continue
         if d.signatures:  # already compiled (or loaded) in this process
@@ -99,13 +107,26 @@ def _stages():
         lap._final_pass_kernel(box["v"], kappa, grade, bank, 2.0, math.nan, vcap, p, gears,
                                trpm, tnm, mx, my, mt, lap.FORCE_TOL, lap.LIFTOFF_AY_THRESHOLD)
 
+    def margins():
+        lap._liftoff_margins_kernel(kappa, grade, bank, box["vlim"], np.ones(n), p, gears, mx,
+                                    my, mt, lap.MARGIN_TOL, 1)
+        from lapbalance.liftoff import response_curve
+
+        response_curve(car, 60.0)
+
     def points():
         lap.steady_state(car, 30.0, 0.01)
         lap.limits_at(car, 30.0, 0.01)
         lap.evaluate_forces(car, 30.0, 0.01, 500.0, 0.0)
 
+    def in_time():
+        from lapbalance import transient
+
+        transient.lift_off_run(car, 60.0, 6.0)
+
     return [("corner speed limits", limits), ("acceleration and braking passes", passes),
-            ("force balance and lift-off check", final), ("single-state checks", points)]
+            ("force balance and lift-off check", final), ("lift-off margins", margins),
+            ("single-state checks", points), ("lift-off runs in time", in_time)]
 
 
 def prepare(stream=None, show: bool = True) -> float:

@@ -25,7 +25,13 @@ from lapbalance.kernels import final_pass as _final_pass_kernel
 from lapbalance.kernels import liftoff_margins as _liftoff_margins_kernel
 from lapbalance.kernels import speed_passes as _speed_passes_kernel
 from lapbalance.liftoff import corner_mask as _corner_mask
-from lapbalance.params import car_parameters, speed_cap  # noqa: F401  (public here too)
+from lapbalance.params import (  # noqa: F401  (public here too)
+    FORCE_TOL,
+    MARGIN_TOL,
+    SPEED_TOL,
+    car_parameters,
+    speed_cap,
+)
 from lapbalance.units import G0
 
 #: Names of the ``limit`` channel codes.
@@ -42,13 +48,6 @@ LIMIT_NAMES = {
 #: power-off-in-a-turn runs from a steady turn at about 4 m/s² (ISO 9816:2018).
 LIFTOFF_AY_THRESHOLD = 4.0
 
-#: Speed tolerance of the corner-limit search [m/s] and force tolerance of the
-#: longitudinal searches [N] (docs/method.md, the solver: stop at a tolerance that matters).
-SPEED_TOL = 1e-3
-FORCE_TOL = 0.5
-#: Speed tolerance of the lift-off margin search [m/s] (the search also stops once the rear
-#: usage after the lift is within 1e-5 of 1, which pins the margin to ~1e-5).
-MARGIN_TOL = 5e-4
 
 # Unit and meaning of every channel (name -> (unit, description)); DEVELOPERS.md glossary.
 CHANNELS: dict[str, tuple[str, str]] = {
@@ -173,9 +172,27 @@ class LapResult:
                 f"corners={len(self.corners)})")
 
     def _repr_html_(self) -> str:
-        from lapbalance.report import summary_table_html
+        """The summary as an HTML table (Jupyter). Built here rather than by
+        :mod:`lapbalance.report`, which imports this module."""
+        import html
 
-        return summary_table_html(self)
+        s = self.summary
+        bal = s["aero_balance_front_cg"]
+        low = s.get("liftoff_margin_min")
+        rows = [(self.time_label, f"{s['lap_time_s']:.3f} s"),
+                ("length", f"{s['length_m']:.0f} m ({'closed lap' if s['closed'] else 'open run'})"),
+                ("top / min / mean speed", f"{s['top_speed_kph']:.1f} / {s['min_speed_kph']:.1f}"
+                 f" / {s['mean_speed_kph']:.1f} km/h"),
+                ("aero balance, front share (CG convention)",
+                 "net lift" if s.get("aero_net_lift") or bal is None else f"{bal * 100:.1f} %"),
+                ("lift-off verdicts", ", ".join(f"{n} {v}" for v, n in
+                                                 s.get("liftoff_verdicts", {}).items() if n)
+                 or "no corners"),
+                ("smallest lift-off margin", "–" if low is None else f"{low:.3f}")]
+        body = "".join(f"<tr><th style='text-align:left'>{html.escape(k)}</th>"
+                       f"<td>{html.escape(v)}</td></tr>" for k, v in rows)
+        return (f"<div><strong>{html.escape(str(s['car']))}</strong> on "
+                f"{html.escape(str(s['track']) or 'track')}<table>{body}</table></div>")
 
     @property
     def time_label(self) -> str:
@@ -389,7 +406,10 @@ def simulate_lap(car: Car, track, *, start_speed_kph: float | None = None,
                        {"liftoff_ay_threshold_mps2": liftoff_ay_threshold,
                         "step_m": ds, "speed_cap_mps": vcap,
                         "start_speed_kph": start_speed_kph,
-                        "line": getattr(track, "line", "centreline")})
+                        "line": getattr(track, "line", "centreline"),
+                        **({"line_car_width_m": float(track.car_width_m),
+                            "line_margin_m": float(track.margin_m)}
+                           if getattr(track, "line", "centreline") != "centreline" else {})})
     if assess_liftoff:
         masks = {cr.id: _corner_mask(track, cr) for cr in getattr(track, "corners", ()) or ()}
         result = liftoff.assess(result, masks=masks)

@@ -16,6 +16,15 @@ from lapbalance import kernels as _k
 from lapbalance.car import Car
 
 
+#: Speed tolerance of the corner-limit search [m/s] and force tolerance of the
+#: longitudinal searches [N] (docs/method.md, the solver: stop at a tolerance that matters).
+SPEED_TOL = 1e-3
+FORCE_TOL = 0.5
+#: Speed tolerance of the lift-off margin search [m/s] (the search also stops once the rear
+#: usage after the lift is within 1e-5 of 1, which pins the margin to ~1e-5).
+MARGIN_TOL = 5e-4
+
+
 def car_parameters(car: Car) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray,
                                        np.ndarray, np.ndarray, np.ndarray]:
     """Flatten a car into the kernel arrays (p, gears, torque rpm, torque Nm, map x, y, t)."""

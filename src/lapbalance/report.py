@@ -12,22 +12,26 @@ from __future__ import annotations
 import base64
 import datetime as _dt
 import html
+import math
 from collections.abc import Sequence
 from pathlib import Path
 
 from matplotlib.colors import to_rgb
 
-from lapbalance import __version__, plots
+from lapbalance import plots
 from lapbalance.errors import InputError
 from lapbalance.lap import CAUTION, LapResult
 from lapbalance.liftoff import (FLAG_VERDICTS, VERDICTS, corner_response, ranked,
                                 smallest_margin, verdict_counts)
 from lapbalance.outputs import write_text_atomic
+from lapbalance.version import __version__
 
 #: Modelling assumptions and limits listed in every report.
 ASSUMPTIONS = (
     "Quasi-static: the car is a point mass on two axles, in equilibrium at every track step; "
-    "no transient yaw, roll or pitch dynamics and no tyre relaxation.",
+    "no transient yaw, roll or pitch dynamics and no tyre relaxation (except in the lift-off "
+    "runs in time, a single-track model with yaw inertia and tyre lag but no roll or pitch "
+    "dynamics).",
     "Lateral load transfer is the steady-state value from roll-centre heights and the "
     "roll-stiffness split.",
     "Grip is a friction ellipse per axle; each tyre's peak friction falls with load.",
@@ -337,7 +341,75 @@ def _corner_section(result: LapResult, dpi: int = 100, disp=None) -> str:
               "(&gt; 0 oversteer-leaning); worst shift = largest change of the balance index "
               "on lift-off at the lap's own state.</p>")
     return (table + "\n" + legend + "\n" + _verdict_legend() + "\n" + _response(result, dpi)
-            + "\n" + _worst_steps(result, d))
+            + "\n" + _worst_steps(result, d) + "\n" + _runs_section(result, d))
+
+
+_RUNS_NOTE = ("yaw ratio = yaw rate 1 s after the lift over that of a car staying on the "
+              "radius at its actual speed (&gt; 1 tucks in); tail-out = largest sideslip change "
+              "within 3 s (&lt; 0: tail out); spin from = lowest initial lateral acceleration, "
+              "as a share of the single-track model's steady limit at that radius, from which "
+              "a lift spins the car (ISO 9816 stepping from 4 m/s² by 0.5 m/s²; none = no spin "
+              "up to the limit; higher = more forgiving). Single-track model with yaw inertia "
+              "and tyre lag, steering wheel held, engine overrun in the lap's gear "
+              "(docs/method.md, transient).")
+
+
+def _runs_section(result: LapResult, d) -> str:
+    """Lift-off runs in time at the lap's flagged corners (car files with [transient])."""
+    if result.car.transient is None:
+        return ""
+    from lapbalance.transient import lap_corner_runs
+
+    runs = lap_corner_runs(result)
+    if not runs:
+        return ""
+    rows = []
+    for r in runs:
+        ok = r["status"] == "ok"
+        rows.append([_e(r["corner"]), _e(r.get("liftoff_verdict") or ""),
+                     _num(d.length(r["radius_m"]), ".0f"),
+                     _num(d.speed(math.sqrt(r["ay0_mps2"] * r["radius_m"])), ".0f")
+                     + (" *" if r["at_limit"] else ""),
+                     _num(r["yaw_rate_ratio"] if ok else None, ".2f"),
+                     _num(r["sideslip_peak_change_deg"] if ok else None, "+.1f"),
+                     _e(("spins" if r["spin"] else "holds") if ok else r["status"]),
+                     "none" if r["spin_onset_ay_mps2"] is None
+                     else _num(r["spin_onset_fraction"], ".2f")])
+    return ("<h3>Lift-off in time at the flagged corners</h3>\n"
+            + _table(["corner", "verdict", f"radius [{d.unit('length')}]",
+                      f"speed [{d.unit('speed')}]", "yaw ratio [-]", "tail-out [deg]",
+                      "after 3 s", "spin from [-]"], rows, text_cols=(0, 1, 6))
+            + f'\n<p class="note">{_RUNS_NOTE} * = the lap\'s speed is above the model\'s '
+            "steady limit, so the run starts at that limit. When no corner is flagged, the "
+            "tightest corner is run.</p>")
+
+
+def _compare_runs_section(results: Sequence[LapResult], labels: Sequence[str], d) -> str:
+    """Every car's lift-off run in time at the base car's corners."""
+    if not any(r.car.transient is not None for r in results):
+        return ""
+    from lapbalance.transient import compare_corner_runs
+
+    runs = compare_corner_runs(results, labels)
+    if not runs:
+        return ""
+    rows = []
+    for r in runs:
+        row = [_e(r["corner"]), _num(d.length(r["radius_m"]), ".0f"),
+               _num(d.speed_kph(r["speed_kph"]), ".0f")]
+        for lab in labels:
+            c = r["cars"].get(lab)
+            row.append("–" if c is None or c["status"] != "ok" else
+                       _num(c["yaw_rate_ratio"], ".2f") + (" spins" if c["spin"] else ""))
+        for lab in labels:
+            c = r["cars"].get(lab)
+            row.append("–" if c is None else ("none" if c["spin_onset_ay_mps2"] is None
+                                              else _num(c["spin_onset_fraction"], ".2f")))
+        rows.append(row)
+    head = (["corner", f"radius [{d.unit('length')}]", f"speed [{d.unit('speed')}]"]
+            + [f"{lab} yaw ratio" for lab in labels] + [f"{lab} spin from" for lab in labels])
+    return ("<h3>Lift-off in time, every car at the base's corners</h3>\n"
+            + _table(head, rows) + f'\n<p class="note">{_RUNS_NOTE}</p>')
 
 
 def _response(result: LapResult, dpi: int) -> str:
@@ -463,6 +535,7 @@ def _comparison_section(results: Sequence[LapResult], labels: Sequence[str], dpi
         vcols = tuple(range(1 + 3 * len(labels) - 1, 1 + 4 * len(labels) - 1))
         parts += ["<h3>Corners</h3>", _table(head, crow, text_cols=(0,) + vcols,
                                              cell_classes=ccls)]
+    parts.append(_compare_runs_section(results, labels, d))
     parts.append(_img(plots.figure_png(plots.overlay_figure(results, labels), dpi),
                       "speed and balance overlay", "Speed and balance index of every "
                       "variant over distance."))

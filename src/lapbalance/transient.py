@@ -849,3 +849,137 @@ def sweep_summary(car: Car, sweeps, ramp_s: float = RAMP_S) -> dict:
                     "engineers and track testing, within the rules of the sanctioning body "
                     "and local law."),
     }
+
+
+# ------------------------------------------------------------------------------------------------
+# Lift-off runs at a lap's corners (lap corner table, compare, report)
+# ------------------------------------------------------------------------------------------------
+
+
+def spin_onset(car: Car, radius: float, model: Model | None = None, *,
+               ay_step: float = AY_STEP) -> dict:
+    """The lowest initial lateral acceleration from which a lift spins the car at ``radius``.
+
+    Steps a_y0 from :data:`AY_START` by ``ay_step`` [m/s²] (ISO 9816 stepping) up to the
+    model's steady limit and stops at the first run whose tail-out passes
+    :data:`SPIN_BOUND_DEG`; the overrun is that of the gear the lap solver uses at each speed.
+
+    Returns
+    -------
+    dict
+        ``ay_limit_mps2`` (the model's steady limit), ``spin_onset_ay_mps2`` (None: no run up
+        to the limit spins), ``spin_onset_fraction`` (onset over the limit [-]; 1.0 when no run
+        spins — the transient counterpart of the lift-off margin) and ``runs`` (how many runs
+        it took).
+    """
+    model = model_parameters(car) if model is None else model
+    lim = steady_limit(car, radius, model)
+    guess, onset, n = None, None, 0
+    for ay in sweep_levels(lim, AY_START, ay_step):
+        s = _steady(model, math.sqrt(ay * radius), radius, guess, ay)
+        if not s.ok:
+            continue
+        guess = s.x
+        n += 1
+        if _run(model, s, RAMP_S, DURATION_S, STEP_S, gear_rule="lap").figures["spin"]:
+            onset = ay
+            break
+    return {"ay_limit_mps2": lim, "spin_onset_ay_mps2": onset,
+            "spin_onset_fraction": 1.0 if onset is None else onset / lim, "runs": n}
+
+
+def corners_to_run(result) -> list[dict]:
+    """The corner rows of a lap whose lift-off is run in time: every flagged corner
+    (``lift-critical``, ``lift-marginal``), tightest first; when none is flagged, the one
+    corner with the smallest lift-off margin, so that a package comparison always has a
+    common point. Corners the lift-off check did not reach are left out."""
+    from lapbalance.liftoff import flagged, ranked
+
+    rows = flagged(result.corners)
+    if not rows:
+        rows = [c for c in ranked(result.corners) if c.get("liftoff_margin") is not None][:1]
+    return rows
+
+
+def _corner_rows(car: Car, rows) -> list[dict]:
+    model = model_parameters(car)
+    runs = corner_runs(car, rows)
+    onsets: dict[float, dict] = {}
+    out = []
+    for c, r in zip(rows, runs, strict=True):
+        radius = float(c["min_radius_m"])
+        if radius not in onsets:
+            onsets[radius] = spin_onset(car, radius, model)
+        o = onsets[radius]
+        out.append({"status": r["status"], "at_limit": r["at_limit"], "ay0_mps2": r["ay0_mps2"],
+                    **{k: r.get(k) for k in FIGURES},
+                    "ay_limit_mps2": o["ay_limit_mps2"],
+                    "spin_onset_ay_mps2": o["spin_onset_ay_mps2"],
+                    "spin_onset_fraction": o["spin_onset_fraction"]})
+    return out
+
+
+def lap_corner_runs(result, corners=None) -> list[dict]:
+    """Lift-off runs in time at a lap's corners.
+
+    At each corner's smallest radius [m] and minimum speed from the lap, one lift-off run
+    (:func:`corner_runs`; a speed above the single-track model's steady limit starts at that
+    limit, ``at_limit``), and the ISO 9816 stepping at the same radius for the spin onset
+    (:func:`spin_onset`). The run at the lap's speed says what the car does after a lift at
+    the limit (most cars spin there); the spin onset ranks cars and corners: how far below
+    the limit a lift first spins the car.
+
+    Parameters
+    ----------
+    result : LapResult
+        A simulated lap whose car has a ``[transient]`` section (else ``[]``).
+    corners : list of dict, optional
+        Corner rows to run (default :func:`corners_to_run`).
+
+    Returns
+    -------
+    list of dict
+        Per corner: ``corner`` (its id), ``liftoff_verdict``, ``liftoff_margin``,
+        ``radius_m``, ``speed_kph``, the run's ``status``, ``at_limit`` and :data:`FIGURES`,
+        and ``ay_limit_mps2``, ``spin_onset_ay_mps2``, ``spin_onset_fraction``.
+    """
+    if result.car.transient is None:
+        return []
+    rows = corners_to_run(result) if corners is None else list(corners)
+    return [{"corner": c["id"], "liftoff_verdict": c.get("liftoff_verdict"),
+             "liftoff_margin": c.get("liftoff_margin"),
+             "radius_m": float(c["min_radius_m"]), "speed_kph": float(c["min_speed_kph"]), **r}
+            for c, r in zip(rows, _corner_rows(result.car, rows), strict=True)]
+
+
+def compare_corner_runs(laps, labels) -> list[dict]:
+    """The same lift-off runs for every car of a comparison, at the base car's corners.
+
+    Every car is run at the base lap's smallest radius and minimum speed of each corner of
+    :func:`corners_to_run` (the base's), so the cars meet one condition; a car without a
+    ``[transient]`` section gets None.
+
+    Parameters
+    ----------
+    laps : sequence of LapResult
+        One lap per car on one track, base first.
+    labels : sequence of str
+        The cars' labels.
+
+    Returns
+    -------
+    list of dict
+        Per corner: ``corner``, ``radius_m``, ``speed_kph`` and ``cars``: label -> the
+        figures of :func:`lap_corner_runs` (without the corner's own keys) or None.
+    """
+    rows = corners_to_run(laps[0])
+    if not rows:
+        return []
+    out = [{"corner": c["id"], "radius_m": float(c["min_radius_m"]),
+            "speed_kph": float(c["min_speed_kph"]), "cars": {}} for c in rows]
+    for lap, lab in zip(laps, labels, strict=True):
+        runs = (_corner_rows(lap.car, rows) if lap.car.transient is not None
+                else [None] * len(rows))
+        for o, r in zip(out, runs, strict=True):
+            o["cars"][lab] = r
+    return out

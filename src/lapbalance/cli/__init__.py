@@ -12,7 +12,7 @@ import warnings
 
 import click
 
-from lapbalance import __version__
+from lapbalance.version import __version__
 from lapbalance.errors import InputError, PhysicsWarning
 
 

@@ -163,6 +163,39 @@ def format_compare(result, track: str, units: str = "metric") -> str:
     return "\n".join(lines)
 
 
+def format_compare_runs(runs, labels, units: str = "metric") -> str:
+    """Text table of the lift-off runs in time of every car at the base car's corners
+    (:func:`lapbalance.transient.compare_corner_runs`)."""
+    from lapbalance.units import Display
+
+    d = Display(units)
+    if not runs:
+        return "lift-off in time: no corner to run"
+    rows = []
+    for r in runs:
+        row = [r["corner"], f"{d.length(r['radius_m']):.0f}", f"{d.speed_kph(r['speed_kph']):.0f}"]
+        for lab in labels:
+            c = r["cars"].get(lab)
+            row.append("" if c is None or c["status"] != "ok" else f"{c['yaw_rate_ratio']:.2f}"
+                       + (" SPIN" if c["spin"] else ""))
+        for lab in labels:
+            c = r["cars"].get(lab)
+            row.append("" if c is None else ("none" if c["spin_onset_ay_mps2"] is None
+                                             else f"{c['spin_onset_fraction']:.2f}"))
+        rows.append(row)
+    head = (["corner", f"radius {d.unit('length')}", d.unit("speed")]
+            + [f"yaw {j}" for j in range(len(labels))]
+            + [f"spin from {j}" for j in range(len(labels))])
+    return "\n".join([
+        "lift-off in time at the base car's flagged corners (or its tightest), every car at "
+        "the base's radius and speed:", table(rows, head),
+        "yaw j = car j's yaw-rate ratio 1 s after the lift (> 1 tucks in; SPIN = tail-out past "
+        "the spin bound within 3 s); spin from j = lowest initial a_y, as a share of car j's "
+        "steady limit at that radius, from which a lift spins it (higher = more forgiving; "
+        "none = no spin up to the limit); cars: "
+        + "; ".join(f"{j}: {lab}" for j, lab in enumerate(labels))])
+
+
 def _csv_rows(rows, columns):
     from lapbalance.outputs import csv_text
 
@@ -296,9 +329,12 @@ def compare_figures_png(result, i: int, key: str) -> dict[str, bytes]:
 @track_options
 @units_option
 @line_options
+@click.option("--in-time/--no-in-time", "in_time", default=True, show_default=True,
+              help="For car files with a [transient] section: also run the lift-off in time "
+                   "(single-track model) for every car at the base car's flagged corners.")
 def compare_command(base_file, variant_files, track_files, set_variants, out_dir, plots,
                     plot_format, force, as_json, step_m, closed, start_speed_kph, units, line,
-                    track_width_m, line_margin_m):
+                    track_width_m, line_margin_m, in_time):
     """Run BASE_FILE and each VARIANT_FILE (car files, e.g. with base = "...") over every
     --track; print lap times, deltas, aero balance, lift-off margins, per-corner time won or
     lost, a setup table and what each variant changes from the base.
@@ -354,12 +390,22 @@ def compare_command(base_file, variant_files, track_files, set_variants, out_dir
                         written.append(name)
             write_provenance(tmp, record)
             written.append(provenance.SIDECAR)
+    runs = {}
+    if in_time and any(c.transient is not None for c in cars):
+        from lapbalance.transient import compare_corner_runs
+
+        runs = {key: compare_corner_runs(result.laps[i], result.labels)
+                for i, key in enumerate(result.tracks)}
     if as_json:
         echo_json({**result.to_json(),
                    "track_names": [_track_name(result, k) for k in result.tracks],
+                   **({"liftoff_runs": runs} if runs else {}),
                    "provenance": record})
         return
-    click.echo("\n\n".join(format_compare(result, key, units) for key in result.tracks))
+    click.echo("\n\n".join(format_compare(result, key, units)
+                            + (("\n\n" + format_compare_runs(runs[key], result.labels, units))
+                               if key in runs else "")
+                            for key in result.tracks))
     click.echo("")
     click.echo(format_setup(result))
     if out_dir:

@@ -134,10 +134,20 @@ def correlate_command(car_file, track_file, log_file, overrides, fit, lap, align
         check_output_dir(out_dir, force)
     elif plots:
         raise click.UsageError("--plots needs --out DIR")
-    car, track = load_inputs(car_file, track_file, overrides, step_m, None)
+    car, track = load_inputs(car_file, track_file, overrides, step_m, None, prepare=False)
     log = C.load_log(log_file, track, track_latlon_origin=C.track_origin(track_file))
+    from lapbalance.cli.common import prepare_solver
+
+    prepare_solver()  # after the log is read and checked: a bad log gets its one line alone
     corr = C.correlate(car, track, log, lap=lap, align=align, fit=factors,
                        corner_weight=corner_weight, straight_weight=straight_weight)
+    from lapbalance import provenance
+
+    record = provenance.build([car], [track], files=[("log", log_file)],
+                              solver=corr.model.settings if corr.model is not None else None,
+                              settings={"fit": list(factors), "align": align, "lap": lap,
+                                        "corner_weight": corner_weight,
+                                        "straight_weight": straight_weight})
     if out_dir:
         extra = {}
         if plots:
@@ -145,7 +155,7 @@ def correlate_command(car_file, track_file, log_file, overrides, fit, lap, align
             from lapbalance.plots_correlate import correlation_figure
 
             extra["correlation.png"] = figure_png(correlation_figure(corr))
-        C.write_folder(corr, out_dir, force=force, extra=extra)
+        C.write_folder(corr, out_dir, force=force, extra=extra, provenance=record)
     if variant_file:
         from lapbalance.car import _parse_override
 
@@ -158,11 +168,11 @@ def correlate_command(car_file, track_file, log_file, overrides, fit, lap, align
         write_text_atomic(variant_file, C.variant_text(corr.fit, car_file, variant_file,
                                                        note=note, extra_overrides=sets))
     if as_json:
-        echo_json(corr.summary())
+        echo_json({**corr.summary(), "provenance": record})
         return
     click.echo(format_correlation(corr))
     if out_dir:
-        click.echo(f"\nwrote {out_dir}/trace.csv, segments.csv, summary.json"
+        click.echo(f"\nwrote {out_dir}/trace.csv, segments.csv, summary.json, provenance.json"
                    + (", correlation.png" if plots else ""))
     if variant_file:
         click.echo(f"wrote {variant_file} (fitted variant; base = {car_file})")

@@ -171,6 +171,53 @@ def lap_json(result, files=()) -> dict:
     return out
 
 
+#: Columns of ``liftoff_runs.csv`` and the ``--json`` key ``liftoff_runs``.
+RUN_COLUMNS = ("corner", "liftoff_verdict", "liftoff_margin", "radius_m", "speed_kph",
+               "ay0_mps2", "at_limit", "status", "yaw_rate_ratio", "sideslip_peak_change_deg",
+               "path_radius_ratio", "lateral_deviation_m", "spin", "ay_limit_mps2",
+               "spin_onset_ay_mps2", "spin_onset_fraction")
+
+
+def format_corner_runs(runs, units: str = "metric") -> str:
+    """Text table of the lift-off runs in time at a lap's corners
+    (:func:`lapbalance.transient.lap_corner_runs`)."""
+    from lapbalance.units import Display
+
+    d = Display(units)
+    su, lu = d.unit("speed"), d.unit("length")
+    rows = []
+    for r in runs:
+        ok = r["status"] == "ok"
+        onset = r["spin_onset_fraction"]
+        rows.append([r["corner"], r.get("liftoff_verdict") or "",
+                     f"{d.length(r['radius_m']):.0f}",
+                     f"{d.speed_kph(r['ay0_mps2'] ** 0.5 * r['radius_m'] ** 0.5 * 3.6):.0f}"
+                     + (" *" if r["at_limit"] else ""),
+                     _num(r["yaw_rate_ratio"] if ok else None, ".2f"),
+                     _num(r["sideslip_peak_change_deg"] if ok else None, "+.1f"),
+                     ("SPIN" if r["spin"] else "holds") if ok else r["status"],
+                     "none" if r["spin_onset_ay_mps2"] is None else f"{onset:.2f}"])
+    lines = ["lift-off in time (single-track model, steering held, engine overrun in the "
+             "lap's gear)" + ("" if runs else ": no corner to run"),
+             table(rows, ["corner", "verdict", f"radius {lu}", su, "yaw ratio",
+                          "tail-out deg", "at 3 s", "spin from"]) if rows else "",
+             "yaw ratio = yaw rate 1 s after the lift over that of a car staying on the "
+             "radius (> 1 tucks in); tail-out = largest sideslip change within 3 s (< 0 tail "
+             "out); spin from = lowest initial a_y, as a share of the model's steady limit at "
+             "that radius, from which a lift spins the car (ISO 9816 stepping; none = no "
+             "spin up to the limit); * = the lap's speed is above the single-track model's "
+             "steady limit, so the run starts at that limit"]
+    return "\n".join(x for x in lines if x)
+
+
+def runs_csv_text(runs) -> str:
+    """``liftoff_runs.csv``: one row per corner run (:data:`RUN_COLUMNS`)."""
+    from lapbalance.outputs import csv_text
+
+    return csv_text(RUN_COLUMNS, [["" if r.get(k) is None else r.get(k) for k in RUN_COLUMNS]
+                                  for r in runs])
+
+
 def _line_note(track) -> str:
     """One line on the driving line a lap ran on ('' for the track file's own line)."""
     if getattr(track, "line", "centreline") == "centreline":
@@ -197,6 +244,10 @@ def _num(x, fmt):
 @track_options
 @line_options
 @click.option("--liftoff-only", is_flag=True, help="Print only the lift-off check.")
+@click.option("--in-time/--no-in-time", "in_time", default=True, show_default=True,
+              help="For a car file with a [transient] section: also run the lift-off in time "
+                   "(single-track model) at the flagged corners, or at the tightest corner "
+                   "when none is flagged.")
 @click.option("--plots", is_flag=True, help="Also write the figures into --out.")
 @plot_format_option
 @click.option("--map-channel", "map_channel", default=None, metavar="CHANNEL",
@@ -204,8 +255,8 @@ def _num(x, fmt):
                    "usage_rear; default: the balance index where the car corners).")
 @units_option
 def lap_command(car_file, track_file, out_dir, overrides, as_json, force, step_m, closed,
-                start_speed_kph, line, track_width_m, line_margin_m, liftoff_only, plots,
-                plot_format, map_channel, units):
+                start_speed_kph, line, track_width_m, line_margin_m, liftoff_only, in_time,
+                plots, plot_format, map_channel, units):
     """Run CAR_FILE around TRACK_FILE; print lap time, sectors, corners and lift-off flags.
 
     With --out, summary.json records what was run (inputs with SHA-256, overrides, the
@@ -228,7 +279,14 @@ def lap_command(car_file, track_file, out_dir, overrides, as_json, force, step_m
     car, track = load_inputs(car_file, track_file, overrides, step_m, closed)
     track = apply_line(track, car, line, track_width_m, line_margin_m)
     result = simulate_lap(car, track, start_speed_kph=start_speed_kph)
+    runs = None
+    if in_time and car.transient is not None:
+        from lapbalance.transient import lap_corner_runs
+
+        runs = lap_corner_runs(result)
     extra = {}
+    if runs:
+        extra["liftoff_runs.csv"] = runs_csv_text(runs).encode("utf-8")
     if out_dir:
         from lapbalance.liftoff import corner_response
 
@@ -244,12 +302,19 @@ def lap_command(car_file, track_file, out_dir, overrides, as_json, force, step_m
                 extra[f"liftoff_response.{plot_format}"] = _plots.figure_bytes(fig, plot_format)
         write_lap_folder(result, out_dir, force=force, extra=extra)
     if as_json:
-        echo_json(lap_json(result))
+        out = lap_json(result)
+        if runs is not None:
+            out["liftoff_runs"] = [{k: r.get(k) for k in RUN_COLUMNS} for r in runs]
+        echo_json(out)
         return
     click.echo(format_lap(result, liftoff_only, units))
+    if runs is not None:
+        click.echo("")
+        click.echo(format_corner_runs(runs, units))
     if out_dir:
         click.echo(f"\nwrote {out_dir}/channels.csv, corners.csv, summary.json, "
                    f"provenance.json"
                    + (", liftoff_response.csv (tightest corner)"
                       if "liftoff_response.csv" in extra else "")
+                   + (", liftoff_runs.csv" if "liftoff_runs.csv" in extra else "")
                    + (f" and {plot_format.upper()} figures" if plots else ""))

@@ -48,7 +48,7 @@ def report_command(car_file, track_file, variants, overrides, out_file, force, s
     if out.exists() and not force:  # fail before the laps are run, not after
         raise InputError("already exists; pass --force to replace it or choose another --out",
                          out)
-    car, track = load_inputs(car_file, track_file, overrides, step_m, closed)
+    car, track = load_inputs(car_file, track_file, overrides, step_m, closed, prepare=False)
     track = apply_line(track, car, line, track_width_m, line_margin_m)
     log = None
     if log_file:  # read (and check) the log before any lap is run
@@ -59,6 +59,9 @@ def report_command(car_file, track_file, variants, overrides, out_file, force, s
     elif log_fit:
         raise click.UsageError("--log-fit needs --log FILE")
     cars = [car] + [load_car(v, overrides) for v in variants]
+    from lapbalance.cli.common import prepare_solver
+
+    prepare_solver()  # after every input is read, so a bad input gets its one line alone
     files = [car_file, *variants]
     labels = [c.name for c in cars]
     if len(set(labels)) < len(labels):

@@ -26,11 +26,11 @@ def rerun_command(summary_file, search, tolerance_s, as_json, units):
     """
     import sys
 
-    from lapbalance import provenance
+    from lapbalance.rerun import rerun
     from lapbalance.cli.lap_cmd import format_lap
 
     prepare_solver()
-    result, check = provenance.rerun(summary_file, search)
+    result, check = rerun(summary_file, search)
     ok = abs(check["difference_s"]) <= tolerance_s
     if as_json:
         echo_json({**check, "reproduced": ok, "tolerance_s": tolerance_s})
