@@ -311,7 +311,7 @@ def test_doubling_back_names_the_distance(tmp_path):
     x = np.concatenate([s, s[::-1]])
     y = np.concatenate([np.zeros_like(s), np.full_like(s, 2.0)])
     # the turn is at input rows 31-32 (file lines 32-33); the distance is along the fitted line
-    msg = (r"radius [0-2]\.\d+ m at \d+ m along the track \(near line 3[1-4]; below 3 m\): "
+    msg = (r"radius [0-2](\.\d+)? m at \d+ m along the track \(near line 3[1-4]; .*\): "
            r"the trace zig-zags")
     with pytest.raises(InputError, match=msg):
         load_track(write(tmp_path, xy_csv(x, y)), closed=False)

@@ -90,6 +90,10 @@ MAX_NOISE_M = 5.0
 #: point to the first may turn by less than this. A logged lap turns by at most a few tens of
 #: degrees between consecutive points. Engineering judgement. [deg]
 CLOSE_MAX_TURN_DEG = 100.0
+#: The path may not turn by more than this between consecutive chords a few point spacings
+#: long (a U-turn of radius 3 m over 2 m chords turns about 40 deg). Engineering judgement.
+#: [deg]
+REVERSAL_TURN_DEG = 135.0
 #: x/y spanning less than ``KM_HINT_SPAN_M`` with points closer than ``KM_HINT_SPACING_M`` look
 #: like kilometres (real centrelines are sampled 0.05-10 m apart). [m]
 KM_HINT_SPAN_M = 50.0
@@ -1078,6 +1082,36 @@ def _check_radians(lat, lon, src):
                          "57.2958 to give degrees", src, "lat_deg")
 
 
+def _check_reversal(x, y, u, noise, spacing, src, rows):
+    """Error where the path turns back on itself (a turn above ``REVERSAL_TURN_DEG`` between
+    chords a few spacings long, longer than the noise): a smoothed fit would hide it."""
+    reach = max(spacing, 10.0 * noise, 1.0)
+    if u[-1] < 3.0 * reach:
+        return
+    k = np.unique(np.searchsorted(u, np.arange(0.0, u[-1], reach)))
+    if k.size < 3:
+        return
+    cx, cy = np.diff(x[k]), np.diff(y[k])
+    cn = np.hypot(cx, cy)
+    ok = cn > 0.25 * reach  # a chord across the turning point itself may be very short
+    cn[~ok] = 1.0
+    cos1 = np.where(ok[:-1] & ok[1:], (cx[:-1] * cx[1:] + cy[:-1] * cy[1:])
+                    / (cn[:-1] * cn[1:]), 1.0)
+    cos2 = np.ones_like(cos1)
+    if cx.size > 2:
+        # across a short middle chord (the turning point itself)
+        cos2[:-1] = np.where(ok[:-2] & ok[2:] & ~ok[1:-1], (cx[:-2] * cx[2:] + cy[:-2] * cy[2:])
+                             / (cn[:-2] * cn[2:]), 1.0)
+    cosang = np.minimum(cos1, cos2)
+    bad = np.flatnonzero(cosang < math.cos(math.radians(REVERSAL_TURN_DEG)))
+    if bad.size:
+        j = int(k[bad[0] + 1])
+        turn = math.degrees(math.acos(max(-1.0, min(1.0, float(cosang[bad[0]])))))
+        raise InputError(f"radius 0 m at {u[j]:.0f} m along the track (near {_where(rows, j)}; "
+                         f"the path turns back by {turn:.0f} deg within {2 * reach:.1f} m): the "
+                         "trace zig-zags or crosses itself; check the points near there", src)
+
+
 def _end_tangents(x, y, reach):
     """Unit directions of travel at the end and at the start, over about ``reach`` metres."""
     d_end = np.hypot(x - x[-1], y - y[-1])
@@ -1197,6 +1231,7 @@ def _build(x, y, z, bank_deg, width, *, closed, step_m, name, source, sector_sta
         _check_grade(z, u, closed, (period - u[-1]) if closed else gap, src, rws)
     if grid_m is None:
         grid_m = max(_rounding_grid(x), _rounding_grid(y))
+    _check_reversal(x, y, u, s0, med, src, rws)
     fit = _fit_centreline(x, y, u, closed, period, noise_m, grid_m)
     length = fit.length
 
