@@ -853,7 +853,7 @@ def _fit_centreline(x, y, u, closed, period, noise_m=None, grid_m=0.0) -> _Fit:
     spec = rfft(ext, n=nfft, axis=0)
     om = 2.0 * math.pi * np.fft.rfftfreq(nfft, g)[:, None]
     mode = "wrap" if closed else "nearest"
-    ks, xs, ys, sp, sd = [], [], [], [], []
+    ks, xs, ys, sp, sd, sds = [], [], [], [], [], []
     for L in lens:
         gk = np.exp(-0.5 * (om * L) ** 2)
         f = irfft(spec[:, :2] * gk, n=nfft, axis=0)[lead:lead + count]
@@ -865,14 +865,21 @@ def _fit_centreline(x, y, u, closed, period, noise_m=None, grid_m=0.0) -> _Fit:
         num = x1 * y2 - y1 * x2
         kap = num / (sp2 * speed)
         var = np.zeros(count)
+        var_s = np.zeros(count)
         for c in range(2, 2 + 2 * draws, 2):
             ex1, ey1, ex2, ey2 = d1[:, c], d1[:, c + 1], d2[:, c], d2[:, c + 1]
             dnum = ex1 * y2 + x1 * ey2 - ey1 * x2 - y1 * ex2
             dsp2 = 2.0 * (x1 * ex1 + y1 * ey1)
             dk = dnum / (sp2 * speed) - 1.5 * num * dsp2 / (sp2 * sp2 * speed)
             var += dk * dk / draws
+            # the same noise along the path would move the speed by its derivative across
+            # (isotropic noise): relative speed deviation
+            dn = (ey1 * x1 - ex1 * y1) / sp2
+            var_s += dn * dn / draws
         win = int(min(count, max(20.0, 6.0 * L / g)))
         var = uniform_filter1d(var, max(win, 1), mode=mode)
+        var_s = uniform_filter1d(var_s, max(win, 1), mode=mode)
+        sds.append(np.sqrt(noise_fit**2 * var_s + (ROUNDING_CURVATURE_GAIN * grid_m / L) ** 2))
         # rounding to a grid q is not white noise where the path runs nearly along an axis:
         # there its error is a slow saw-tooth of amplitude q/2, whose curvature after a
         # smoothing length L is of order q / L² (Widrow & Kollar, Quantization Noise, 2008,
@@ -891,9 +898,18 @@ def _fit_centreline(x, y, u, closed, period, noise_m=None, grid_m=0.0) -> _Fit:
         sp.append(speed / hk)
     K = np.array(ks)
     sd = np.array(sd)
-    lo = np.maximum.accumulate(K - ICI_GAMMA * sd, axis=0)
-    hi = np.minimum.accumulate(K + ICI_GAMMA * sd, axis=0)
-    jstar = np.sum(lo <= hi, axis=0) - 1
+    # the same rule on the (relative) speed along the parameter: a long kernel that reaches
+    # round a hairpin onto the other leg pulls the legs together, which leaves their
+    # curvature near zero but slows the fitted curve there
+    S = np.array(sp)
+    S = S / np.median(S[0])
+    sds = np.array(sds)
+    ok = np.ones_like(K, dtype=bool)
+    for val, err in ((K, sd), (S, sds)):
+        lo = np.maximum.accumulate(val - ICI_GAMMA * err, axis=0)
+        hi = np.minimum.accumulate(val + ICI_GAMMA * err, axis=0)
+        ok &= lo <= hi
+    jstar = np.sum(np.logical_and.accumulate(ok, axis=0), axis=0) - 1
     jstar = np.maximum(jstar, 0).astype(float)
     # the choice scatters from knot to knot: take the median nearby and smooth it
     near = max(1, int(round(max(SELECT_SMOOTH_M, 2.0 * h_fit) / g)))
