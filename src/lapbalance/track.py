@@ -123,9 +123,13 @@ FIT_KNOT_MAX_M = 1.0
 SMOOTH_MAX_M = 200.0
 SMOOTH_RATIO = math.sqrt(2.0)
 ICI_GAMMA = 4.5
+RICI_SHARE = 0.0
 LEVEL_KNOTS_PER_LENGTH = 8.0
-ROUNDING_CURVATURE_GAIN = 0.3
+ROUNDING_CURVATURE_GAIN = 0.03
 BOOT_DRAWS = 4
+#: Smallest relative speed deviation the selection treats as real (the chord parameter of
+#: noisy points is itself uneven by up to a per cent). [-]
+SPEED_SD_FLOOR = 0.01
 BOOT_FEW_ABOVE = 40000
 #: Most points the noise estimate looks at (long traces are subsampled). [-]
 NOISE_SAMPLE = 200000
@@ -879,7 +883,8 @@ def _fit_centreline(x, y, u, closed, period, noise_m=None, grid_m=0.0) -> _Fit:
         win = int(min(count, max(20.0, 6.0 * L / g)))
         var = uniform_filter1d(var, max(win, 1), mode=mode)
         var_s = uniform_filter1d(var_s, max(win, 1), mode=mode)
-        sds.append(np.sqrt(noise_fit**2 * var_s + (ROUNDING_CURVATURE_GAIN * grid_m / L) ** 2))
+        sds.append(np.sqrt(noise_fit**2 * var_s + (ROUNDING_CURVATURE_GAIN * grid_m / L) ** 2
+                           + SPEED_SD_FLOOR**2))
         # rounding to a grid q is not white noise where the path runs nearly along an axis:
         # there its error is a slow saw-tooth of amplitude q/2, whose curvature after a
         # smoothing length L is of order q / L² (Widrow & Kollar, Quantization Noise, 2008,
@@ -908,13 +913,24 @@ def _fit_centreline(x, y, u, closed, period, noise_m=None, grid_m=0.0) -> _Fit:
     for val, err in ((K, sd), (S, sds)):
         lo = np.maximum.accumulate(val - ICI_GAMMA * err, axis=0)
         hi = np.minimum.accumulate(val + ICI_GAMMA * err, axis=0)
-        ok &= lo <= hi
-    jstar = np.sum(np.logical_and.accumulate(ok, axis=0), axis=0) - 1
-    jstar = np.maximum(jstar, 0).astype(float)
-    # the choice scatters from knot to knot: take the median nearby and smooth it
+        # relative ICI: the intersection must also keep a share of the current interval
+        # (Lerga, Vrankic & Sucic, IEEE Signal Processing Letters 15, 2008, 601-604)
+        ok &= (hi - lo) >= RICI_SHARE * 2.0 * ICI_GAMMA * err
+    # a test that fails at a few isolated points is a false alarm of the noise; a bias fails
+    # it over a stretch: keep the majority vote over the selection window
     near = max(1, int(round(max(SELECT_SMOOTH_M, 2.0 * h_fit) / g)))
-    jsel = median_filter(jstar, 2 * near + 1, mode=mode)
-    jsel = gaussian_filter1d(jsel, near, mode=mode)
+    ok = uniform_filter1d(ok.astype(float), 2 * near + 1, axis=1, mode=mode) > 0.5
+    jstar = np.sum(np.logical_and.accumulate(ok, axis=0), axis=0) - 1
+    # never a length whose curvature is too noisy to tell a drivable radius from noise
+    useful = ICI_GAMMA * sd < 0.5 / MIN_RADIUS_M
+    jfloor = np.where(useful.any(axis=0), np.argmax(useful, axis=0), nlev - 1)
+    jstar = np.maximum(jstar, jfloor)
+    jstar = np.maximum(jstar, 0).astype(float)
+    # the chosen level steps from knot to knot: take the median nearby (a lone false alarm
+    # goes; a stretch that needs a short length, such as either side of a kink in the
+    # curvature, keeps it) and smooth it a little
+    jsel = median_filter(jstar.astype(float), 2 * near + 1, mode=mode)
+    jsel = gaussian_filter1d(jsel, 0.5 * near, mode=mode)
     j0 = np.clip(np.floor(jsel).astype(np.int64), 0, nlev - 1)
     j1 = np.minimum(j0 + 1, nlev - 1)
     fr = jsel - j0
