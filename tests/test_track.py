@@ -101,7 +101,7 @@ def test_straight_line_is_open_with_zero_curvature():
     tr = make_track(s * 0.6, s * 0.8, step_m=1.0)
     assert not tr.closed
     assert np.max(np.abs(tr.curvature_1pm)) < 1e-9
-    assert tr.length_m == pytest.approx(500.0, rel=1e-12)
+    assert tr.length_m == pytest.approx(500.0, rel=1e-7)  # a fitted curve, not interpolated
     assert tr.distance_m[0] == 0.0 and tr.distance_m[-1] == pytest.approx(500.0)
     assert tr.n == 501 and tr.step_m == pytest.approx(1.0)
     assert tr.corners == ()
@@ -310,7 +310,9 @@ def test_doubling_back_names_the_distance(tmp_path):
     s = np.arange(0.0, 62.0, 2.0)
     x = np.concatenate([s, s[::-1]])
     y = np.concatenate([np.zeros_like(s), np.full_like(s, 2.0)])
-    msg = r"radius [0-2]\.\d+ m at 6\d m along the track \(below 3 m\): the trace zig-zags"
+    # the turn is at input rows 31-32 (file lines 32-33); the distance is along the fitted line
+    msg = (r"radius [0-2](\.\d+)? m at \d+ m along the track \(near line 3[1-4]; .*\): "
+           r"the trace zig-zags")
     with pytest.raises(InputError, match=msg):
         load_track(write(tmp_path, xy_csv(x, y)), closed=False)
 

@@ -865,3 +865,76 @@ def lap_figures_png(result: LapResult, dpi: int = 110) -> dict[str, bytes]:
         File name (``<figure>.png``) -> PNG contents. [-]
     """
     return {f"{name}.png": figure_png(fn(result), dpi) for name, (fn, _) in LAP_FIGURES.items()}
+
+
+# --------------------------------------------------------------------------------------------
+# Track geometry (takes a Track, not a lap result)
+# --------------------------------------------------------------------------------------------
+
+
+def draw_track_curvature(ax, track) -> None:
+    """Draw a track's curvature against distance on ``ax``, corners shaded and labelled.
+
+    Curvature is shown in 1/km (left turn positive, ISO 8855); the smallest radius is marked.
+    The smoothing length the fit chose at each point (:attr:`lapbalance.track.Track.smoothing_m`)
+    is drawn on a right-hand axis when the track carries it.
+
+    Parameters
+    ----------
+    ax : matplotlib.axes.Axes
+        Axes to draw on. [-]
+    track : lapbalance.track.Track
+        The track. [-]
+    """
+    d = np.asarray(track.distance_m, float)
+    k = 1000.0 * np.asarray(track.curvature_1pm, float)  # [1/km]
+    for c in track.corners:
+        color = PALETTE["front"] if c.direction == "left" else PALETTE["rear"]
+        spans = ([(c.entry_m, c.exit_m)] if c.exit_m >= c.entry_m
+                 else [(c.entry_m, float(d[-1])), (0.0, c.exit_m)])
+        for a, b in spans:
+            ax.axvspan(a, b, color=color, alpha=0.10, linewidth=0)
+        ax.annotate(str(c.id), (c.apex_m, 1.0), xycoords=("data", "axes fraction"),
+                    ha="center", va="bottom", fontsize=7, color=color)
+    ax.plot(d, k, color=PALETTE["ink"], lw=1.0)
+    ax.axhline(0.0, color=PALETTE["muted"], lw=0.6)
+    if np.any(k):
+        i = int(np.argmax(np.abs(k)))
+        ax.plot(d[i], k[i], "o", ms=4, color=PALETTE["lateral"],
+                label=f"smallest radius {1000.0 / abs(k[i]):.1f} m")
+        ax.legend(loc="lower right", fontsize=7, frameon=False)
+    ax.set_xlabel("distance [m]")
+    ax.set_ylabel("curvature [1/km] (left +)")
+    ax.set_xlim(float(d[0]), float(track.length_m))
+    sm = getattr(track, "smoothing_m", None)
+    if sm is not None:
+        ax2 = ax.twinx()
+        ax2.plot(d, sm, color=PALETTE["muted"], lw=0.7, alpha=0.7)
+        ax2.set_yscale("log")
+        ax2.set_ylabel("smoothing length [m]", color=PALETTE["muted"], fontsize=8)
+        ax2.tick_params(axis="y", colors=PALETTE["muted"], labelsize=7)
+
+
+@_styled
+def track_curvature_figure(track) -> Figure:
+    """Curvature against distance of a :class:`~lapbalance.track.Track` (see
+    :func:`draw_track_curvature`), titled with its estimated position noise.
+
+    Parameters
+    ----------
+    track : lapbalance.track.Track
+        The track. [-]
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+        The figure. [-]
+    """
+    fig = _figure(7.0, 3.2)
+    ax = fig.add_subplot(1, 1, 1)
+    draw_track_curvature(ax, track)
+    noise = getattr(track, "noise_m", float("nan"))
+    how = "given" if getattr(track, "noise_given", False) else "estimated"
+    ax.set_title(_plain(f"{track.name}: curvature; position noise {noise * 1000:.0f} mm "
+                        f"({how})"), fontsize=9)
+    return fig

@@ -15,7 +15,9 @@ Point layout
 measured along the horizontal centreline (x, y); elevation enters only through the grade.
 
 A track is closed when the file or the caller says so, else when its ends are closer than
-``max(3 x median spacing, 10 m)``; a last point that repeats the first is dropped.
+``max(3 x median spacing, 10 m)`` and the path runs on through the closing segment (it does
+not turn back by ``CLOSE_MAX_TURN_DEG`` or more); a last point that repeats the first is
+dropped, as are repeated points anywhere.
 
 Corners are numbered in order of their entry from the start line; on a closed track a corner
 that runs over the start line (``exit_m < entry_m``) enters last, so it carries the last id.
@@ -33,17 +35,29 @@ before the header carry metadata of our own::
     # closed: true
     # sectors_m: 0, 1700, 3400
 
-Smoothing
----------
-The centreline is interpolated by a cubic spline through the points (periodic for closed
-tracks), resampled by arc length, and the curvature (analytic from the spline) is passed
-through a short Gaussian low-pass (``CLEAN_CURVATURE_SIGMA_M``). The position noise of the
-points is estimated from leave-one-out cubic prediction residuals; a noisy logged trace is
-first smoothed with a local cubic (Savitzky-Golay) filter, and the curvature low-pass is
-widened, both by amounts that grow with the estimated noise (see :func:`_smoothing_windows`).
-A local cubic fit passes a circle with a relative error of order ``(W/R)^4``, and a low-pass of
-the curvature keeps a constant curvature exactly, so neither step shrinks a clean circle the
-way a penalised smoothing spline does.
+Curvature from points
+---------------------
+The curvature must depend on the shape, not on how it was sampled (any spacing from 0.05 m to
+10 m, rounding up to 1 cm, GPS-like noise up to 0.5 m), so it is never differentiated from a
+curve through the raw points (see :func:`_fit_centreline`):
+
+1. dense points are averaged in bins of about ``FIT_BIN_M`` of arc length (the parameter is the
+   chord length of a short moving average, so noise does not inflate it);
+2. a light cubic P-spline (Eilers & Marx 1996) through the data gives positions on a uniform
+   grid; Gaussian kernels of a ladder of lengths smooth them (periodic for a closed track);
+3. the position noise is estimated from the data (leave-one-out residuals across the path), or
+   given by the user; a parametric bootstrap gives the curvature's standard deviation at each
+   length and place, and rounding adds a term of its own;
+4. at each point the longest length whose curvature (and parameter speed) stays inside the
+   confidence intervals of all shorter ones is chosen (the intersection of confidence
+   intervals rule: Goldenshluger & Nemirovski 1997; Katkovnik 1999). Straights and long
+   constant-radius corners get a long length, hairpins a short one;
+5. each length's known shrinking of a circle (gain ``exp(-(L/R)²/2)``) is undone, so a clean
+   circle comes out at its radius at any length;
+6. the fitted curve is resampled at the output step along its own arc length.
+
+The estimated noise is :attr:`Track.noise_m`; the chosen length per point is
+:attr:`Track.smoothing_m`.
 """
 
 from __future__ import annotations
@@ -81,10 +95,30 @@ MIN_POINTS = 10
 MIN_RADIUS_M = 3.0
 #: Largest accepted position noise across the path, as a share of the median point spacing
 #: (and at least ``ZIGZAG_MIN_M``). Random position noise estimates at most about 0.5 spacings
-#: (the spacing itself grows with the noise); a trace that steps sideways by more than this
-#: zig-zags point to point and is not a centreline. Engineering judgement. [-], [m]
+#: (the spacing itself grows with the noise) when it is larger than the spacing; a trace that
+#: steps sideways by more than this zig-zags point to point and is not a centreline. GPS-like
+#: noise up to 0.5 m stays below ``ZIGZAG_MIN_M`` at any spacing. Engineering judgement. [-], [m]
 ZIGZAG_NOISE_SPACINGS = 0.65
-ZIGZAG_MIN_M = 0.5
+ZIGZAG_MIN_M = 1.5
+#: Largest position noise a user may give (``noise_m``). [m]
+MAX_NOISE_M = 5.0
+#: A closed track must not turn back through its closing segment: the path from the last
+#: point to the first may turn by less than this. A logged lap turns by at most a few tens of
+#: degrees between consecutive points. Engineering judgement. [deg]
+CLOSE_MAX_TURN_DEG = 100.0
+#: The path may not turn by more than this between consecutive chords a few point spacings
+#: long (a U-turn of radius 3 m over 2 m chords turns about 40 deg). Engineering judgement.
+#: [deg]
+REVERSAL_TURN_DEG = 135.0
+#: x/y spanning less than ``KM_HINT_SPAN_M`` with points closer than ``KM_HINT_SPACING_M`` look
+#: like kilometres (real centrelines are sampled 0.05-10 m apart). [m]
+KM_HINT_SPAN_M = 50.0
+KM_HINT_SPACING_M = 0.02
+#: lat/lon within ±pi/2, ±pi whose trace, read as degrees, is shorter than
+#: ``RAD_HINT_LENGTH_M`` with points closer than ``RAD_HINT_SPACING_M`` look like radians (a
+#: track of 1-100 km typed in radians reads 57.3 times too small). [m]
+RAD_HINT_LENGTH_M = 2000.0
+RAD_HINT_SPACING_M = 0.2
 #: Largest |bank| accepted; steeper than the steepest banked ovals (about 30-35 deg). [deg]
 MAX_BANK_DEG = 60.0
 #: ``bank_deg`` values all below this (and not all zero) look like radians. [deg]
@@ -94,8 +128,31 @@ BANK_RADIANS_HINT_DEG = 0.35
 #: over short stretches. [-], [m]
 MAX_GRADE = 0.35
 GRADE_SPAN_M = 20.0
-#: Gaussian low-pass on curvature for a clean trace (standard deviation). [m]
-CLEAN_CURVATURE_SIGMA_M = 2.0
+#: Centreline fit (see :func:`_fit_centreline`). Dense input is averaged in bins of about
+#: ``FIT_BIN_M`` of arc length; the fitted grid is ``FIT_BIN_M`` (dense input) or half the
+#: point spacing up to ``FIT_KNOT_MAX_M`` (sparse input). Gaussian smoothing lengths from 1.5
+#: grid steps up to ``SMOOTH_MAX_M`` (and a quarter of a closed lap, a sixth of an open one)
+#: in steps of ``SMOOTH_RATIO``; confidence intervals ``±ICI_GAMMA`` standard deviations wide
+#: (high, so that noise alone rarely stops a long length); tests and choice looked at over
+#: ``max(SELECT_SMOOTH_M, 2 spacings)``; rounding to a grid q adds
+#: ``ROUNDING_CURVATURE_GAIN q / L²`` to the curvature's standard deviation; ``BOOT_DRAWS``
+#: noise draws (2 above ``BOOT_FEW_ABOVE`` grid points); the parameter speed is trusted to
+#: ``SPEED_SD_FLOOR``; the noise is estimated on at most ``NOISE_SAMPLE`` points and never
+#: taken below ``NOISE_FLOOR_SPACINGS`` of the spacing. Engineering judgement, tuned on circles
+#: (15-1000 m), clothoids, 12 m hairpins and 300 m sweepers at 0.05-10 m spacing, 0.1 mm-1 cm
+#: rounding and 0-0.5 m noise (tests/test_track_geometry.py). [m], [-]
+FIT_BIN_M = 0.5
+FIT_KNOT_MAX_M = 1.0
+SMOOTH_MAX_M = 200.0
+SMOOTH_RATIO = math.sqrt(2.0)
+ICI_GAMMA = 4.5
+SELECT_SMOOTH_M = 2.0
+ROUNDING_CURVATURE_GAIN = 0.03
+BOOT_DRAWS = 4
+BOOT_FEW_ABOVE = 40000
+SPEED_SD_FLOOR = 0.01
+NOISE_SAMPLE = 200000
+NOISE_FLOOR_SPACINGS = 2e-4
 #: Gaussian low-pass on elevation before the grade is taken (standard deviation). [m]
 ELEVATION_SIGMA_M = 5.0
 
@@ -108,6 +165,9 @@ CORNER_ON_1PM = 1.0 / 500.0
 CORNER_OFF_1PM = 1.0 / 800.0
 CORNER_MERGE_M = 30.0
 CORNER_MIN_TURN_DEG = 10.0
+#: A closed track turning one way all round whose |curvature| never falls below this share of
+#: its largest is one corner (a ring or skid pad of any radius). Engineering judgement. [-]
+RING_MIN_SHARE = 0.5
 
 # WGS-84 ellipsoid. Source: NIMA TR8350.2, Department of Defense World Geodetic System 1984,
 # 3rd ed. (2000), table 3.1: a = 6378137 m, 1/f = 298.257223563.
@@ -190,6 +250,22 @@ class Track:
         (N,) distance from the line to the left edge when the file gives the edges apart
         (``width_left_m``, ``width_right_m``); None when the points are the centre of the
         width. [m]
+    noise_m : float
+        Position noise of one input point (standard deviation across the path), estimated from
+        the points or given by the user; NaN for a track not built from points. [m]
+    noise_given : bool
+        True when ``noise_m`` was given rather than estimated. [-]
+    input_points : int
+        Distinct input points used (repeated points dropped). [-]
+    input_spacing_m : float
+        Median spacing of the input points. [m]
+    fit_bin_m : float
+        Width of the arc-length bins dense input was averaged in, 0 when not binned. [m]
+    fit_knot_m : float
+        Knot spacing of the fitted curve. [m]
+    smoothing_m : numpy.ndarray or None
+        (N,) smoothing length the fit chose at each point (short in tight corners, long on
+        straights and long constant-radius corners). [m]
     """
 
     name: str
@@ -208,6 +284,13 @@ class Track:
     corners: tuple[Corner, ...]
     sector_starts_m: tuple[float, ...]
     width_left_m: np.ndarray | None = None
+    noise_m: float = float("nan")
+    noise_given: bool = False
+    input_points: int = 0
+    input_spacing_m: float = float("nan")
+    fit_bin_m: float = 0.0
+    fit_knot_m: float = float("nan")
+    smoothing_m: np.ndarray | None = None
 
     @property
     def n(self) -> int:
@@ -234,7 +317,9 @@ def latlon_to_local(lat_deg, lon_deg, lat0_deg: float | None = None,
     lat_deg, lon_deg : array_like
         Geodetic latitude and longitude. [deg]
     lat0_deg, lon0_deg : float, optional
-        Reference point; default the centroid of the points. [deg]
+        Reference point; default the centre of the points on the ellipsoid (the mean of their
+        Earth-centred vectors, projected back to the surface), which is right across the
+        antimeridian and near a pole, where a mean longitude is not. [deg]
 
     Returns
     -------
@@ -248,8 +333,6 @@ def latlon_to_local(lat_deg, lon_deg, lat0_deg: float | None = None,
     """
     lat = np.radians(np.asarray(lat_deg, dtype=float))
     lon = np.radians(np.asarray(lon_deg, dtype=float))
-    lat0 = math.radians(lat0_deg) if lat0_deg is not None else float(np.mean(lat))
-    lon0 = math.radians(lon0_deg) if lon0_deg is not None else float(np.mean(lon))
     e2 = _WGS84_F * (2.0 - _WGS84_F)
 
     def ecef(la, lo):
@@ -258,13 +341,32 @@ def latlon_to_local(lat_deg, lon_deg, lat0_deg: float | None = None,
                 n * (1.0 - e2) * np.sin(la))  # [1] eq. 4-14, h = 0
 
     X, Y, Z = ecef(lat, lon)
-    X0, Y0, Z0 = ecef(lat0, lon0)
+    c_lat, c_lon = _centre_latlon(X, Y, Z, e2)
+    lat0 = math.radians(lat0_deg) if lat0_deg is not None else c_lat
+    lon0 = math.radians(lon0_deg) if lon0_deg is not None else c_lon
+    X0, Y0, Z0 = (float(c) for c in ecef(lat0, lon0))
     dx, dy, dz = X - X0, Y - Y0, Z - Z0
     sl, cl = math.sin(lon0), math.cos(lon0)
     sp, cp = math.sin(lat0), math.cos(lat0)
     east = -sl * dx + cl * dy
     north = -sp * cl * dx - sp * sl * dy + cp * dz
     return east, north
+
+
+def _centre_latlon(X: np.ndarray, Y: np.ndarray, Z: np.ndarray, e2: float) -> tuple[float, float]:
+    """Geodetic latitude and longitude (rad) under the mean Earth-centred position of points.
+
+    Averaging Earth-centred vectors has no wrap-around at ±180 deg and no singularity at the
+    poles (a mean longitude has both). The latitude uses the surface relation
+    ``tan(lat) = Z / ((1 - e²) p)`` (NIMA TR8350.2, eq. 4-14 with h = 0); the mean lies a
+    little below the surface, which moves the reference point by far less than the track size
+    (any reference point near the track gives the same plane geometry to within d²/R²).
+    """
+    mx, my, mz = float(np.mean(X)), float(np.mean(Y)), float(np.mean(Z))
+    p = math.hypot(mx, my)
+    if p < 1e-9 * _WGS84_A:  # centred on a pole: any longitude
+        return math.copysign(0.5 * math.pi, mz), 0.0
+    return math.atan2(mz, (1.0 - e2) * p), math.atan2(my, mx)
 
 
 # --------------------------------------------------------------------------------------------
@@ -384,7 +486,8 @@ def _is_number(s: str) -> bool:
 # --------------------------------------------------------------------------------------------
 
 
-def load_track(path, step_m: float = 1.0, closed: bool | None = None) -> Track:
+def load_track(path, step_m: float = 1.0, closed: bool | None = None,
+               noise_m: float | None = None) -> Track:
     """Load a track centreline from our CSV format and resample it.
 
     Parameters
@@ -395,7 +498,11 @@ def load_track(path, step_m: float = 1.0, closed: bool | None = None) -> Track:
         Requested spacing of the resampled points. [m]
     closed : bool, optional
         Force a closed (True) or open (False) track; default: the file's ``# closed:`` line,
-        else closed when the ends are close together. [-]
+        else closed when the ends are close together and the path runs on through the closing
+        segment (it does not turn back). [-]
+    noise_m : float, optional
+        Position noise of the points (standard deviation); default: estimated from the
+        points. 0 trusts the points as exact. [m]
 
     Returns
     -------
@@ -425,13 +532,15 @@ def load_track(path, step_m: float = 1.0, closed: bool | None = None) -> Track:
         if bad.size:
             raise InputError(f"lon_deg = {lon[bad[0]]:g} is outside -180..180; give degrees "
                              "east in -180..180", src, f"line {linenos[bad[0]]}")
+        _check_radians(lat, lon, src)
         x, y = latlon_to_local(lat, lon)
     else:
         x, y = cols["x_m"], cols["y_m"]
+        _check_units_xy(x, y, src)
     width, left = _split_widths(cols, src, linenos)
     tr = _build(x, y, cols.get("z_m"), cols.get("bank_deg"), width,
                 closed=closed, step_m=step_m, name=meta.get("name") or path.stem,
-                source=src, sector_starts_m=sectors, rows=linenos)
+                source=src, sector_starts_m=sectors, rows=linenos, noise_m=noise_m)
     if left is not None:
         tr = _with_left_width(tr, x, y, left)
     return tr
@@ -480,7 +589,7 @@ def _with_left_width(tr: Track, x, y, left) -> Track:
 
 
 def make_track(x, y, z=None, bank_deg=None, width=None, *, closed=None, step_m=1.0, name="",
-               source="", sector_starts_m=None) -> Track:
+               source="", sector_starts_m=None, noise_m=None) -> Track:
     """Build a track from centreline points given in memory.
 
     Parameters
@@ -501,6 +610,8 @@ def make_track(x, y, z=None, bank_deg=None, width=None, *, closed=None, step_m=1
         Labels. [-]
     sector_starts_m : sequence of float, optional
         Sector start distances, first 0; default three equal sectors. [m]
+    noise_m : float, optional
+        Position noise of the points (standard deviation); default: estimated. [m]
 
     Returns
     -------
@@ -524,7 +635,405 @@ def make_track(x, y, z=None, bank_deg=None, width=None, *, closed=None, step_m=1
             raise InputError(f"{label} has {a.size} values but x has {n}; give one per point",
                              source or None, label)
     return _build(*arrs, closed=closed, step_m=step_m, name=name, source=source,
-                  sector_starts_m=sector_starts_m, rows=None)
+                  sector_starts_m=sector_starts_m, rows=None, noise_m=noise_m)
+
+
+# --------------------------------------------------------------------------------------------
+# Centreline fit
+# --------------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class _Fit:
+    """Result of :func:`_fit_centreline` on a uniform knot grid (internal)."""
+
+    v: np.ndarray          # (K,) knot parameter (chord-length parameter of the input) [m]
+    s: np.ndarray          # (K,) arc length of the fitted curve at the knots [m]
+    x: np.ndarray          # (K,) fitted position [m]
+    y: np.ndarray
+    kappa: np.ndarray      # (K,) curvature [1/m]
+    smooth: np.ndarray     # (K,) smoothing length chosen at each knot [m]
+    length: float          # curve length (closed: the full lap) [m]
+    noise_m: float         # position noise of one input point (estimated or given) [m]
+    bin_m: float           # bin width of dense input, 0 when not binned [m]
+    knot_m: float          # knot spacing g [m]
+
+
+def _bspline_basis(tau: np.ndarray):
+    """Uniform cubic B-spline basis on one knot interval, local coordinate ``tau`` in [0, 1).
+
+    Source: de Boor, *A Practical Guide to Splines*, rev. ed., Springer 2001, ch. IX
+    (uniform cubic B-spline pieces).
+    """
+    t2 = tau * tau
+    t3 = t2 * tau
+    return ((1.0 - tau) ** 3 / 6.0, (3.0 * t3 - 6.0 * t2 + 4.0) / 6.0,
+            (-3.0 * t3 + 3.0 * t2 + 3.0 * tau + 1.0) / 6.0, t3 / 6.0)
+
+
+class _PSpline:
+    """Penalised regression spline (P-spline) on a uniform knot grid, any number of columns.
+
+    Minimises ``sum_i w_i |p_i - f(t_i)|² + lam sum_k (Δ³ a_k)²`` over the cubic B-spline
+    coefficients ``a`` (Eilers & Marx 1996, eq. 6 with a third-order difference penalty). The
+    same ``lam`` for every column keeps the fit invariant to rotation of the plane. The normal
+    equations are banded (half-bandwidth 3) and solved by banded Cholesky.
+
+    References
+    ----------
+    .. [1] P.H.C. Eilers and B.D. Marx, "Flexible smoothing with B-splines and penalties",
+       Statistical Science 11(2), 1996, 89-121.
+    """
+
+    def __init__(self, t: np.ndarray, w: np.ndarray, cols: np.ndarray, t0: float, g: float,
+                 m: int):
+        # m knot intervals from t0, m + 3 coefficients; data t in [t0, t0 + m g]
+        self.g, self.m, self.t0 = g, m, t0
+        nc = m + 3
+        r = (t - t0) / g
+        i = np.clip(np.floor(r).astype(np.int64), 0, m - 1)
+        b = _bspline_basis(r - i)
+        self.btwb = np.zeros((4, nc))  # upper banded form: row 3 - d holds offset d
+        for p in range(4):
+            for q in range(p, 4):
+                self.btwb[3 - (q - p)] += np.bincount(i + q, weights=w * b[p] * b[q],
+                                                      minlength=nc)
+        self.rhs = np.zeros((nc, cols.shape[1]))
+        for p in range(4):
+            for c in range(cols.shape[1]):
+                self.rhs[:, c] += np.bincount(i + p, weights=w * b[p] * cols[:, c],
+                                              minlength=nc)
+        # D3' D3 in the same banded form
+        d3 = np.array([1.0, -3.0, 3.0, -1.0])
+        rows = np.arange(nc - 3)
+        self.dtd = np.zeros((4, nc))
+        for p in range(4):
+            for q in range(p, 4):
+                self.dtd[3 - (q - p)] += np.bincount(rows + q, weights=np.full(
+                    rows.size, d3[p] * d3[q]), minlength=nc)
+
+    def solve(self, lam: float) -> np.ndarray:
+        from scipy.linalg import solveh_banded
+
+        ab = self.btwb + lam * self.dtd
+        # a tiny ridge keeps the system regular where knots have no data (not scaled by lam)
+        ab[3] += 1e-10 * max(float(np.max(self.btwb[3])), 1e-30)
+        return solveh_banded(ab, self.rhs, check_finite=False)
+
+    def evaluate(self, a: np.ndarray, t: np.ndarray):
+        """Value, first and second derivative at parameters ``t`` (per column)."""
+        r = (t - self.t0) / self.g
+        i = np.clip(np.floor(r).astype(np.int64), 0, self.m - 1)
+        tau = (r - i)[:, None]
+        b = _bspline_basis(tau)
+        t2 = tau * tau
+        db = (-0.5 * (1.0 - tau) ** 2, 1.5 * t2 - 2.0 * tau, -1.5 * t2 + tau + 0.5, 0.5 * t2)
+        ddb = (1.0 - tau, 3.0 * tau - 2.0, 1.0 - 3.0 * tau, tau)
+        f = d1 = d2 = 0.0
+        for p in range(4):
+            ap = a[i + p]
+            f = f + b[p] * ap
+            d1 = d1 + db[p] * ap
+            d2 = d2 + ddb[p] * ap
+        return f, d1 / self.g, d2 / self.g**2
+
+
+def _moving_average(a: np.ndarray, m: int, closed: bool) -> np.ndarray:
+    from scipy.ndimage import uniform_filter1d
+
+    return uniform_filter1d(a, m, mode="wrap" if closed else "nearest")
+
+
+def _index_noise(x: np.ndarray, y: np.ndarray) -> float:
+    """Rough position noise from sixth differences of consecutive points (robust MAD). [m]
+
+    For white noise of standard deviation s the sixth difference has standard deviation
+    ``s sqrt(924)`` (the sum of squared binomial coefficients C(12, 6)). Used only to choose the
+    pre-averaging window of the parameter.
+    """
+    if x.size < 8:
+        return 0.0
+    d = []
+    for a in (x, y):
+        r = np.diff(a, 6)
+        d.append(_mad_sigma(r) / math.sqrt(924.0))
+    return float(math.sqrt(0.5 * (d[0] ** 2 + d[1] ** 2)))
+
+
+def _chord_parameter(x: np.ndarray, y: np.ndarray, closed: bool) -> tuple[np.ndarray, float]:
+    """Chord-length parameter of the points, taken on a moving average when the points are
+    noisy compared with their spacing (so that noise does not inflate it). Returns the
+    parameter and the closing chord (closed tracks). [m]"""
+    seg = np.hypot(np.diff(x), np.diff(y))
+    h = float(np.median(seg))
+    s0 = _index_noise(x, y)
+    m = 1
+    if h > 0 and s0 > 0.05 * h:
+        # window of m points: the noise of the averaged step (s0 sqrt(2) / m) stays below 10 %
+        # of the true step, so the parameter is within 0.5 % of arc length
+        m = min(int(math.ceil(10.0 * math.sqrt(2.0) * s0 / h)), max(x.size // 8, 1))
+    if m > 1:
+        xa, ya = _moving_average(x, m, closed), _moving_average(y, m, closed)
+    else:
+        xa, ya = x, y
+    u = np.concatenate([[0.0], np.cumsum(np.hypot(np.diff(xa), np.diff(ya)))])
+    close = math.hypot(xa[-1] - xa[0], ya[-1] - ya[0]) if closed else 0.0
+    return u, close
+
+
+def _bin_points(x, y, u, period, closed, width):
+    """Average the points in bins of the parameter ``u`` (width about ``width``).
+
+    Returns bin mean x, y, mean parameter and count (empty bins dropped).
+    """
+    total = period if closed else u[-1]
+    nb = max(int(round(total / width)), 1)
+    b = total / nb
+    k = np.minimum((u / b).astype(np.int64), nb - 1)
+    cnt = np.bincount(k, minlength=nb).astype(float)
+    ok = cnt > 0
+    sx = np.bincount(k, weights=x, minlength=nb)[ok]
+    sy = np.bincount(k, weights=y, minlength=nb)[ok]
+    su = np.bincount(k, weights=u, minlength=nb)[ok]
+    c = cnt[ok]
+    return sx / c, sy / c, su / c, c, b
+
+
+def _fit_centreline(x, y, u, closed, period, noise_m=None, grid_m=0.0) -> _Fit:
+    """Fit a smooth curve to the points and choose its smoothing length at every point.
+
+    Method
+    ------
+    1. Dense points (spacing below ``FIT_BIN_M``) are averaged in bins of the chord parameter
+       about ``FIT_BIN_M`` long. This averages rounding error and costs O(points).
+    2. A cubic P-spline (Eilers & Marx 1996, third-difference penalty, a light penalty of about
+       one knot spacing) through the (binned) points gives positions on a uniform grid of
+       spacing ``g``; closed tracks are padded with wrapped copies so that it is periodic.
+    3. Gaussian kernels of standard deviation ``L`` on a ladder (``SMOOTH_RATIO`` apart, up to
+       ``SMOOTH_MAX_M``) smooth the grid positions and give their derivatives, by FFT
+       (periodic for a closed track; an open one is extended by point reflection). A
+       Gaussian kernel is positive, so a step in curvature does not overshoot.
+    4. The position noise (per input point) is estimated by :func:`_estimate_noise` on the
+       binned points, unless given. White noise across the path, drawn with a fixed seed,
+       rides through the same fit: its curvature gives the standard deviation of the
+       curvature at each length and place (a parametric bootstrap: Efron & Tibshirani, An
+       Introduction to the Bootstrap, 1993, ch. 6). Rounding to a grid adds a term
+       ``ROUNDING_CURVATURE_GAIN q / L²``.
+    5. Each length's shrinking of a circle is undone: a Gaussian passes the wavenumber 1/R
+       with the gain ``H = exp(-(L/R)²/2)``, so the fitted curvature is divided by ``1/H`` and
+       the speed along the parameter by ``H`` (exact for a circle at any length).
+    6. At every grid point the longest length whose curvature and parameter speed lie inside
+       the confidence intervals (``±ICI_GAMMA`` standard deviations) of all shorter lengths is
+       chosen: the intersection of confidence intervals rule (Goldenshluger & Nemirovski 1997;
+       Katkovnik 1999). A test must fail on the majority of a short stretch to count, the
+       choice is median-filtered over that stretch, and a length too noisy to tell a radius of
+       ``2 MIN_RADIUS_M`` is never chosen. Straights and long constant-radius corners get a
+       long length and tight hairpins a short one, so one trace can hold both.
+
+    Returns the fit on the uniform grid (its own arc length ``s``); the caller resamples it.
+
+    References
+    ----------
+    .. [1] P.H.C. Eilers and B.D. Marx, "Flexible smoothing with B-splines and penalties",
+       Statistical Science 11(2), 1996, 89-121.
+    .. [2] A. Goldenshluger and A. Nemirovski, "On spatially adaptive estimation of
+       nonparametric regression", Mathematical Methods of Statistics 6(2), 1997, 135-170.
+    .. [3] V. Katkovnik, "A new method for varying adaptive bandwidth selection", IEEE
+       Transactions on Signal Processing 47(9), 1999, 2567-2571.
+    """
+    from scipy.ndimage import gaussian_filter1d, median_filter, uniform_filter1d
+
+    n = x.size
+    total = period if closed else float(u[-1])
+    h_in = total / (n if closed else max(n - 1, 1))
+    if h_in < FIT_BIN_M:
+        bx, by, bu, bw, bin_m = _bin_points(x, y, u, period, closed, FIT_BIN_M)
+    else:
+        bx, by, bu, bw, bin_m = x, y, u, np.ones(n), 0.0
+    nb = bx.size
+    h_fit = total / (nb if closed else max(nb - 1, 1))  # mean spacing of the fitted data
+    if noise_m is None:
+        s_b = _estimate_noise(bx, by, bu, closed, period)
+        noise = s_b * math.sqrt(float(np.mean(bw)))  # per input point (white-noise scaling)
+    else:
+        noise = float(noise_m)
+    # knots
+    g_target = FIT_BIN_M if bin_m > 0 else min(max(0.5 * h_fit, FIT_BIN_M), FIT_KNOT_MAX_M)
+    if closed:
+        from scipy.fft import next_fast_len
+
+        # a grid length with small prime factors keeps the periodic FFTs fast
+        k_per = next_fast_len(max(int(round(total / g_target)), 8))
+        g = total / k_per
+    else:
+        k_per = max(int(math.ceil(total / g_target)), 8)
+        g = total / k_per
+    # base fit: a light P-spline (length about half the data spacing) through the data gives
+    # positions on the uniform grid ``tq``; two draws of white noise (one unit per unit weight)
+    # ride along as extra columns: their fitted curvature gives the curvature standard
+    # deviation at each smoothing length and place (a parametric bootstrap: Efron &
+    # Tibshirani 1993, ch. 6)
+    l_base = g
+    rng = np.random.default_rng(20240601)
+    draws = BOOT_DRAWS if k_per < BOOT_FEW_ABOVE else 2  # long tracks: long windows suffice
+    # the noise is drawn across the path (which alone moves the curvature to first order),
+    # so that the fit stays invariant to rotating or mirroring the plane
+    if closed:
+        tx, ty = np.roll(bx, -1) - np.roll(bx, 1), np.roll(by, -1) - np.roll(by, 1)
+    else:
+        tx, ty = np.gradient(bx), np.gradient(by)
+    tn = np.hypot(tx, ty)
+    tn[tn == 0.0] = 1.0
+    nx, ny = -ty / tn, tx / tn
+    z = rng.standard_normal((bw.size, draws)) / np.sqrt(bw)[:, None]
+    eps = np.empty((bw.size, 2 * draws))
+    eps[:, 0::2] = z * nx[:, None]
+    eps[:, 1::2] = z * ny[:, None]
+    data = np.column_stack([bx, by, eps])
+    if closed:
+        pad = 5.0 * l_base + 4.0 * g
+        reps = int(math.ceil(pad / total))
+        shifts = np.arange(-reps, reps + 1) * total
+        t = (bu[None, :] + shifts[:, None]).ravel()
+        keep = (t >= -pad) & (t <= total + pad)
+        t = t[keep]
+        data = np.tile(data, (shifts.size, 1))[keep]
+        w = np.tile(bw, shifts.size)[keep]
+        tq = np.arange(k_per) * g  # fine grid: one lap
+        padk = int(math.ceil(pad / g))
+        t0, mm = -padk * g, k_per + 2 * padk
+    else:
+        t, w = bu, bw
+        tq = np.arange(k_per + 1) * g
+        t0, mm = 0.0, k_per
+    count = tq.size
+    # noise used for the confidence intervals: at least a small share of the data spacing
+    # (the base fit's own error between sparse points), never zero
+    noise_fit = max(noise, NOISE_FLOOR_SPACINGS * h_fit, 1e-6)
+    ps = _PSpline(t, w, data, t0, g, mm)
+    rho = float(np.sum(w)) / mm  # mean weight per knot interval
+    base, _, _ = ps.evaluate(ps.solve(rho * (l_base / g) ** 6), tq)
+    # ladder of Gaussian smoothing lengths (standard deviation of the kernel)
+    l_min = 1.5 * g
+    l_max = min(SMOOTH_MAX_M, total / (4.0 if closed else 6.0))
+    l_max = max(l_max, l_min)
+    nlev = int(math.floor(math.log(l_max / l_min) / math.log(SMOOTH_RATIO))) + 1
+    lens = l_min * SMOOTH_RATIO ** np.arange(nlev)
+    # Gaussian smoothing and its derivatives by FFT: periodic for a closed track; an open one
+    # is extended at both ends by point reflection (keeps a straight line straight)
+    if closed:
+        ext, lead = base, 0
+    else:
+        # the reflected stretches cover the kernel to 6 L (L <= length / 6), so the jump where
+        # the FFT wraps round stays out of reach
+        lead = min(int(math.ceil(6.0 * lens[-1] / g)) + 1, count - 1)
+        left = 2.0 * base[0] - base[lead:0:-1]
+        right = 2.0 * base[-1] - base[-2:-lead - 2:-1]
+        ext = np.concatenate([left, base, right])
+    from scipy.fft import irfft, next_fast_len, rfft
+
+    nfft = ext.shape[0] if closed else next_fast_len(ext.shape[0] + 8)
+    if not closed:
+        ext = np.concatenate([ext, np.repeat(ext[-1:], nfft - ext.shape[0], axis=0)])
+    spec = rfft(ext, n=nfft, axis=0)
+    om = 2.0 * math.pi * np.fft.rfftfreq(nfft, g)[:, None]
+    mode = "wrap" if closed else "nearest"
+    ks, xs, ys, sp, sd, sds = [], [], [], [], [], []
+    for L in lens:
+        gk = np.exp(-0.5 * (om * L) ** 2)
+        f = irfft(spec[:, :2] * gk, n=nfft, axis=0)[lead:lead + count]
+        d1 = irfft(spec * (1j * om * gk), n=nfft, axis=0)[lead:lead + count]
+        d2 = irfft(spec * (-(om**2) * gk), n=nfft, axis=0)[lead:lead + count]
+        x1, y1, x2, y2 = d1[:, 0], d1[:, 1], d2[:, 0], d2[:, 1]
+        sp2 = np.maximum(x1 * x1 + y1 * y1, 1e-24)
+        speed = np.sqrt(sp2)
+        num = x1 * y2 - y1 * x2
+        kap = num / (sp2 * speed)
+        var = np.zeros(count)
+        var_s = np.zeros(count)
+        for c in range(2, 2 + 2 * draws, 2):
+            ex1, ey1, ex2, ey2 = d1[:, c], d1[:, c + 1], d2[:, c], d2[:, c + 1]
+            dnum = ex1 * y2 + x1 * ey2 - ey1 * x2 - y1 * ex2
+            dsp2 = 2.0 * (x1 * ex1 + y1 * ey1)
+            dk = dnum / (sp2 * speed) - 1.5 * num * dsp2 / (sp2 * sp2 * speed)
+            var += dk * dk / draws
+            # the same noise along the path would move the speed by its derivative across
+            # (isotropic noise): relative speed deviation
+            dn = (ey1 * x1 - ex1 * y1) / sp2
+            var_s += dn * dn / draws
+        win = int(min(count, max(20.0, 6.0 * L / g)))
+        var = uniform_filter1d(var, max(win, 1), mode=mode)
+        var_s = uniform_filter1d(var_s, max(win, 1), mode=mode)
+        sds.append(np.sqrt(noise_fit**2 * var_s + (ROUNDING_CURVATURE_GAIN * grid_m / L) ** 2
+                           + SPEED_SD_FLOOR**2))
+        # rounding to a grid q is not white noise where the path runs nearly along an axis:
+        # there its error is a slow saw-tooth of amplitude q/2, whose curvature after a
+        # smoothing length L is of order q / L² (Widrow & Kollar, Quantization Noise, 2008,
+        # ch. 4: the error is bounded, not white, for slowly varying inputs)
+        sq = ROUNDING_CURVATURE_GAIN * grid_m / L**2
+        sd.append(np.sqrt(noise_fit**2 * var + sq * sq))
+        # bias correction: a Gaussian of standard deviation L passes a circle of radius R run
+        # at parameter speed c with the gain H = exp(-(L c / R)² / 2) (its transfer function
+        # at wavenumber c/R); the fit shows speed c H and curvature 1 / (R H), so
+        # L c / R = L * fitted speed * fitted curvature, and the fitted curvature is 1 / H
+        # times too large and the arc H times too short; undone while H is above 1/2
+        hk = np.clip(np.exp(-0.5 * (L * speed * kap) ** 2), 0.5, 1.0)
+        ks.append(kap * hk)
+        xs.append(f[:, 0])
+        ys.append(f[:, 1])
+        sp.append(speed / hk)
+    K = np.array(ks)
+    sd = np.array(sd)
+    # the same rule on the (relative) speed along the parameter: a long kernel that reaches
+    # round a hairpin onto the other leg pulls the legs together, which leaves their
+    # curvature near zero but slows the fitted curve there
+    S = np.array(sp)
+    S = S / np.median(S[0])
+    sds = np.array(sds)
+    ok = np.ones_like(K, dtype=bool)
+    for val, err in ((K, sd), (S, sds)):
+        lo = np.maximum.accumulate(val - ICI_GAMMA * err, axis=0)
+        hi = np.minimum.accumulate(val + ICI_GAMMA * err, axis=0)
+        ok &= lo <= hi
+    # a test that fails at a few isolated points is a false alarm of the noise; a bias fails
+    # it over a stretch: keep the majority vote over the selection window
+    near = max(1, int(round(max(SELECT_SMOOTH_M, 2.0 * h_fit) / g)))
+    ok = uniform_filter1d(ok.astype(float), 2 * near + 1, axis=1, mode=mode) > 0.5
+    jstar = np.sum(np.logical_and.accumulate(ok, axis=0), axis=0) - 1
+    # never a length whose curvature is too noisy to tell a drivable radius from noise
+    useful = ICI_GAMMA * sd < 0.5 / MIN_RADIUS_M
+    jfloor = np.where(useful.any(axis=0), np.argmax(useful, axis=0), nlev - 1)
+    jstar = np.maximum(jstar, jfloor)
+    jstar = np.maximum(jstar, 0).astype(float)
+    # the chosen level steps from knot to knot: take the median nearby (a lone false alarm
+    # goes; a stretch that needs a short length, such as either side of a kink in the
+    # curvature, keeps it) and smooth it a little
+    jsel = median_filter(jstar.astype(float), 2 * near + 1, mode=mode)
+    jsel = gaussian_filter1d(jsel, 0.5 * near, mode=mode)
+    j0 = np.clip(np.floor(jsel).astype(np.int64), 0, nlev - 1)
+    j1 = np.minimum(j0 + 1, nlev - 1)
+    fr = jsel - j0
+    cols_idx = np.arange(count)
+
+    def blend(arr):
+        A = np.array(arr)
+        return (1.0 - fr) * A[j0, cols_idx] + fr * A[j1, cols_idx]
+
+    kappa = (1.0 - fr) * K[j0, cols_idx] + fr * K[j1, cols_idx]
+    xb, yb, spb = blend(xs), blend(ys), blend(sp)
+    smooth = lens[0] * SMOOTH_RATIO ** jsel
+    # arc length at the knots (trapezoid on the speed)
+    if closed:
+        seg = 0.5 * g * (spb + np.roll(spb, -1))
+        s = np.concatenate([[0.0], np.cumsum(seg[:-1])])
+        length = float(np.sum(seg))
+    else:
+        seg = 0.5 * g * (spb[:-1] + spb[1:])
+        s = np.concatenate([[0.0], np.cumsum(seg)])
+        length = float(s[-1])
+    v = tq
+    return _Fit(v=v, s=s, x=xb, y=yb, kappa=kappa, smooth=smooth, length=length,
+                noise_m=noise, bin_m=bin_m, knot_m=g)
 
 
 # --------------------------------------------------------------------------------------------
@@ -536,29 +1045,34 @@ def _where(rows, k: int) -> str:
     return f"line {rows[k]}" if rows is not None else f"point {k}"
 
 
-def _loo_prediction(u: np.ndarray, cols: list[np.ndarray], closed: bool, period: float):
-    """Leave-one-out cubic prediction of each point from its two neighbours on each side.
+def _loo_prediction(u: np.ndarray, cols: list[np.ndarray], closed: bool, period: float,
+                    side: int = 2):
+    """Leave-one-out polynomial prediction of each point from ``side`` neighbours on each side
+    (Lagrange interpolation of degree ``2 side - 1``).
 
     Returns the extended columns, the predictions at the interior points and the noise gain
     ``sqrt(1 + sum w²)`` of the prediction residual for white noise.
     """
     if closed:
-        ue = np.concatenate([u[-2:] - period, u, u[:2] + period])
-        cols = [np.concatenate([c[-2:], c, c[:2]]) for c in cols]
+        ue = np.concatenate([u[-side:] - period, u, u[:side] + period])
+        cols = [np.concatenate([c[-side:], c, c[:side]]) for c in cols]
     else:
         ue = u
-    t = ue[2:-2]
-    nodes = [ue[:-4], ue[1:-3], ue[3:-1], ue[4:]]
+    n = ue.size
+    t = ue[side:n - side]
+    offs = [o for o in range(-side, side + 1) if o != 0]
+    nodes = [ue[side + o:n - side + o] for o in offs]
     w = []
-    for a in range(4):
+    for a in range(len(offs)):
         num = np.ones_like(t)
         den = np.ones_like(t)
-        for b in range(4):
+        for b in range(len(offs)):
             if a != b:
                 num = num * (t - nodes[b])
                 den = den * (nodes[a] - nodes[b])
         w.append(num / den)
-    preds = [w[0] * c[:-4] + w[1] * c[1:-3] + w[2] * c[3:-1] + w[3] * c[4:] for c in cols]
+    preds = [sum(wi * c[side + o:n - side + o] for wi, o in zip(w, offs, strict=True))
+             for c in cols]
     gain = np.sqrt(1.0 + sum(wi**2 for wi in w))
     return cols, preds, gain
 
@@ -567,18 +1081,56 @@ def _mad_sigma(r: np.ndarray) -> float:
     return float(1.4826 * np.median(np.abs(r - np.median(r))))
 
 
-def _estimate_noise(x: np.ndarray, y: np.ndarray, u: np.ndarray, closed: bool) -> float:
-    """Position noise across the path from leave-one-out cubic residuals (robust MAD). [m]"""
-    if u.size < 5:
+def _estimate_noise(x: np.ndarray, y: np.ndarray, u: np.ndarray, closed: bool,
+                    period: float | None = None) -> float:
+    """Position noise across the path from leave-one-out quintic residuals (robust MAD). [m]
+
+    Each point is predicted from three neighbours on each side by the quintic through them;
+    the residual across the path, divided by its white-noise gain, estimates the noise (median
+    absolute deviation scaled by 1.4826 for a normal distribution: Hampel, J. Am. Stat. Assoc.
+    69, 1974). A quintic passes a smooth curve with an error of order ``h^6`` (a circle of
+    radius 15 m sampled every 5 m: about 1 mm), so the estimate sees the noise, not the shape.
+    Long traces are estimated on every k-th point (at most ``NOISE_SAMPLE`` of them).
+    """
+    side = 3
+    if u.size < 2 * side + 2:
         return 0.0
-    period = u[-1] + math.hypot(x[-1] - x[0], y[-1] - y[0])
-    (xe, ye), (px, py), gain = _loo_prediction(u, [x, y], closed, period)
+    if period is None:
+        period = u[-1] + math.hypot(x[-1] - x[0], y[-1] - y[0])
+    if closed:
+        ue = np.concatenate([u[-side:] - period, u, u[:side] + period])
+        xe = np.concatenate([x[-side:], x, x[:side]])
+        ye = np.concatenate([y[-side:], y, y[:side]])
+    else:
+        ue, xe, ye = u, x, y
+    n = ue.size
+    every = max(1, (n - 2 * side) // NOISE_SAMPLE)
+    centre = np.arange(side, n - side, every)
+    offs = [o for o in range(-side, side + 1) if o != 0]
+    t = ue[centre]
+    nodes = [ue[centre + o] for o in offs]
+    px = np.zeros(centre.size)
+    py = np.zeros(centre.size)
+    w2 = np.zeros(centre.size)
+    for a, oa in enumerate(offs):
+        num = np.ones_like(t)
+        den = np.ones_like(t)
+        for b in range(len(offs)):
+            if a != b:
+                num = num * (t - nodes[b])
+                den = den * (nodes[a] - nodes[b])
+        wa = num / den
+        px += wa * xe[centre + oa]
+        py += wa * ye[centre + oa]
+        w2 += wa * wa
+    gain = np.sqrt(1.0 + w2)
     # only the residual across the path: noise along the path is absorbed by the chord
-    # parameter, which is itself built from the noisy points
-    tx, ty = xe[3:-1] - xe[1:-3], ye[3:-1] - ye[1:-3]
+    # parameter, which is itself built from the points
+    tx, ty = xe[centre + 1] - xe[centre - 1], ye[centre + 1] - ye[centre - 1]
     tn = np.hypot(tx, ty)
     tn[tn == 0.0] = 1.0
-    return _mad_sigma(((xe[2:-2] - px) * ty - (ye[2:-2] - py) * tx) / tn / gain)
+    r = ((xe[centre] - px) * ty - (ye[centre] - py) * tx) / tn / gain
+    return _mad_sigma(r)
 
 
 def _elevation_sigma(z: np.ndarray, u: np.ndarray, closed: bool, gap: float,
@@ -597,47 +1149,131 @@ def _elevation_sigma(z: np.ndarray, u: np.ndarray, closed: bool, gap: float,
     return max(ELEVATION_SIGMA_M, sig)
 
 
-def _smoothing_windows(noise_m: float, spacing_m: float) -> tuple[float, float]:
-    """Pre-smoothing window and curvature low-pass for an estimated position noise.
+def _rounding_grid(a: np.ndarray) -> float:
+    """Largest power-of-ten grid (1e-9 .. 1) that all values lie on, 0 for none. [unit of a]"""
+    a = np.asarray(a, dtype=float)
+    if a.size > 20000:
+        a = a[:: a.size // 20000]
+    scale = max(float(np.max(np.abs(a))), 1.0)
+    for k in range(0, 10):
+        f = a * 10.0**k
+        if np.max(np.abs(f - np.rint(f))) <= max(1e-3, 1e-12 * scale * 10.0**k):
+            return 10.0**-k
+    return 0.0
 
-    Engineering judgement, tuned on circles of radius 80-150 m with 0.3 m Gaussian noise at
-    1-5 m spacing (worst error over the lap about 1.7 %, design target 3 %). The curvature error
-    of a local fit over a window W holding n points scales as ``noise * sqrt(720 / n) / W²``;
-    the curvature low-pass grows with the noise so that this stays near 2e-4 1/m.
 
-    Parameters
-    ----------
-    noise_m : float
-        Estimated position noise (standard deviation, across the path). [m]
-    spacing_m : float
-        Median spacing of the points. [m]
+def _check_units_xy(x, y, src):
+    """x/y that span a few metres with points millimetres apart were typed in kilometres."""
+    seg = np.hypot(np.diff(x), np.diff(y))
+    seg = seg[seg > 0]
+    if seg.size == 0:
+        return
+    span = max(float(np.ptp(x)), float(np.ptp(y)))
+    med = float(np.median(seg))
+    if span < KM_HINT_SPAN_M and med < KM_HINT_SPACING_M:
+        raise InputError(f"x_m/y_m span only {span:.3g} m with points {1000 * med:.2g} mm "
+                         "apart: looks like kilometres; multiply by 1000 to give metres",
+                         src, "x_m")
 
-    Returns
-    -------
-    tuple of float
-        Savitzky-Golay (local cubic) window on the positions, 0 for none [m], and the standard
-        deviation of the Gaussian low-pass on curvature [m].
+
+def _check_radians(lat, lon, src):
+    """lat/lon that all fit in ±pi/2, ±pi and make a tiny trace as degrees are radians."""
+    if not (np.all(np.abs(lat) <= 0.5 * math.pi) and np.all(np.abs(lon) <= math.pi)):
+        return
+    e, nn = latlon_to_local(lat, lon)
+    seg = np.hypot(np.diff(e), np.diff(nn))
+    seg = seg[seg > 0]
+    if seg.size == 0:
+        return
+    length = float(np.sum(seg))
+    med = float(np.median(seg))
+    if length < RAD_HINT_LENGTH_M and med < RAD_HINT_SPACING_M:
+        raise InputError(f"lat_deg/lon_deg all lie within ±1.571/±3.142 and the trace is only "
+                         f"{length:.3g} m long as degrees: looks like radians; multiply by "
+                         "57.2958 to give degrees", src, "lat_deg")
+
+
+def _check_reversal(x, y, u, noise, spacing, src, rows):
+    """Error where the path turns back on itself (a turn above ``REVERSAL_TURN_DEG`` between
+    chords a few spacings long, longer than the noise): a smoothed fit would hide it."""
+    reach = max(spacing, 10.0 * noise, 1.0)
+    if u[-1] < 3.0 * reach:
+        return
+    k = np.unique(np.searchsorted(u, np.arange(0.0, u[-1], reach)))
+    if k.size < 3:
+        return
+    cx, cy = np.diff(x[k]), np.diff(y[k])
+    cn = np.hypot(cx, cy)
+    ok = cn > 0.25 * reach  # a chord across the turning point itself may be very short
+    cn[~ok] = 1.0
+    cos1 = np.where(ok[:-1] & ok[1:], (cx[:-1] * cx[1:] + cy[:-1] * cy[1:])
+                    / (cn[:-1] * cn[1:]), 1.0)
+    cos2 = np.ones_like(cos1)
+    if cx.size > 2:
+        # across a short middle chord (the turning point itself)
+        cos2[:-1] = np.where(ok[:-2] & ok[2:] & ~ok[1:-1], (cx[:-2] * cx[2:] + cy[:-2] * cy[2:])
+                             / (cn[:-2] * cn[2:]), 1.0)
+    cosang = np.minimum(cos1, cos2)
+    bad = np.flatnonzero(cosang < math.cos(math.radians(REVERSAL_TURN_DEG)))
+    if bad.size:
+        j = int(k[bad[0] + 1])
+        turn = math.degrees(math.acos(max(-1.0, min(1.0, float(cosang[bad[0]])))))
+        raise InputError(f"radius 0 m at {u[j]:.0f} m along the track (near {_where(rows, j)}; "
+                         f"the path turns back by {turn:.0f} deg within {2 * reach:.1f} m): the "
+                         "trace zig-zags or crosses itself; check the points near there", src)
+
+
+def _end_tangents(x, y, reach):
+    """Unit directions of travel at the end and at the start, over about ``reach`` metres."""
+    d_end = np.hypot(x - x[-1], y - y[-1])
+    far = np.flatnonzero(d_end >= reach)
+    j = int(far[-1]) if far.size else 0
+    te = np.array([x[-1] - x[j], y[-1] - y[j]])
+    d_st = np.hypot(x - x[0], y - y[0])
+    far = np.flatnonzero(d_st >= reach)
+    k = int(far[0]) if far.size else x.size - 1
+    ts = np.array([x[k] - x[0], y[k] - y[0]])
+    return te / (np.linalg.norm(te) or 1.0), ts / (np.linalg.norm(ts) or 1.0)
+
+
+def _closing_turn_deg(x, y, reach, noise=0.0) -> float:
+    """Largest turn (deg) of the path through the closing segment (last point -> first).
+
+    The closing chord is compared with the direction of travel at the end and at the start; a
+    chord shorter than a tenth of ``reach`` (or than 5 noise standard deviations, when its
+    direction is mostly noise) is skipped and the two directions are compared.
     """
-    if noise_m < 0.01 or noise_m / max(spacing_m, 1e-9) < 0.005:
-        return 0.0, CLEAN_CURVATURE_SIGMA_M
-    w1 = max(7.0 * spacing_m, 100.0 * math.sqrt(noise_m) * spacing_m**0.25)
-    target = 2.0e-4
-    wk = (noise_m * math.sqrt(720.0 * spacing_m) / target) ** 0.4
-    return w1, max(CLEAN_CURVATURE_SIGMA_M, wk / 2.5)
+    te, ts = _end_tangents(x, y, reach)
+    c = np.array([x[0] - x[-1], y[0] - y[-1]])
+    cn = float(np.linalg.norm(c))
+
+    def ang(a, b):
+        return math.degrees(math.acos(max(-1.0, min(1.0, float(np.dot(a, b))))))
+
+    if cn < max(0.1 * reach, 5.0 * noise):
+        return ang(te, ts)
+    c = c / cn
+    return max(ang(te, c), ang(c, ts))
 
 
-def _build(x, y, z, bank_deg, width, *, closed, step_m, name, source, sector_starts_m, rows):
+def _build(x, y, z, bank_deg, width, *, closed, step_m, name, source, sector_starts_m, rows,
+           noise_m=None, grid_m=None):
     src = source or None
     if not (isinstance(step_m, int | float) and math.isfinite(step_m) and step_m > 0):
         raise InputError(f"step = {step_m} must be a positive number of metres; try 1.0",
                          src, "step_m")
+    if noise_m is not None and not (isinstance(noise_m, int | float) and
+                                    math.isfinite(noise_m) and 0 <= noise_m <= MAX_NOISE_M):
+        raise InputError(f"noise = {noise_m} must be a number of metres from 0 to "
+                         f"{MAX_NOISE_M:g}; leave it out to estimate it from the points",
+                         src, "noise_m")
     x = np.asarray(x, dtype=float)
     y = np.asarray(y, dtype=float)
     rows_arr = np.asarray(rows) if rows is not None else None
     if x.size < 2:
         raise InputError(f"only {x.size} point(s); give at least {MIN_POINTS} distinct points "
                          "along the centreline", src)
-    # drop consecutive duplicates
+    # drop repeated points (consecutive duplicates)
     seg = np.hypot(np.diff(x), np.diff(y))
     keep = np.concatenate([[True], seg > DUPLICATE_M])
     idx = np.flatnonzero(keep)
@@ -660,56 +1296,56 @@ def _build(x, y, z, bank_deg, width, *, closed, step_m, name, source, sector_sta
                          f"{med:.2g} m); fill the gap or remove the stray point",
                          src, _where(rws, k))
     gap = math.hypot(x[-1] - x[0], y[-1] - y[0])
-    if closed is None:
-        closed = gap <= max(CLOSE_GAP_SPACINGS * med, CLOSE_GAP_MIN_M)
-    if closed:
-        if gap <= DUPLICATE_M:  # last point repeats the first
+    if gap <= DUPLICATE_M and x.size > MIN_POINTS:  # last point repeats the first
+        if closed is None or closed:
             x, y = x[:-1], y[:-1]
             z, bank_deg, width = (None if a is None else a[:-1] for a in (z, bank_deg, width))
             rws = None if rws is None else rws[:-1]
             gap = math.hypot(x[-1] - x[0], y[-1] - y[0])
-        elif gap > jump_lim:
+            repeated_end = True
+        else:
+            repeated_end = False
+    else:
+        repeated_end = False
+    # direction of travel over a few spacings (and beyond the noise) at both ends
+    s0 = _index_noise(x, y)
+    reach = max(3.0 * med, 10.0 * s0, 1.0, 1.5 * gap)
+    turn = _closing_turn_deg(x, y, reach, s0)
+    if closed is None:
+        closed = (gap <= max(CLOSE_GAP_SPACINGS * med, CLOSE_GAP_MIN_M) or repeated_end) \
+            and turn < CLOSE_MAX_TURN_DEG
+    elif closed:
+        if gap > jump_lim:
             raise InputError(f"closed track but its ends are {gap:.0f} m apart; mark it open "
                              "(# closed: false / --open) or add the missing points", src)
+        if turn >= CLOSE_MAX_TURN_DEG:
+            raise InputError(f"closed track but the path turns back by {turn:.0f} deg from the "
+                             "last point to the first; mark it open (# closed: false / --open) "
+                             "or give the points of a full lap", src)
     _check_bank(bank_deg, src, rws)
     if width is not None and np.any(width <= 0):
         k = int(np.flatnonzero(width <= 0)[0])
         raise InputError(f"width_m = {width[k]:g} must be > 0", src, _where(rws, k))
 
-    # chord-length parameter of the points
-    u = np.concatenate([[0.0], np.cumsum(np.hypot(np.diff(x), np.diff(y)))])
+    noise_raw = _estimate_noise(x, y, np.concatenate(
+        [[0.0], np.cumsum(np.hypot(np.diff(x), np.diff(y)))]), closed)
+    if noise_m is None and noise_raw > max(ZIGZAG_NOISE_SPACINGS * med, ZIGZAG_MIN_M):
+        raise InputError(f"the points step sideways by about {noise_raw:.1f} m from one to the "
+                         f"next (median spacing {med:.2g} m): the trace zig-zags; give the "
+                         "points in driving order along the centreline", src)
+    # parameter of the points (chord length, robust to noise)
+    u, close_u = _chord_parameter(x, y, closed)
+    period = u[-1] + close_u if closed else None
+    if closed and close_u <= 0.0:
+        period = u[-1] + max(gap, med)
     if z is not None:
-        _check_grade(z, u, closed, gap, src, rws)
-    noise = _estimate_noise(x, y, u, closed)
-    if noise > max(ZIGZAG_NOISE_SPACINGS * med, ZIGZAG_MIN_M):
-        raise InputError(f"the points step sideways by about {noise:.1f} m from one to the next "
-                         f"(median spacing {med:.2g} m): the trace zig-zags; give the points "
-                         "in driving order along the centreline", src)
-    w1, sig_k = _smoothing_windows(noise, med)
-    xs, ys, us = x, y, u
-    if w1 > 0:
-        xs, ys, us = _presmooth(x, y, u, closed, gap, med, w1)
+        _check_grade(z, u, closed, (period - u[-1]) if closed else gap, src, rws)
+    if grid_m is None:
+        grid_m = max(_rounding_grid(x), _rounding_grid(y))
+    _check_reversal(x, y, u, s0, med, src, rws)
+    fit = _fit_centreline(x, y, u, closed, period, noise_m, grid_m)
+    length = fit.length
 
-    # interpolating cubic spline through (pre-smoothed) points
-    if closed:
-        period = us[-1] + math.hypot(xs[-1] - xs[0], ys[-1] - ys[0])
-        uk = np.append(us, period)
-        sx = CubicSpline(uk, np.append(xs, xs[0]), bc_type="periodic")
-        sy = CubicSpline(uk, np.append(ys, ys[0]), bc_type="periodic")
-    else:
-        uk = us
-        sx = CubicSpline(uk, xs, bc_type="not-a-knot")
-        sy = CubicSpline(uk, ys, bc_type="not-a-knot")
-    # arc length by Simpson's rule on each knot interval (split in 4)
-    sub = 4
-    uf = (uk[:-1, None] + np.diff(uk)[:, None] * (np.arange(sub) / sub)[None, :]).ravel()
-    uf = np.append(uf, uk[-1])
-    speed = np.hypot(sx(uf, 1), sy(uf, 1))
-    um = 0.5 * (uf[:-1] + uf[1:])
-    speed_m = np.hypot(sx(um, 1), sy(um, 1))
-    ds_f = np.diff(uf) / 6.0 * (speed[:-1] + 4.0 * speed_m + speed[1:])
-    sf = np.concatenate([[0.0], np.cumsum(ds_f)])
-    length = float(sf[-1])
     if closed:
         n = max(int(round(length / step_m)), MIN_POINTS)
         ds = length / n
@@ -719,26 +1355,20 @@ def _build(x, y, z, bank_deg, width, *, closed, step_m, name, source, sector_sta
     dist = np.arange(n, dtype=float) * ds
     if not closed:
         dist[-1] = length
-    ui = np.interp(dist, sf, uf)
-    xi, yi = sx(ui), sy(ui)
-    dx, dy = sx(ui, 1), sy(ui, 1)
-    ddx, ddy = sx(ui, 2), sy(ui, 2)
-    kappa = (dx * ddy - dy * ddx) / np.hypot(dx, dy) ** 3
-    mode = "wrap" if closed else "nearest"
-    kappa = gaussian_filter1d(kappa, sig_k / ds, mode=mode, truncate=4.0)
+    xi, yi, kappa, u_at, smooth = _resample(fit, dist, closed, period)
     kmax = np.abs(kappa)
     kk = int(np.argmax(kmax))
     if kmax[kk] > 1.0 / MIN_RADIUS_M:
+        near = min(int(np.searchsorted(u, u_at[kk])), u.size - 1)
         raise InputError(f"radius {1.0 / kmax[kk]:.2f} m at {dist[kk]:.0f} m along the track "
-                         f"(below {MIN_RADIUS_M:g} m): the trace zig-zags or crosses itself; "
-                         "check the points near there", src)
+                         f"(near {_where(rws, near)}; below {MIN_RADIUS_M:g} m): the trace "
+                         "zig-zags or crosses itself; check the points near there", src)
 
-    # per-point channels, interpolated in the original chord parameter
-    u_at = _orig_param(ui, us, u, w1)
-    period_u = u[-1] + gap if closed else None
+    # per-point channels, interpolated in the chord parameter of the points
+    period_u = period if closed else None
     zi = _interp(z, u, u_at, period_u) if z is not None else np.zeros(n)
     if z is not None:
-        sig_z = _elevation_sigma(z, u, closed, gap, med)
+        sig_z = _elevation_sigma(z, u, closed, (period - u[-1]) if closed else gap, med)
         if closed:
             zs = gaussian_filter1d(zi, sig_z / ds, mode="wrap", truncate=4.0)
             dz = (np.roll(zs, -1) - np.roll(zs, 1)) / (2.0 * ds)
@@ -758,7 +1388,33 @@ def _build(x, y, z, bank_deg, width, *, closed, step_m, name, source, sector_sta
     return Track(name=name, source=source, closed=bool(closed), step_m=float(ds),
                  length_m=length, distance_m=c(dist), x_m=c(xi), y_m=c(yi), z_m=c(zi),
                  curvature_1pm=c(kappa), grade_rad=c(grade), bank_rad=c(bank), width_m=c(wid),
-                 corners=corners, sector_starts_m=sectors)
+                 corners=corners, sector_starts_m=sectors, noise_m=float(fit.noise_m),
+                 noise_given=noise_m is not None, input_points=int(x.size),
+                 input_spacing_m=med, fit_bin_m=float(fit.bin_m), fit_knot_m=float(fit.knot_m),
+                 smoothing_m=c(smooth))
+
+
+def _resample(fit: _Fit, dist: np.ndarray, closed: bool, period):
+    """Positions, curvature, chord parameter and smoothing length of the fitted curve at the
+    output distances (cubic interpolation of the fitted curve along its arc length)."""
+    if closed:
+        s = np.append(fit.s, fit.length)
+
+        def per(a):
+            return np.append(a, a[0])
+
+        sx = CubicSpline(s, per(fit.x), bc_type="periodic")
+        sy = CubicSpline(s, per(fit.y), bc_type="periodic")
+        sk = CubicSpline(s, per(fit.kappa), bc_type="periodic")
+        u_at = np.interp(dist, s, np.append(fit.v, period))
+        sm = np.interp(dist, s, per(fit.smooth))
+    else:
+        sx = CubicSpline(fit.s, fit.x)
+        sy = CubicSpline(fit.s, fit.y)
+        sk = CubicSpline(fit.s, fit.kappa)
+        u_at = np.interp(dist, fit.s, fit.v)
+        sm = np.interp(dist, fit.s, fit.smooth)
+    return sx(dist), sy(dist), sk(dist), u_at, sm
 
 
 def _smooth_open(a: np.ndarray, sigma: float) -> np.ndarray:
@@ -777,42 +1433,10 @@ def _smooth_open(a: np.ndarray, sigma: float) -> np.ndarray:
     return gaussian_filter1d(ext, sigma, mode="nearest", truncate=4.0)[pad:pad + a.size]
 
 
-def _orig_param(ui, us, u, w1):
-    """Map the spline parameter back to the chord parameter of the original points."""
-    if w1 <= 0:
-        return ui
-    # pre-smoothed points are a uniform resample of the original polyline: us spans u
-    return ui * (u[-1] / us[-1]) if us[-1] > 0 else ui
-
-
 def _interp(a, u, ut, period):
     if period is not None:
         return np.interp(ut, np.append(u, period), np.append(a, a[0]))
     return np.interp(ut, u, a)
-
-
-def _presmooth(x, y, u, closed, gap, spacing, w1):
-    """Resample the polyline uniformly and smooth it with a local cubic (Savitzky-Golay)."""
-    from scipy.signal import savgol_filter  # only noisy traces need it (a slow import)
-
-    total = u[-1] + (gap if closed else 0.0)
-    m = max(int(round(total / spacing)), MIN_POINTS)
-    if closed:
-        ug = np.arange(m) * (total / m)
-        xg = np.interp(ug, np.append(u, total), np.append(x, x[0]))
-        yg = np.interp(ug, np.append(u, total), np.append(y, y[0]))
-    else:
-        ug = np.linspace(0.0, total, m)
-        xg, yg = np.interp(ug, u, x), np.interp(ug, u, y)
-    h = total / m
-    win = int(round(w1 / h)) | 1
-    win = max(7, min(win, (m - 1) | 1 if (m - 1) % 2 else m - 2))
-    mode = "wrap" if closed else "interp"
-    xs = savgol_filter(xg, win, 3, mode=mode)
-    ys = savgol_filter(yg, win, 3, mode=mode)
-    # chord parameter of the smoothed points
-    us = np.concatenate([[0.0], np.cumsum(np.hypot(np.diff(xs), np.diff(ys)))])
-    return xs, ys, us
 
 
 def _check_bank(bank_deg, src, rows):
@@ -913,7 +1537,12 @@ def detect_corners(distance_m, curvature_1pm, closed, on_1pm: float = CORNER_ON_
     shift = 0
     if closed:
         quiet = np.flatnonzero(np.abs(k) < off_1pm)
-        if quiet.size == 0:  # no straight anywhere (a circle): one corner, the whole lap
+        ak = np.abs(k)
+        ring = (ak.max() > 0 and (np.all(k > 0) or np.all(k < 0))
+                and ak.min() >= RING_MIN_SHARE * ak.max())
+        if quiet.size == 0 or ring:
+            # no straight anywhere (a circle, or a ring whose curvature never falls below
+            # RING_MIN_SHARE of its largest): one corner, the whole lap
             j = int(np.argmax(np.abs(k)))
             return (Corner(1, "left" if k[j] > 0 else "right", 0.0, float(d[j]),
                            float(d[-1]), float(1.0 / abs(k[j]))),)

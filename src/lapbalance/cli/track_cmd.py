@@ -36,6 +36,14 @@ def track_summary(tr: Track) -> dict:
         "elevation_range_m": round(float(np.ptp(tr.z_m)), 3),
         "max_grade_pct": round(100.0 * float(np.max(np.abs(np.tan(tr.grade_rad)))), 3),
         "max_bank_deg": round(float(np.degrees(np.max(np.abs(tr.bank_rad)))), 3),
+        "noise_m": round(float(tr.noise_m), 4) if math.isfinite(tr.noise_m) else None,
+        "noise_given": bool(tr.noise_given),
+        "input_points": int(tr.input_points),
+        "input_spacing_m": round(float(tr.input_spacing_m), 4)
+        if math.isfinite(tr.input_spacing_m) else None,
+        "smoothing_m_range": [round(float(np.min(tr.smoothing_m)), 2),
+                              round(float(np.max(tr.smoothing_m)), 2)]
+        if tr.smoothing_m is not None else None,
         "sector_starts_m": [round(s, 3) for s in tr.sector_starts_m],
         "corners": [
             {"id": c.id, "direction": c.direction, "entry_m": round(c.entry_m, 1),
@@ -48,14 +56,18 @@ def track_summary(tr: Track) -> dict:
 
 def track_map_png(tr: Track, fmt: str = "png") -> bytes:
     """Draw the track map (corners labelled at their apex; edges and the driving line when
-    the track has a width) and return PNG (or ``svg``, ``pdf``) bytes."""
+    the track has a width) with the curvature against distance beside it, and return PNG (or
+    ``svg``, ``pdf``) bytes."""
     import matplotlib
 
     matplotlib.use("Agg")
     from matplotlib.figure import Figure
 
-    fig = Figure(figsize=(7.0, 7.0), dpi=110)
-    ax = fig.add_subplot(1, 1, 1)
+    from lapbalance.plots import draw_track_curvature
+
+    fig = Figure(figsize=(13.0, 6.5), dpi=110, layout="constrained")
+    ax = fig.add_subplot(1, 2, 1)
+    draw_track_curvature(fig.add_subplot(1, 2, 2), tr)
     x, y = tr.x_m, tr.y_m
     if tr.closed:
         x, y = np.append(x, x[0]), np.append(y, y[0])
@@ -103,9 +115,13 @@ def track_map_png(tr: Track, fmt: str = "png") -> bytes:
               help="Spacing of the resampled points [m].")
 @click.option("--closed/--open", "closed", default=None,
               help="Force a closed circuit or an open stage (default: from the file).")
+@click.option("--noise-m", type=float, default=None,
+              help="Position noise of the points (standard deviation) [m]; default: "
+                   "estimated from the points; 0 trusts them as exact.")
 @click.option("--map", "map_png", type=click.Path(dir_okay=False), default=None,
-              metavar="FILE", help="Save a track map with corners labelled (PNG; SVG or "
-                                   "PDF when the file name ends in .svg or .pdf).")
+              metavar="FILE", help="Save a track map with corners labelled and the curvature "
+                                   "against distance beside it (PNG; SVG or PDF when the "
+                                   "file name ends in .svg or .pdf).")
 @line_options
 @click.option("--car-width-m", type=float, default=None, metavar="M",
               help="Car width for --line min-curvature [m] (default 2.0, or from --car).")
@@ -116,25 +132,28 @@ def track_map_png(tr: Track, fmt: str = "png") -> bytes:
               "the other commands read.")
 @click.option("--force", is_flag=True, help="Replace an existing --out file.")
 @json_option
-def track_command(track_file, step_m, closed, map_png, line, track_width_m, line_margin_m,
-                  car_width_m, car_file, out_csv, force, as_json):
-    """Load TRACK_FILE (CSV), print its length, corners and sectors.
+def track_command(track_file, step_m, closed, noise_m, map_png, line, track_width_m,
+                  line_margin_m, car_width_m, car_file, out_csv, force, as_json):
+    """Load TRACK_FILE (CSV), print its length, noise, corners and sectors.
 
     With --line min-curvature, build the minimum-curvature line inside the track width and
     describe (and --out: export) that line instead.
     """
     from pathlib import Path
 
-    from lapbalance.track import load_track
+    from lapbalance.track import MAX_NOISE_M, load_track
 
     if not 0 < step_m <= 50:
         raise InputError(f"= {step_m} must be between 0 and 50 m", "--step-m")
+    if noise_m is not None and not (math.isfinite(noise_m) and 0 <= noise_m <= MAX_NOISE_M):
+        raise InputError(f"= {noise_m} must be between 0 and {MAX_NOISE_M:g} m", "--noise-m")
     if out_csv and Path(out_csv).exists() and not force:
         raise InputError("already exists; pass --force to replace it or choose another --out",
                          out_csv)
     if car_width_m is not None and car_file:
         raise InputError("give --car or --car-width-m, not both", "--car-width-m")
-    tr = load_track(track_file, step_m=step_m, closed=closed)
+    tr = load_track(track_file, step_m=step_m, closed=closed, noise_m=noise_m)
+    ref = tr
     ref_length = tr.length_m
     if line != "centreline" or track_width_m is not None:
         from lapbalance import line as _line
@@ -180,6 +199,11 @@ def track_command(track_file, step_m, closed, map_png, line, track_width_m, line
     kind = "closed circuit" if tr.closed else "open stage"
     click.echo(f"{tr.name}  ({tr.source})")
     click.echo(f"{kind}, length {tr.length_m:.1f} m, {tr.n} points at {tr.step_m:.4f} m")
+    if ref.smoothing_m is not None:
+        how = "given" if ref.noise_given else "estimated"
+        click.echo(f"from {ref.input_points} input points {ref.input_spacing_m:.3g} m apart; position "
+                   f"noise {1000 * ref.noise_m:.0f} mm ({how}); smoothing "
+                   f"{float(np.min(ref.smoothing_m)):.1f}-{float(np.max(ref.smoothing_m)):.1f} m")
     if "line" in info:
         ln = info["line"]
         click.echo(f"{tr.line} line for a car {tr.car_width_m:.2f} m wide, margin "
