@@ -282,3 +282,29 @@ def test_track_command_reports_noise_and_draws_curvature(tmp_path):
     assert (tmp_path / "m.png").read_bytes()[:4] == b"\x89PNG"
     r = _run(p, "--noise-m", "-1")
     assert r.exit_code == 2 and "--noise-m" in r.output
+
+
+@pytest.mark.parametrize("radius", [15.0, 120.0, 1000.0])
+def test_fitted_positions_stay_on_the_circle(radius):
+    """The points of the fitted curve lie on the input circle (closed form: |p| = R), not on
+    the smaller circle a long smoothing kernel draws them to (its gain H shrinks a circle to
+    R·H), to 1 cm."""
+    n = int(round(2 * math.pi * radius))
+    phi = np.arange(n) * 2 * math.pi / n
+    tr = make_track(radius * np.cos(phi), radius * np.sin(phi), closed=True, step_m=1.0)
+    assert np.max(np.abs(np.hypot(tr.x_m, tr.y_m) - radius)) < 0.01
+
+
+def test_fitted_positions_follow_the_demo_centrelines():
+    """Every input point of a clean demo circuit lies within 0.3 m of the fitted line (the
+    track is 10-14 m wide; common practice: a map and a driving line need the road where it
+    is, not only its curvature)."""
+    from scipy.spatial import cKDTree
+
+    for name in ("veldmoor_ring.csv", "kettlewick_loops.csv"):
+        path = ROOT / "tracks" / name
+        rows = [ln for ln in path.read_text().splitlines() if ln and not ln.startswith("#")]
+        pts = np.array([[float(v) for v in ln.split(",")[:2]] for ln in rows[1:]])
+        tr = load_track(path)
+        dist, _ = cKDTree(np.c_[tr.x_m, tr.y_m]).query(pts)
+        assert dist.max() < 0.3, name

@@ -979,8 +979,12 @@ def _fit_centreline(x, y, u, closed, period, noise_m=None, grid_m=0.0) -> _Fit:
         # times too large and the arc H times too short; undone while H is above 1/2
         hk = np.clip(np.exp(-0.5 * (L * speed * kap) ** 2), 0.5, 1.0)
         ks.append(kap * hk)
-        xs.append(f[:, 0])
-        ys.append(f[:, 1])
+        # the same gain pulls the points toward the centre of curvature (radius R H instead
+        # of R): move them back along the normal by 1/kappa_true - 1/kappa_fit (signed)
+        big = np.abs(kap) > 1e-12
+        shift = np.where(big, (hk - 1.0) / np.where(big, kap * hk, 1.0), 0.0)
+        xs.append(f[:, 0] - y1 / speed * shift)
+        ys.append(f[:, 1] + x1 / speed * shift)
         sp.append(speed / hk)
     K = np.array(ks)
     sd = np.array(sd)
