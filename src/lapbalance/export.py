@@ -64,18 +64,28 @@ def summary_json(result: LapResult) -> str:
     return json.dumps(result.summary(), indent=2, allow_nan=False) + "\n"
 
 
+def write_lap_files(result: LapResult, folder: str | Path,
+                    extra: dict[str, bytes] | None = None) -> None:
+    """Write channels.csv, corners.csv, summary.json (and ``extra`` files) into ``folder``
+    (a staging folder of :func:`lapbalance.outputs.output_folder`)."""
+    tmp = Path(folder)
+    (tmp / "channels.csv").write_text(channels_csv(result), encoding="utf-8")
+    (tmp / "corners.csv").write_text(corners_csv(result), encoding="utf-8")
+    (tmp / "summary.json").write_text(summary_json(result), encoding="utf-8")
+    for name, data in (extra or {}).items():
+        (tmp / name).parent.mkdir(parents=True, exist_ok=True)
+        (tmp / name).write_bytes(data)
+
+
 def write_lap_folder(result: LapResult, out_dir: str | Path, force: bool = False,
                      extra: dict[str, bytes] | None = None) -> Path:
     """Write channels.csv, corners.csv, summary.json (and ``extra`` files) into ``out_dir``.
 
-    The folder is filled in a temporary sibling and swapped in only when complete.
+    The files are staged and moved in only when complete; ``out_dir`` must be new, empty or
+    an earlier lapbalance result (replaced only with ``force``; see
+    :mod:`lapbalance.outputs`).
     """
     out_dir = Path(out_dir)
-    with staged_dir(out_dir, force=force) as tmp:
-        (tmp / "channels.csv").write_text(channels_csv(result), encoding="utf-8")
-        (tmp / "corners.csv").write_text(corners_csv(result), encoding="utf-8")
-        (tmp / "summary.json").write_text(summary_json(result), encoding="utf-8")
-        for name, data in (extra or {}).items():
-            (tmp / name).parent.mkdir(parents=True, exist_ok=True)
-            (tmp / name).write_bytes(data)
+    with staged_dir(out_dir, force=force, command="lap") as tmp:
+        write_lap_files(result, tmp, extra)
     return out_dir

@@ -13,7 +13,7 @@ import warnings
 import click
 
 from lapbalance import __version__
-from lapbalance.errors import InputError, PhysicsWarning
+from lapbalance.errors import InputError, PhysicsWarning, tidy
 
 
 class _Group(click.Group):
@@ -31,11 +31,29 @@ class _Group(click.Group):
         except KeyboardInterrupt:
             click.echo("lapbalance: interrupted; no partial output was written", err=True)
             sys.exit(130)
+        except BrokenPipeError:  # output piped into a program that stopped reading
+            import os
+
+            os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+            sys.exit(1)
+        except OSError as e:  # a path fault no reader or writer turned into words
+            if debug:
+                raise
+            from lapbalance.outputs import os_error_line
+
+            click.echo(f"lapbalance: {os_error_line(e, 'use the path')}", err=True)
+            sys.exit(2)
+        except MemoryError:
+            if debug:
+                raise
+            click.echo("lapbalance: out of memory; use a coarser --step-m, fewer sweep "
+                       "points or a smaller input", err=True)
+            sys.exit(2)
 
 
 def _show_warning(message, category, filename, lineno, file=None, line=None):
     prefix = "warning" if issubclass(category, PhysicsWarning) else category.__name__
-    click.echo(f"lapbalance: {prefix}: {message}", err=True)
+    click.echo(tidy(f"lapbalance: {prefix}: {message}"), err=True)
 
 
 @click.group(cls=_Group, context_settings={"help_option_names": ["-h", "--help"]})

@@ -16,11 +16,14 @@ from lapbalance.errors import InputError
 
 
 def _load_tracks(track_files, step_m, closed):
+    from lapbalance.cli.common import check_step, check_track_size
     from lapbalance.track import load_track
 
-    if step_m <= 0 or step_m > 50:
-        raise InputError(f"= {step_m} must be between 0 and 50 m", "--step-m")
-    return [load_track(f, step_m=step_m, closed=closed) for f in track_files]
+    check_step(step_m)
+    tracks = [load_track(f, step_m=step_m, closed=closed) for f in track_files]
+    for t in tracks:
+        check_track_size(t, step_m)
+    return tracks
 
 
 def split_settings(text: str) -> list[str]:
@@ -220,27 +223,35 @@ def compare_command(base_file, variant_files, track_files, set_variants, out_dir
                     force, as_json, step_m, closed, start_speed_kph):
     """Run BASE_FILE and each VARIANT_FILE (car files, e.g. with base = "...") over every
     --track; print lap times, deltas, aero balance and per-corner time won or lost."""
+    from contextlib import nullcontext
+
+    from lapbalance.cli.common import check_start_speed
     from lapbalance.compare import compare
+    from lapbalance.outputs import output_folder
 
     if not variant_files and not set_variants:
         raise InputError("give at least one variant: a car file after the base, or "
                          "--set-variant SECTION.KEY=VALUE[,...]", "compare")
-    base = load_car(base_file)
-    variants: list = [load_car(f) for f in variant_files]
-    for text in set_variants:
-        items = split_settings(text)
-        try:
-            base.with_overrides(items)  # report bad keys against --set-variant
-        except InputError as e:
-            raise InputError(e.message, "--set-variant", e.field) from None
-        variants.append(items)
-    tracks = _load_tracks(track_files, step_m, closed)
-    opts = {"start_speed_kph": start_speed_kph} if start_speed_kph is not None else {}
-    result = compare(base, variants, tracks, simulate_options=opts)
-    if out_dir:
-        from lapbalance.outputs import staged_dir
-
-        with staged_dir(out_dir, force=force) as tmp:
+    inputs = [base_file, *variant_files, *track_files]
+    # take the output folder first: a refused or unwritable folder fails before any lap
+    with (output_folder(out_dir, force, command="compare", inputs=inputs)
+          if out_dir else nullcontext()) as folder:
+        base = load_car(base_file)
+        variants: list = [load_car(f) for f in variant_files]
+        for text in set_variants:
+            items = split_settings(text)
+            try:
+                base.with_overrides(items)  # report bad keys against --set-variant
+            except InputError as e:
+                raise InputError(e.message, "--set-variant", e.field) from None
+            variants.append(items)
+        check_start_speed(start_speed_kph, [base, *[v for v in variants
+                                                    if not isinstance(v, list)]])
+        tracks = _load_tracks(track_files, step_m, closed)
+        opts = {"start_speed_kph": start_speed_kph} if start_speed_kph is not None else {}
+        result = compare(base, variants, tracks, simulate_options=opts)
+        if folder is not None:
+            tmp = folder.staging
             for i, key in enumerate(result.tracks):
                 (tmp / f"compare_{key}.csv").write_text(
                     _csv_rows(result.summary_for(key), SUMMARY_COLUMNS), encoding="utf-8")
@@ -270,6 +281,8 @@ class _Progress:
         self.bar = None
 
     def __call__(self, done, total, row):
+        if not sys.stderr.isatty():  # no bar in logs and pipes (keeps errors one line)
+            return
         if self.bar is None:
             self.bar = click.progressbar(length=total, label="sweep", file=sys.stderr,
                                          show_pos=True)
@@ -329,8 +342,15 @@ def sweep_command(car_file, track_file, vary_specs, lhs_n, seed, workers, cluste
                   force, overrides, as_json, step_m, closed, start_speed_kph):
     """Run CAR_FILE over TRACK_FILE at every point of a grid (or Latin hypercube) of car
     settings; print lap time and lift-off figures per point."""
+    import os
+
+    from lapbalance.cli.common import check_int, check_start_speed
     from lapbalance.sweep import parse_vary, sweep
 
+    check_int(lhs_n, "--lhs", 1, 100_000, "each point is a whole lap")
+    check_int(seed, "--seed", 0, 2**32 - 1, "the seed of the Latin hypercube generator")
+    check_int(workers, "--workers", 1, max(64, 4 * (os.cpu_count() or 1)),
+              "each worker is a process holding its own solver and track, ~200 MB")
     method = "lhs" if lhs_n is not None else "grid"
     vary: dict[str, list[float]] = {}
     for spec in vary_specs:
@@ -339,13 +359,14 @@ def sweep_command(car_file, track_file, vary_specs, lhs_n, seed, workers, cluste
             raise InputError("is given twice; vary each key once", "--vary", key)
         vary[key] = values
     car = load_car(car_file, overrides)
+    check_start_speed(start_speed_kph, [car])
     (track,) = _load_tracks([track_file], step_m, closed)
     opts = {"start_speed_kph": start_speed_kph} if start_speed_kph is not None else {}
     bar = _Progress()
     try:
         rows = sweep(car, track, vary, method=method, n=lhs_n, workers=workers,
                      cluster=cluster, out=out_dir, seed=seed, progress=bar, force=force,
-                     simulate_options=opts)
+                     simulate_options=opts, inputs=[car_file, track_file])
     except KeyboardInterrupt:
         bar.close()
         kept = (f"; finished points are kept in {out_dir}/sweep.csv, rerun the same command "

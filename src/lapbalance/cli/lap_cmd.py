@@ -20,15 +20,17 @@ def track_options(f):
     return f
 
 
-def load_inputs(car_file, track_file, overrides, step_m, closed):
+def load_inputs(car_file, track_file, overrides, step_m, closed, start_speed_kph=None,
+                more_cars=()):
+    """Check the numeric options, load the car and the track (InputError on bad input)."""
+    from lapbalance.cli.common import check_start_speed, check_step, check_track_size
     from lapbalance.track import load_track
 
-    if not 0 < step_m <= 50:
-        from lapbalance.errors import InputError
-
-        raise InputError(f"= {step_m} must be between 0 and 50 m", "--step-m")
+    check_step(step_m)
     car = load_car(car_file, overrides)
+    check_start_speed(start_speed_kph, [car, *more_cars])
     track = load_track(track_file, step_m=step_m, closed=closed)
+    check_track_size(track, step_m)
     return car, track
 
 
@@ -111,24 +113,27 @@ def _num(x, fmt):
 def lap_command(car_file, track_file, out_dir, overrides, as_json, force, step_m, closed,
                 start_speed_kph, liftoff_only, plots):
     """Run CAR_FILE around TRACK_FILE; print lap time, sectors, corners and lift-off flags."""
-    from lapbalance.export import write_lap_folder
+    from contextlib import nullcontext
+
+    from lapbalance.export import write_lap_files
     from lapbalance.lap import simulate_lap
+    from lapbalance.outputs import output_folder
 
-    if out_dir:  # refuse an occupied folder before the lap is run, not after
-        from lapbalance.outputs import check_output_dir
-
-        check_output_dir(out_dir, force)
-    car, track = load_inputs(car_file, track_file, overrides, step_m, closed)
-    result = simulate_lap(car, track, start_speed_kph=start_speed_kph)
-    if out_dir:
-        extra = {}
-        if plots:
-            from lapbalance import plots as _plots
-
-            extra = _plots.lap_figures_png(result)
-        write_lap_folder(result, out_dir, force=force, extra=extra)
-    elif plots:
+    if plots and not out_dir:
         raise click.UsageError("--plots needs --out DIR")
+    # take the folder before the lap is run: refused or unwritable folders fail at once
+    with (output_folder(out_dir, force, command="lap", inputs=[car_file, track_file])
+          if out_dir else nullcontext()) as folder:
+        car, track = load_inputs(car_file, track_file, overrides, step_m, closed,
+                                 start_speed_kph)
+        result = simulate_lap(car, track, start_speed_kph=start_speed_kph)
+        if folder is not None:
+            extra = {}
+            if plots:
+                from lapbalance import plots as _plots
+
+                extra = _plots.lap_figures_png(result)
+            write_lap_files(result, folder.staging, extra)
     if as_json:
         echo_json(result.summary())
         return

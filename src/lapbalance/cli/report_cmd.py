@@ -29,26 +29,27 @@ def report_command(car_file, track_file, variants, overrides, out_file, force, s
 
     --set overrides apply to every car, so variants differ only by their own files.
     """
-    from lapbalance.errors import InputError
     from lapbalance.lap import simulate_lap
-    from lapbalance.report import write_report
+    from lapbalance.outputs import output_file, write_text_atomic
+    from lapbalance.report import build_report
 
     out = Path(out_file)
-    if out.exists() and not force:  # fail before the laps are run, not after
-        raise InputError("already exists; pass --force to replace it or choose another --out",
-                         out)
-    car, track = load_inputs(car_file, track_file, overrides, step_m, closed)
-    cars = [car] + [load_car(v, overrides) for v in variants]
     files = [car_file, *variants]
-    labels = [c.name for c in cars]
-    if len(set(labels)) < len(labels):
-        labels = [Path(f).stem for f in files]
-    results = []
-    for j, (c, lab) in enumerate(zip(cars, labels, strict=True)):
-        click.echo(f"[{j + 1}/{len(cars)}] {lab}: running the lap ...", err=True)
-        results.append(simulate_lap(c, track, start_speed_kph=start_speed_kph))
-    click.echo("rendering figures ...", err=True)
-    write_report(results, out, force=force, labels=labels)
+    # take the file first: an existing, unwritable or input file fails before any lap runs
+    with output_file(out, force, "--out", command="report", inputs=[*files, track_file]):
+        more = [load_car(v, overrides) for v in variants]
+        car, track = load_inputs(car_file, track_file, overrides, step_m, closed,
+                                 start_speed_kph, more)
+        cars = [car, *more]
+        labels = [c.name for c in cars]
+        if len(set(labels)) < len(labels):
+            labels = [Path(f).stem for f in files]
+        results = []
+        for j, (c, lab) in enumerate(zip(cars, labels, strict=True)):
+            click.echo(f"[{j + 1}/{len(cars)}] {lab}: running the lap ...", err=True)
+            results.append(simulate_lap(c, track, start_speed_kph=start_speed_kph))
+        click.echo("rendering figures ...", err=True)
+        write_text_atomic(out, build_report(results, labels))
     times = ", ".join(f"{lab} {r.lap_time_s:.3f} s" for lab, r in zip(labels, results,
                                                                        strict=True))
     click.echo(f"wrote {out} ({times})")

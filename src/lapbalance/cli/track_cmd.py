@@ -11,7 +11,6 @@ import numpy as np
 
 from lapbalance.cli import main
 from lapbalance.cli.common import echo_json, json_option, table
-from lapbalance.errors import InputError
 from lapbalance.outputs import write_bytes_atomic
 
 if TYPE_CHECKING:
@@ -83,7 +82,7 @@ def track_map_png(tr: Track) -> bytes:
                  "(blue left, orange right)", fontsize=9)
     ax.legend(loc="best", fontsize=8)
     buf = io.BytesIO()
-    fig.savefig(buf, format="png")
+    fig.savefig(buf, format="png", metadata={"Software": "lapbalance"})
     return buf.getvalue()
 
 
@@ -95,18 +94,25 @@ def track_map_png(tr: Track) -> bytes:
               help="Force a closed circuit or an open stage (default: from the file).")
 @click.option("--map", "map_png", type=click.Path(dir_okay=False), default=None,
               metavar="PNG", help="Save a track map with corners labelled.")
+@click.option("--force", is_flag=True, help="Replace an existing --map file.")
 @json_option
-def track_command(track_file, step_m, closed, map_png, as_json):
+def track_command(track_file, step_m, closed, map_png, force, as_json):
     """Load TRACK_FILE (CSV), print its length, corners and sectors."""
+    from contextlib import nullcontext
+
+    from lapbalance.cli.common import check_step, check_track_size
+    from lapbalance.outputs import output_file
     from lapbalance.track import load_track
 
-    if not 0 < step_m <= 50:
-        raise InputError(f"= {step_m} must be between 0 and 50 m", "--step-m")
-    tr = load_track(track_file, step_m=step_m, closed=closed)
-    info = track_summary(tr)
-    if map_png:
-        write_bytes_atomic(map_png, track_map_png(tr))
-        info["map_png"] = str(map_png)
+    check_step(step_m)
+    with (output_file(map_png, force, "--map", command="track", inputs=[track_file])
+          if map_png else nullcontext()):
+        tr = load_track(track_file, step_m=step_m, closed=closed)
+        check_track_size(tr, step_m)
+        info = track_summary(tr)
+        if map_png:
+            write_bytes_atomic(map_png, track_map_png(tr))
+            info["map_png"] = str(map_png)
     if as_json:
         echo_json(info)
         return

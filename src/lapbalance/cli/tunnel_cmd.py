@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import math
 import re
-from pathlib import Path
 
 import click
 
@@ -228,10 +227,19 @@ def _table_form(readings, car, restraint_height_m, drag_height_m, air_density, o
                 force, as_json):
     if car is None:
         raise click.UsageError("the table form needs --car CAR.toml (CG height, wheelbase)")
-    if out_path and not force:
-        if Path(out_path).exists():
-            raise InputError(f"{out_path} already exists; pass --force to replace it or "
-                             "choose another --out", "--out")
+    from contextlib import nullcontext
+
+    from lapbalance.outputs import output_file
+
+    with (output_file(out_path, force, "--out", command="tunnel",
+                      inputs=[readings, car.source])
+          if out_path else nullcontext()):
+        _table_run(readings, car, restraint_height_m, drag_height_m, air_density, out_path,
+                   as_json)
+
+
+def _table_run(readings, car, restraint_height_m, drag_height_m, air_density, out_path,
+               as_json):
     tab = tunnel.read_readings(readings)
     dh = drag_height_m if drag_height_m is not None else car.aero.drag_height
     rho = air_density if air_density is not None else car.air.density
@@ -240,7 +248,7 @@ def _table_form(readings, car, restraint_height_m, drag_height_m, air_density, o
     cols = tunnel.correct_table(tab, car.chassis.cg_height, car.chassis.wheelbase,
                                 restraint_height_m, rho, dh)
     if out_path:
-        write_text_atomic(out_path, columns_csv_text(cols))
+        write_text_atomic(out_path, columns_csv_text(cols, nan=""))
     if as_json:
         echo_json({k: [None if isinstance(v, float) and not math.isfinite(v) else
                        (float(v) if not isinstance(v, str) else v) for v in col]
