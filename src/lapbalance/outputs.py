@@ -219,6 +219,32 @@ def columns_csv_text(columns: Mapping[str, Sequence], float_fmt: str = "{:.6g}",
     return csv_text(names, rows)
 
 
+def check_free_space(folder: str | Path, need_bytes: int, option: str = "--out",
+                     shown: str | Path | None = None) -> None:
+    """Refuse at the start when ``folder``'s disk has less than ``need_bytes`` free (the
+    outputs would not fit; better to say so before any lap runs)."""
+    if not need_bytes:
+        return
+    try:
+        st = os.statvfs(folder)
+    except (OSError, AttributeError):
+        return
+    free = st.f_bavail * st.f_frsize
+    if free < need_bytes:
+        raise InputError(f"{clip(str(shown or folder), 160)}: cannot write (no space left on "
+                         f"device: {_size(free)} free, the output needs about "
+                         f"{_size(need_bytes)}); free some space or choose a folder on "
+                         "another disk", option)
+
+
+def _size(n: float) -> str:
+    for unit in ("bytes", "kB", "MB", "GB"):
+        if n < 1000 or unit == "GB":
+            return f"{n:.0f} {unit}" if unit == "bytes" else f"{n:.3g} {unit}"
+        n /= 1000.0
+    return f"{n:.3g} GB"  # pragma: no cover
+
+
 # --------------------------------------------------------------------------------------------
 # locks
 # --------------------------------------------------------------------------------------------
@@ -430,8 +456,10 @@ class OutputFolder:
     """
 
     def __init__(self, path, force: bool = False, option: str = "--out",
-                 command: str = "lapbalance", inputs: Iterable = (), resume: bool = False):
+                 command: str = "lapbalance", inputs: Iterable = (), resume: bool = False,
+                 need_bytes: int = 0):
         self.path = Path(path)
+        self.need_bytes = need_bytes
         self.force = force
         self.option = option
         self.command = command
@@ -490,6 +518,7 @@ class OutputFolder:
             _take_lock(self.path / LOCK, self.command, self.path, self.option)
             self._locked = True
             self.check()  # again, now that no other run can change it
+            check_free_space(self.path, self.need_bytes, self.option)
             self._clear_stale_staging()
             self.staging = self.path / f"{STAGING_PREFIX}{os.getpid()}"
             if self.staging.exists():
@@ -605,7 +634,8 @@ def _parents_of(rel: str) -> list[str]:
 
 @contextmanager
 def output_folder(path, force: bool = False, option: str = "--out",
-                  command: str = "lapbalance", inputs: Iterable = (), resume: bool = False):
+                  command: str = "lapbalance", inputs: Iterable = (), resume: bool = False,
+                  need_bytes: int = 256_000):
     """Take output folder ``path`` for one run; yield the :class:`OutputFolder`.
 
     Write the new files into ``folder.staging``; when the body ends without an error they
@@ -613,7 +643,7 @@ def output_folder(path, force: bool = False, option: str = "--out",
     left as it was, with no lock or staging folder behind; an OS error (disk full,
     read-only...) on the output becomes one :class:`InputError` line.
     """
-    folder = OutputFolder(path, force, option, command, inputs, resume).reserve()
+    folder = OutputFolder(path, force, option, command, inputs, resume, need_bytes).reserve()
     try:
         yield folder
     except OSError as e:
@@ -700,12 +730,13 @@ def check_output_file(path: str | Path, force: bool, option: str = "--out",
 
 @contextmanager
 def output_file(path: str | Path, force: bool = False, option: str = "--out",
-                command: str = "lapbalance", inputs: Iterable = ()):
+                command: str = "lapbalance", inputs: Iterable = (), need_bytes: int = 64_000):
     """Take single output file ``path`` for one run; yield it (write it atomically inside).
 
-    Checks it (:func:`check_output_file`), creates its folder, and locks it with
-    ``.NAME.lapbalance-lock`` beside it, at the start, so an unwritable place fails before
-    any work and a second run is refused at once. On error nothing is left behind.
+    Checks it (:func:`check_output_file`), creates its folder, locks it with
+    ``.NAME.lapbalance-lock`` beside it and checks that ``need_bytes`` are free, at the start,
+    so an unwritable place or a full disk fails before any work and a second run is refused
+    at once. On error nothing is left behind.
     """
     path = Path(path)
     check_output_file(path, force, option, inputs)
@@ -716,6 +747,7 @@ def output_file(path: str | Path, force: bool = False, option: str = "--out",
         made = _make_parents(path.parent)
         _take_lock(lock, command, path, option)
         locked = True
+        check_free_space(path.parent, need_bytes, option, path)
         yield path
     except OSError as e:
         if locked:

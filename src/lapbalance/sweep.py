@@ -516,7 +516,7 @@ def sweep(car, track, vary: Mapping[str, Sequence[float]], method: str = "grid",
     folder = None
     if out_dir is not None:
         folder = OutputFolder(out_dir, force=force, command="sweep", inputs=inputs,
-                              resume=True).reserve()
+                              resume=True, need_bytes=128_000).reserve()
     try:
         if folder is not None:
             log = out_dir / LOG_NAME

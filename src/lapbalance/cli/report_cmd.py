@@ -36,7 +36,8 @@ def report_command(car_file, track_file, variants, overrides, out_file, force, s
     out = Path(out_file)
     files = [car_file, *variants]
     # take the file first: an existing, unwritable or input file fails before any lap runs
-    with output_file(out, force, "--out", command="report", inputs=[*files, track_file]):
+    with output_file(out, force, "--out", command="report", inputs=[*files, track_file],
+                     need_bytes=1_500_000 * (1 + len(variants))):
         more = [load_car(v, overrides) for v in variants]
         car, track = load_inputs(car_file, track_file, overrides, step_m, closed,
                                  start_speed_kph, more)

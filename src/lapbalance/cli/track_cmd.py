@@ -105,7 +105,8 @@ def track_command(track_file, step_m, closed, map_png, force, as_json):
     from lapbalance.track import load_track
 
     check_step(step_m)
-    with (output_file(map_png, force, "--map", command="track", inputs=[track_file])
+    with (output_file(map_png, force, "--map", command="track", inputs=[track_file],
+                     need_bytes=300_000)
           if map_png else nullcontext()):
         tr = load_track(track_file, step_m=step_m, closed=closed)
         check_track_size(tr, step_m)
