@@ -34,8 +34,6 @@ References
 
 from __future__ import annotations
 
-import csv
-import io
 import math
 import warnings
 from dataclasses import dataclass, field
@@ -46,6 +44,7 @@ from scipy.interpolate import RectBivariateSpline
 
 from lapbalance import aero as _aero
 from lapbalance.errors import InputError, PhysicsWarning, closest, did_you_mean
+from lapbalance.textio import csv_cells
 from lapbalance.units import MM
 
 #: Column names of the map file, in the documented order.
@@ -219,12 +218,9 @@ def _read_text(path: Path) -> str:
         raise InputError("is a folder, not an aero map CSV", path) from None
     except OSError as e:
         raise InputError(f"cannot read ({e.strerror})", path) from None
-    if b"\x00" in data:
-        raise InputError("is a binary file, not an aero map CSV", path)
-    try:
-        return data.decode("utf-8-sig")
-    except UnicodeDecodeError:
-        raise InputError("is not UTF-8 text; save the aero map as UTF-8 CSV", path) from None
+    from lapbalance.textio import decode_text
+
+    return decode_text(data, path, "an aero map CSV", "save the aero map as UTF-8 CSV")
 
 
 def _parse(text: str, path: Path):
@@ -246,8 +242,7 @@ def _parse(text: str, path: Path):
                     _fail(f'unknown metadata "# {key}:"; '
                           f"{did_you_mean(key, METADATA_KEYS)}", path, f"line {lineno}")
             continue
-        cells = next(csv.reader(io.StringIO(s)))
-        cells = [c.strip() for c in cells]
+        cells = csv_cells(s)
         if header is None:
             header = (lineno, cells)
         else:

@@ -424,12 +424,9 @@ def _read_toml(path: Path) -> dict:
         raise InputError("is a folder, not a car file", path) from None
     except OSError as e:
         raise InputError(f"cannot read ({e.strerror})", path) from None
-    if b"\x00" in data:
-        raise InputError("is a binary file, not a TOML car file", path)
-    try:
-        text = data.decode("utf-8")
-    except UnicodeDecodeError:
-        raise InputError("is not UTF-8 text; save the car file as UTF-8 TOML", path) from None
+    from lapbalance.textio import decode_text
+
+    text = decode_text(data, path, "a TOML car file", "save the car file as UTF-8 TOML")
     if not text.strip():
         raise InputError("is empty; a car file needs at least name and the sections "
                          "chassis, aero, tyres, powertrain, brakes", path)
@@ -921,6 +918,8 @@ def _build_powertrain(v: dict, src: str) -> Powertrain:
         raise InputError(f"rev_limit_rpm {rev:g} is below shift_rpm {shift:g}; the limiter "
                          "must be at or above the shift point", _src(v, "rev_limit_rpm", src),
                          "powertrain.rev_limit_rpm")
+    if mode == "torque":
+        _check_torque_curve(rpm, nm, shift, rev, v, src)
     ftmax = v["max_tractive_force"]
     if mode == "power" and ftmax is None:
         ftmax = power * v["efficiency"] / 10.0  # force at 10 m/s (documented default)
@@ -929,6 +928,37 @@ def _build_powertrain(v: dict, src: str) -> Powertrain:
     return Powertrain(drive, share, mode, power, ftmax, tuple(rpm), tuple(nm), tuple(gears),
                       v["final_drive"], v["wheel_radius"], v["efficiency"], shift, rev,
                       v["overrun_torque"])
+
+
+def _check_torque_curve(rpm, nm, shift: float, rev: float, v: dict, src: str) -> None:
+    """Unit slips and gaps of a torque curve: speeds in rad/s or rev/s (InputError), a curve
+    that ends below the rev limit (torque is then held flat: warning), a shift point below
+    the engine speed of best torque (every gear is left before its best force: warning)."""
+    import warnings
+
+    from lapbalance.errors import PhysicsWarning
+
+    top = float(max(rpm))
+    field_ = "powertrain.torque_curve_rpm"
+    where = _src(v, "torque_curve_rpm", src)
+    if top < 0.3 * rev:
+        for factor, unit in ((60.0 / (2.0 * math.pi), "rad/s"), (60.0, "rev/s")):
+            if 0.6 <= top * factor / rev <= 1.5:
+                raise InputError(f"ends at {top:g}, far below rev_limit_rpm {rev:g}: the "
+                                 f"speeds look like {unit} ({top:g} {unit} = "
+                                 f"{top * factor:.0f} rpm); multiply them by {factor:.5g} to "
+                                 "give rpm", where, field_)
+        raise InputError(f"ends at {top:g} rpm, far below rev_limit_rpm {rev:g}; give the "
+                         "torque up to the rev limit (rpm)", where, field_)
+    if top < 0.97 * rev:
+        warnings.warn(f"{where}: {field_}: the curve ends at {top:g} rpm, below "
+                      f"rev_limit_rpm {rev:g}; the torque is held at {nm[-1]:g} N·m up to the "
+                      "limit: extend the curve to the rev limit", PhysicsWarning, stacklevel=2)
+    best = float(rpm[max(range(len(nm)), key=lambda i: nm[i])])
+    if shift < 0.97 * best:
+        warnings.warn(f"{where}: powertrain.shift_rpm: = {shift:g} rpm is below {best:g} rpm, "
+                      "where the engine gives its best torque (force); every gear is left "
+                      "before its best force: check shift_rpm", PhysicsWarning, stacklevel=2)
 
 
 def _build_suspension(v: dict, src: str) -> Suspension:

@@ -287,12 +287,22 @@ def load_targets(path: str | Path) -> list[Target]:
     InputError
         One line naming the file, ``target[i].key`` and the fix.
     """
+    from lapbalance.textio import decode_text
+
     src = str(path)
     try:
-        raw = tomllib.loads(Path(path).read_text(encoding="utf-8"))
+        data = Path(path).read_bytes()
     except FileNotFoundError:
         raise InputError("file not found; give the path of a targets TOML file", src) from None
-    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as e:
+    except IsADirectoryError:
+        raise InputError("is a folder, not a targets TOML file", src) from None
+    except OSError as e:
+        raise InputError(f"cannot read ({e.strerror}); check the path", src) from None
+    text = decode_text(data, src, "a targets TOML file", "save the targets file as UTF-8 "
+                       "TOML")
+    try:
+        raw = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as e:
         raise InputError(f"not valid TOML ({e})", src) from None
     return targets_from_dict(raw, src)
 
@@ -389,10 +399,13 @@ def _condition(c, q: Quantity, src, fld) -> tuple:
                          f"({'text' if q.text else 'a number'}); use {ok}", src, fld)
     f = f"{fld}.{kind}"
     if kind == "range":
-        return kind, _pair(val, src, f, "range")
+        pair = _pair(val, src, f, "range")
+        _percent_slip(q, pair, src, f)
+        return kind, pair
     if kind in ("max", "min"):
         if not _num(val):
             raise InputError(f"= {val!r} must be a number", src, f)
+        _percent_slip(q, (float(val),), src, f)
         return kind, float(val)
     if not isinstance(val, list) or not val or not all(isinstance(x, str) for x in val):
         raise InputError("must be a non-empty list of strings", src, f)
@@ -401,6 +414,26 @@ def _condition(c, q: Quantity, src, fld) -> tuple:
             raise InputError(f'"{x}" is not a value of {q.name}; {did_you_mean(x, q.choices)}',
                              src, f)
     return kind, tuple(val)
+
+
+def is_share(q: Quantity) -> bool:
+    """True for quantities that are a share between 0 and 1 (aero balance, grip usage)."""
+    return q.unit in ("-", "") and not q.text and (
+        "aero_balance" in q.name or q.name.startswith("usage") or "_usage_" in q.name
+        or q.name.endswith("_share")) and "migration" not in q.name
+
+
+def _percent_slip(q: Quantity, values, src, fld) -> None:
+    """Refuse limits typed as a percentage for a quantity that is a fraction (0 to 1)."""
+    if not is_share(q):
+        return
+    vals = [float(v) for v in values]
+    if any(1.5 < abs(v) <= 100.0 for v in vals) and all(abs(v) <= 100.0 for v in vals):
+        fixed = [round(v / 100.0, 6) for v in vals]
+        shown = (f"[{', '.join(f'{v:g}' for v in vals)}]" if len(vals) > 1 else f"{vals[0]:g}")
+        fix = (f"[{', '.join(f'{v:g}' for v in fixed)}]" if len(vals) > 1 else f"{fixed[0]:g}")
+        raise InputError(f"= {shown} looks like a percentage, but {q.name} is a fraction "
+                         f"(0 to 1); write {fix}", src, fld)
 
 
 def _scope(s, q: Quantity, src, fld) -> dict:

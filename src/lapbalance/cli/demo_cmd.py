@@ -75,7 +75,8 @@ def _demo(root: Path, tmp: Path, out: Path) -> None:
     _say("demo: correcting the wind-tunnel balance readings for the wheel restraint")
     readings = tunnel.read_readings(root / "examples" / "gt_coupe_tunnel_sweep.csv")
     corr = tunnel.correct_table(readings, car.chassis.cg_height, car.chassis.wheelbase, 0.0,
-                                car.air.density, car.aero.drag_height)
+                                car.air.density, car.aero.drag_height,
+                                expected_drag_area=car.aero.drag_area or None)
     rows = []
     for i in range(len(corr["front_n_measured"])):
         rows.append([f"{corr['speed_kph'][i]:.0f}" if "speed_kph" in corr else str(i + 1),

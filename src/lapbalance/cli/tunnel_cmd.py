@@ -246,7 +246,8 @@ def _table_run(readings, car, restraint_height_m, drag_height_m, air_density, ou
     if not 0.3 <= rho <= 1.6:
         raise InputError(f"= {rho:g} kg/m³ is not physical (0.3 to 1.6)", "--air-density")
     cols = tunnel.correct_table(tab, car.chassis.cg_height, car.chassis.wheelbase,
-                                restraint_height_m, rho, dh)
+                                restraint_height_m, rho, dh,
+                                expected_drag_area=car.aero.drag_area or None)
     if out_path:
         write_text_atomic(out_path, columns_csv_text(cols, nan=""))
     if as_json:
