@@ -230,7 +230,7 @@ def _parse(text: str, path: Path):
     rows = []
     for lineno, line in enumerate(text.splitlines(), start=1):
         s = line.strip()
-        if not s:
+        if not s or (lineno == 1 and s.lower() == "sep=,"):  # a spreadsheet's "sep=," hint
             continue
         if s.startswith("#"):
             body = s.lstrip("#").strip()

@@ -435,6 +435,11 @@ def _read_toml(path: Path) -> dict:
     except tomllib.TOMLDecodeError as e:
         raise InputError(f"is not valid TOML ({e}); check quotes, '=' and [section] lines",
                          path) from None
+    except (RecursionError, ValueError) as e:  # nesting too deep; integer too long
+        what = "nests lists or tables too deeply" if isinstance(e, RecursionError) else \
+            "holds a number too long to read"
+        raise InputError(f"{what}; a car file needs plain numbers, lists and [section] "
+                         "tables", path) from None
 
 
 def _key_index(section: str) -> dict[str, Key]:
@@ -506,7 +511,7 @@ def _parse_override(text: str) -> tuple[str, str, Any]:
     rhs = rhs.strip()
     try:
         value = tomllib.loads(f"v = {rhs}")["v"]
-    except tomllib.TOMLDecodeError:
+    except (tomllib.TOMLDecodeError, ValueError, RecursionError):  # ValueError: huge int
         value = rhs
     return sec, key, value
 

@@ -512,7 +512,11 @@ class OutputFolder:
     # -- life cycle ----------------------------------------------------------------------
     def reserve(self) -> OutputFolder:
         """Check, create and lock the folder and make the staging folder (at the start)."""
-        self.check()
+        try:
+            self.check()
+        except OSError as e:  # e.g. a name too long to look up
+            raise os_input_error(e, "use the output folder", e.filename or self.path,
+                                 self.option) from None
         try:
             self.created = _make_parents(self.path)
             _take_lock(self.path / LOCK, self.command, self.path, self.option)
@@ -739,7 +743,10 @@ def output_file(path: str | Path, force: bool = False, option: str = "--out",
     at once. On error nothing is left behind.
     """
     path = Path(path)
-    check_output_file(path, force, option, inputs)
+    try:
+        check_output_file(path, force, option, inputs)
+    except OSError as e:  # e.g. a name too long to look up
+        raise os_input_error(e, "use the output file", e.filename or path, option) from None
     made: list[Path] = []
     lock = path.with_name(f".{path.name}.lapbalance-lock")
     locked = False

@@ -304,6 +304,9 @@ def load_targets(path: str | Path) -> list[Target]:
         raw = tomllib.loads(text)
     except tomllib.TOMLDecodeError as e:
         raise InputError(f"not valid TOML ({e})", src) from None
+    except (RecursionError, ValueError):  # nesting too deep; integer too long
+        raise InputError("is not a plain targets file (lists nested too deeply or a number "
+                         "too long); give [[target]] tables with plain numbers", src) from None
     return targets_from_dict(raw, src)
 
 

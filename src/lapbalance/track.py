@@ -299,6 +299,8 @@ def _read_csv(path: Path) -> tuple[dict, dict[str, np.ndarray], list[int]]:
         raise InputError("the file is not UTF-8 text; export the track as CSV (UTF-8)",
                          src) from None
     lines = text.splitlines()
+    if lines and lines[0].strip().lower().strip('"') in ("sep=,", "sep=, "):
+        lines[0] = ""  # a spreadsheet's "sep=," hint line
     meta: dict[str, str] = {}
     i = 0
     while i < len(lines) and (not lines[i].strip() or lines[i].lstrip().startswith("#")):

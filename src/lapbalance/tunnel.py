@@ -346,13 +346,21 @@ def read_readings(path: str | Path) -> ReadingsTable:
     """
     path = Path(path)
     try:
-        text = path.read_text(encoding="utf-8-sig")
+        head = path.read_bytes()[:2] if path.is_file() else b""
+        if head in (b"\xff\xfe", b"\xfe\xff"):  # UTF-16 "Unicode text" export
+            from lapbalance.textio import decode_text
+
+            text = decode_text(path.read_bytes(), path, "a CSV of readings",
+                               "save the file as UTF-8 CSV")
+        else:
+            text = path.read_text(encoding="utf-8-sig")
     except FileNotFoundError:
         raise InputError("readings file not found; check the path", path) from None
     except (IsADirectoryError, UnicodeDecodeError, OSError):
         raise InputError("cannot be read as UTF-8 CSV text", path) from None
     records = [(n, s) for n, s in enumerate(text.splitlines(), start=1)
-               if s.strip() and not s.lstrip().startswith("#")]
+               if s.strip() and not s.lstrip().startswith("#")
+               and not (n == 1 and s.strip().lower() == "sep=,")]  # a spreadsheet's hint
     if not records:
         raise InputError("has no header line; give columns " + ", ".join(REQUIRED_COLUMNS),
                          path)

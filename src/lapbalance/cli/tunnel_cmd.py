@@ -45,6 +45,22 @@ def parse_height_band(text: str, option: str = "--cg-height-m"):
     return v, v, v
 
 
+def _length(v, option: str, lo: float, hi: float, text: str | None = None) -> None:
+    """Refuse a length [m] outside [lo, hi] (a value in mm is named as such)."""
+    if v is None:
+        return
+    shown = text if text is not None else f"{v:g}"
+    if not math.isfinite(v):
+        raise InputError(f"= {shown} is not a finite number; give metres", option)
+    if lo <= v <= hi:
+        return
+    if lo <= v / 1000.0 <= hi and abs(v) >= 10:
+        raise InputError(f"= {shown} looks like millimetres, but the option is in metres; "
+                         f"write {v / 1000.0:g}", option)
+    raise InputError(f"= {shown} m is outside {lo:g} to {hi:g} m; give the value in metres",
+                     option)
+
+
 def _pct(x):
     return "n/a" if x is None or not math.isfinite(x) else f"{100 * x:.2f} %"
 
@@ -130,6 +146,19 @@ def tunnel_command(readings, car_file, overrides, front_n, rear_n, drag_n, cg_te
     load: the front reads light by D·(h_cg - z)/L. Coefficients and CFD moments are
     ground-referenced (SAE J1594), i.e. z = 0.
     """
+    numbers = {"--front-n": front_n, "--rear-n": rear_n, "--drag-n": drag_n, "--cl": cl,
+               "--cd": cd, "--cpm": cpm, "--clf": clf, "--clr": clr,
+               "--frontal-area-m2": frontal_area_m2, "--speed-kph": speed_kph,
+               "--air-density": air_density, "--lift-n": lift_n,
+               "--pitch-moment-nm": pitch_moment_nm}
+    for name, v in numbers.items():
+        if v is not None and not math.isfinite(v):
+            raise InputError(f"= {v:g} is not a finite number; give a plain number", name)
+    _length(wheelbase_m, "--wheelbase-m", 0.5, 6.0)
+    _length(restraint_height_m, "--restraint-height-m", -0.5, 2.0)
+    _length(drag_height_m, "--drag-height-m", -0.5, 3.0)
+    _length(moment_ref_x_m, "--moment-ref-x-m", -10.0, 10.0)
+    _length(moment_ref_z_m, "--moment-ref-z-m", -5.0, 5.0)
     car = load_car(car_file, overrides) if car_file else None
     if overrides and car is None:
         raise click.UsageError("--set needs --car")
@@ -151,6 +180,8 @@ def tunnel_command(readings, car_file, overrides, front_n, rear_n, drag_n, cg_te
     # geometry ---------------------------------------------------------------------------
     if cg_text is not None:
         h, h_lo, h_hi = parse_height_band(cg_text)
+        for x in (h_lo, h_hi):
+            _length(x, "--cg-height-m", 0.0, 2.0, text=cg_text)
     elif car is not None:
         h = h_lo = h_hi = car.chassis.cg_height
     else:
@@ -180,6 +211,13 @@ def tunnel_command(readings, car_file, overrides, front_n, rear_n, drag_n, cg_te
             for name, v in (("--frontal-area-m2", frontal_area_m2), ("--speed-kph", speed_kph)):
                 if not v > 0:
                     raise InputError(f"= {v:g} must be > 0", name)
+            if frontal_area_m2 > 20.0:
+                raise InputError(f"= {frontal_area_m2:g} m² is more than 20 m²; give the "
+                                 "frontal area in m² (a car has about 1.5 to 3 m²)",
+                                 "--frontal-area-m2")
+            if speed_kph > 1000.0:
+                raise InputError(f"= {speed_kph:g} km/h is above 1000 km/h; give the air "
+                                 "speed in km/h", "--speed-kph")
             rho = air_density if air_density is not None else (
                 car.air.density if car is not None else isa_density(0.0))
             if not 0.3 <= rho <= 1.6:
