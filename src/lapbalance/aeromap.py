@@ -43,7 +43,7 @@ import numpy as np
 from scipy.interpolate import RectBivariateSpline
 
 from lapbalance import aero as _aero
-from lapbalance.errors import InputError, PhysicsWarning, closest, did_you_mean
+from lapbalance.errors import InputError, PhysicsWarning, clip, closest, did_you_mean
 from lapbalance.textio import csv_cells
 from lapbalance.units import MM
 
@@ -298,7 +298,7 @@ def load_aero_map(path: str | Path, cg_height: float, wheelbase: float) -> AeroM
         try:
             z = float(txt)
         except ValueError:
-            _fail(f'restraint_height_m = "{txt}" is not a number; give metres, e.g. 0.3',
+            _fail(f'restraint_height_m = "{clip(txt)}" is not a number; give metres, e.g. 0.3',
                   path, f"line {zl}")
         if not (math.isfinite(z) and 0.0 <= z <= 3.0):
             hint = f"; looks like mm, write {z / 1000:g}" if 3.0 < z <= 3000.0 else ""
@@ -340,7 +340,7 @@ def load_aero_map(path: str | Path, cg_height: float, wheelbase: float) -> AeroM
             except ValueError:
                 hint = "write the number with a '.' decimal point" if "," in cell \
                     or cell.replace(" ", "").isdigit() else "give a number"
-                _fail(f'{col} = "{cell}" is not a number; {hint}', path, f"line {lineno}")
+                _fail(f'{col} = "{clip(cell)}" is not a number; {hint}', path, f"line {lineno}")
             if not math.isfinite(val):
                 _fail(f"{col} = {cell} is not a finite number; fill in the measured value",
                       path, f"line {lineno}")

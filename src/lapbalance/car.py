@@ -21,7 +21,7 @@ from typing import Any
 
 from lapbalance import aero as _aero
 from lapbalance import air as _air
-from lapbalance.errors import InputError, did_you_mean
+from lapbalance.errors import InputError, clip, did_you_mean
 from lapbalance.units import G0, HPA, KW, MM
 
 # --------------------------------------------------------------------------------------------
@@ -511,7 +511,12 @@ def _parse_override(text: str) -> tuple[str, str, Any]:
     rhs = rhs.strip()
     try:
         value = tomllib.loads(f"v = {rhs}")["v"]
-    except (tomllib.TOMLDecodeError, ValueError, RecursionError):  # ValueError: huge int
+    except ValueError as e:  # an integer too long for int(): read it as a float
+        try:
+            value = float(rhs) if not isinstance(e, tomllib.TOMLDecodeError) else rhs
+        except ValueError:
+            value = rhs
+    except RecursionError:
         value = rhs
     return sec, key, value
 
@@ -600,7 +605,7 @@ def _convert(spec: Key, sec: str, key: str, value, src: str):
     dotted = _fmt_dotted(sec, key)
     if spec.kind == "str":
         if not isinstance(value, str):
-            raise InputError(f"= {value!r} must be text in quotes", src, dotted)
+            raise InputError(f"= {clip(repr(value))} must be text in quotes", src, dotted)
         if spec.choices and value not in spec.choices:
             raise InputError(f'= "{value}" is not one of {", ".join(spec.choices)}; '
                              f"{did_you_mean(value, spec.choices)}", src, dotted)
@@ -612,7 +617,7 @@ def _convert(spec: Key, sec: str, key: str, value, src: str):
         out = []
         for i, v in enumerate(value):
             if isinstance(v, bool) or not isinstance(v, int | float):
-                raise InputError(f"item {i + 1} = {v!r} is not a number", src, dotted)
+                raise InputError(f"item {i + 1} = {clip(repr(v))} is not a number", src, dotted)
             if not math.isfinite(v):
                 raise InputError(f"item {i + 1} = {v} is not finite; give a plain number", src,
                                  dotted)
@@ -626,7 +631,7 @@ def _convert(spec: Key, sec: str, key: str, value, src: str):
                 float(value.replace(",", "."))
             except ValueError:
                 hint = "; give a number"
-        raise InputError(f"= {value!r} is not a number{hint}", src, dotted)
+        raise InputError(f"= {clip(repr(value))} is not a number{hint}", src, dotted)
     if not math.isfinite(value):
         raise InputError(f"= {value} is not a finite number; give a plain number", src, dotted)
     si = float(value) * spec.scale_of(key)

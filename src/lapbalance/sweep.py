@@ -47,7 +47,7 @@ from typing import Any
 import numpy as np
 
 from lapbalance.car import SCHEMA, Car, apply_overrides, build_car, load_car
-from lapbalance.errors import InfeasibleError, InputError, did_you_mean
+from lapbalance.errors import InfeasibleError, InputError, clip, did_you_mean
 from lapbalance.outputs import (
     OutputFolder,
     csv_text,
@@ -125,7 +125,7 @@ def parse_vary(text: str, method: str = "grid") -> tuple[str, list[float]]:
         try:
             x = float(s)
         except ValueError:
-            raise InputError(f'"{s}" in "{rhs}" is not a number; write lo:hi:n, e.g. '
+            raise InputError(f'"{clip(s)}" in "{clip(rhs)}" is not a number; write lo:hi:n, e.g. '
                              "1.2:2.0:5, or a list a,b,c", src, key) from None
         if not math.isfinite(x):
             raise InputError(f'"{s}" is not a finite number', src, key)

@@ -30,7 +30,7 @@ from pathlib import Path
 import numpy as np
 
 from lapbalance import handling
-from lapbalance.errors import InputError, closest, did_you_mean
+from lapbalance.errors import InputError, clip, closest, did_you_mean
 from lapbalance.lap import CHANNELS
 from lapbalance.liftoff import VERDICTS
 
@@ -263,7 +263,7 @@ def _num(x) -> bool:
 
 def _pair(val, src, fld, what) -> tuple[float, float]:
     if not (isinstance(val, list) and len(val) == 2 and all(_num(x) for x in val)):
-        raise InputError(f"{what} must be two numbers [lo, hi], got {val!r}", src, fld)
+        raise InputError(f"{what} must be two numbers [lo, hi], got {clip(repr(val))}", src, fld)
     lo, hi = float(val[0]), float(val[1])
     if lo > hi:
         raise InputError(f"lo {lo:g} > hi {hi:g}; write [{hi:g}, {lo:g}]", src, fld)
@@ -343,7 +343,7 @@ def _model(m, src) -> Model:
                 raise InputError("speeds must be >= 0 km/h", src, fld)
             continue
         if not _num(v) or v <= 0:
-            raise InputError(f"= {v!r} must be a number > 0", src, fld)
+            raise InputError(f"= {clip(repr(v))} must be a number > 0", src, fld)
         kw[attr] = float(v)
     if ("cornering_stiffness_front" in kw) != ("cornering_stiffness_rear" in kw):
         missing = ("cornering_stiffness_rear_n_per_deg" if "cornering_stiffness_front" in kw
@@ -407,7 +407,7 @@ def _condition(c, q: Quantity, src, fld) -> tuple:
         return kind, pair
     if kind in ("max", "min"):
         if not _num(val):
-            raise InputError(f"= {val!r} must be a number", src, f)
+            raise InputError(f"= {clip(repr(val))} must be a number", src, f)
         _percent_slip(q, (float(val),), src, f)
         return kind, float(val)
     if not isinstance(val, list) or not val or not all(isinstance(x, str) for x in val):
@@ -460,12 +460,12 @@ def _scope(s, q: Quantity, src, fld) -> dict:
             out[k] = _pair(v, src, f, k)
         elif k == "corner_min_speed_kph":
             if not _num(v) or v < 0:
-                raise InputError(f"= {v!r} must be a speed >= 0 km/h", src, f)
+                raise InputError(f"= {clip(repr(v))} must be a speed >= 0 km/h", src, f)
             out[k] = float(v)
         else:
             if not isinstance(v, list) or not v or not all(
                     isinstance(x, int) and not isinstance(x, bool) for x in v):
-                raise InputError(f"= {v!r} must be a non-empty list of corner numbers, "
+                raise InputError(f"= {clip(repr(v))} must be a non-empty list of corner numbers, "
                                  "e.g. [3, 7]", src, f)
             out[k] = tuple(v)
     return out

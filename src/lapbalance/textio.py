@@ -35,11 +35,26 @@ def decode_text(data: bytes, source, what: str, how: str) -> str:
             except UnicodeDecodeError:
                 raise InputError(f"is not valid UTF-16 text; {how}", source) from None
     if b"\x00" in data[:65536]:
+        if looks_like_utf16(data):
+            raise InputError(f"is UTF-16 text without a byte-order mark; {how}", source)
         raise InputError(f"is a binary file, not {what}", source)
     try:
         return data.decode("utf-8-sig")
     except UnicodeDecodeError:
         raise InputError(f"is not UTF-8 text; {how}", source) from None
+
+
+def looks_like_utf16(data: bytes) -> bool:
+    """True for mostly-ASCII UTF-16 text without a byte-order mark (zero bytes in every
+    second place)."""
+    head = data[:4096]
+    if len(head) < 8:
+        return False
+    even, odd = head[0::2], head[1::2]
+    for zeros, text in ((odd, even), (even, odd)):
+        if zeros.count(0) > 0.9 * len(zeros) and text.count(0) < 0.05 * len(text):
+            return True
+    return False
 
 
 def csv_cells(line: str) -> list[str]:

@@ -55,7 +55,7 @@ import numpy as np
 from scipy.interpolate import CubicSpline
 from scipy.ndimage import gaussian_filter1d
 
-from lapbalance.errors import InputError
+from lapbalance.errors import InputError, clip
 
 # --------------------------------------------------------------------------------------------
 # Thresholds (engineering judgement unless a source is named)
@@ -292,6 +292,11 @@ def _read_csv(path: Path) -> tuple[dict, dict[str, np.ndarray], list[int]]:
 
         raw = decode_text(raw, src, "CSV text", "export the track as CSV (UTF-8)").encode()
     if b"\x00" in raw[:4096]:
+        from lapbalance.textio import looks_like_utf16
+
+        if looks_like_utf16(raw):
+            raise InputError("the file is UTF-16 text without a byte-order mark; export the "
+                             "track as CSV (UTF-8)", src)
         raise InputError("this is a binary file, not CSV text; export the track as CSV", src)
     try:
         text = raw.decode("utf-8-sig")
@@ -355,7 +360,7 @@ def _read_csv(path: Path) -> tuple[dict, dict[str, np.ndarray], list[int]]:
             try:
                 v = float(cell)
             except ValueError:
-                raise InputError(f'column {n} = "{cell}" is not a number; write a plain '
+                raise InputError(f'column {n} = "{clip(cell)}" is not a number; write a plain '
                                  "number (decimal point, no units)", src, f"line {j + 1}"
                                  ) from None
             if not math.isfinite(v):

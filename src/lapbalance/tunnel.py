@@ -32,7 +32,7 @@ from pathlib import Path
 import numpy as np
 
 from lapbalance import aero as _aero
-from lapbalance.errors import InputError, PhysicsWarning, closest, did_you_mean
+from lapbalance.errors import InputError, PhysicsWarning, clip, closest, did_you_mean
 from lapbalance.units import KPH
 
 #: Columns a readings table must have.
@@ -404,7 +404,7 @@ def read_readings(path: str | Path) -> ReadingsTable:
             try:
                 v = float(cell)
             except ValueError:
-                raise InputError(f'{n} = "{cell}" is not a number; give a number with a '
+                raise InputError(f'{n} = "{clip(cell)}" is not a number; give a number with a '
                                  "'.' decimal point", path, f"line {lineno}") from None
             if not math.isfinite(v):
                 raise InputError(f"{n} = {cell} is not a finite number", path,

@@ -97,11 +97,9 @@ def check_start_speed(start_speed_kph, cars) -> None:
 
     from lapbalance.errors import InputError
 
-    if start_speed_kph is None:
-        return
-    if not (math.isfinite(start_speed_kph) and 0.0 <= start_speed_kph):
-        raise InputError(f"= {start_speed_kph:g} km/h must be a finite speed >= 0 km/h "
-                         "(0 = standing start)", "--start-speed-kph")
+    if start_speed_kph is None or not (math.isfinite(start_speed_kph)
+                                       and start_speed_kph >= 0.0):
+        return  # negative or not finite: simulate_lap says so
     if start_speed_kph > START_SPEED_MAX_KPH:
         raise InputError(f"= {start_speed_kph:g} km/h is above {START_SPEED_MAX_KPH:g} km/h; "
                          "give the speed in km/h (not m/h or mm/s)", "--start-speed-kph")
