@@ -68,6 +68,26 @@ def main(debug: bool) -> None:
     qualified engineers and track testing, within the rules and the law.
     """
     warnings.showwarning = _show_warning
+    _terminate_cleanly()
+
+
+def _terminate_cleanly() -> None:
+    """Turn SIGTERM (a job scheduler or ``kill``) into the interrupt path, so staging folders
+    and locks are removed as on Ctrl-C (``kill -9`` cannot be caught: the next run clears
+    what it leaves)."""
+    import signal
+    import threading
+
+    if threading.current_thread() is not threading.main_thread():
+        return
+    try:
+        if signal.getsignal(signal.SIGTERM) is signal.SIG_DFL:
+            def _raise(signum, frame):
+                raise KeyboardInterrupt
+
+            signal.signal(signal.SIGTERM, _raise)
+    except (ValueError, OSError, AttributeError):  # pragma: no cover - no SIGTERM here
+        pass
 
 
 # Command modules register themselves on ``main`` when imported.
