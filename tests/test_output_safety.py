@@ -346,3 +346,54 @@ def test_kill_9_of_a_sweep_leaves_no_process_after_10_s(tmp_path):
                 os.kill(k, signal.SIGKILL)
     # the log of finished points is kept; the next run takes the folder over (stale lock)
     assert (tmp_path / "sw" / "sweep.csv").exists()
+
+
+def test_a_damaged_manifest_never_reaches_outside_the_folder(tmp_path):
+    out = tmp_path / "res"
+    out.mkdir()
+    victim = tmp_path / "precious.txt"
+    victim.write_text("mine")
+    (out / "channels.csv").write_text("old")
+    (out / outputs.MANIFEST).write_text(json.dumps({
+        "written_by": "lapbalance", "command": "lap",
+        "files": ["channels.csv", "../precious.txt", str(victim), "./x", None]}))
+    res = CliRunner().invoke(main, _lap(out, "--force"))
+    assert res.exit_code == 0, res.output
+    assert victim.read_text() == "mine"
+    assert outputs.read_manifest(out)["files"] == ["channels.csv", "corners.csv",
+                                                   "summary.json"]
+
+
+def test_sigterm_during_a_run_cleans_up_like_ctrl_c(tmp_path):
+    out = tmp_path / "D"
+    cmd = [sys.executable, "-m", "lapbalance", "lap", str(CAR),
+           str(ROOT / "tracks" / "veldmoor_ring.csv"), "--step-m", "0.1", "--out", str(out)]
+    proc = subprocess.Popen(cmd, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True,
+                            env=_env(), cwd=tmp_path)
+    try:
+        deadline = time.monotonic() + 120
+        while not (out / outputs.LOCK).exists() and time.monotonic() < deadline:
+            time.sleep(0.05)
+        assert (out / outputs.LOCK).exists(), "the run never took its folder"
+        proc.send_signal(signal.SIGTERM)
+        _out, err = proc.communicate(timeout=60)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+    assert proc.returncode == 130, err
+    assert err.strip() == "lapbalance: interrupted; no partial output was written"
+    assert list(tmp_path.iterdir()) == []  # the folder it made is gone with lock and staging
+
+
+def test_hidden_sibling_staging_of_an_earlier_version_is_cleared(tmp_path):
+    out = tmp_path / "res"
+    old = tmp_path / ".res.k2j4x9q1.tmp"  # what a killed run of an earlier version left
+    old.mkdir()
+    (old / "channels.csv").write_text("half")
+    mine = tmp_path / ".res.notes123.tmp"  # not only result files: not ours to remove
+    mine.mkdir()
+    (mine / "todo.txt").write_text("mine")
+    for d in (old, mine):
+        os.utime(d, (time.time() - 3600, time.time() - 3600))
+    assert CliRunner().invoke(main, _lap(out)).exit_code == 0
+    assert not old.exists() and (mine / "todo.txt").read_text() == "mine"

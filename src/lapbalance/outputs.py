@@ -31,6 +31,7 @@ import errno
 import io
 import json
 import os
+import re
 import shutil
 import socket
 import tempfile
@@ -360,7 +361,18 @@ def read_manifest(folder: str | Path) -> dict | None:
     if not isinstance(data, dict) or data.get("written_by") != "lapbalance" \
             or not isinstance(data.get("files"), list):
         return None
+    # only plain relative names inside the folder count (a damaged or hand-edited manifest
+    # can never make --force reach outside the folder)
+    data["files"] = [f for f in data["files"] if _safe_name(f)]
     return data
+
+
+def _safe_name(f) -> bool:
+    if not isinstance(f, str) or not f or "\x00" in f or "\\" in f:
+        return False
+    p = Path(f)
+    return not p.is_absolute() and ".." not in p.parts and "." not in p.parts \
+        and p.parts[0] not in _OWN_NAMES and not p.parts[0].startswith(STAGING_PREFIX)
 
 
 def _legacy_demo_files(folder: Path) -> list[str] | None:
@@ -539,12 +551,14 @@ class OutputFolder:
         return self
 
     def _clear_stale_staging(self) -> None:
-        """Remove staging folders of earlier runs (we hold the lock, so they are stale)."""
+        """Remove staging folders of earlier runs (we hold the lock, so they are stale), and
+        the hidden sibling staging folders that versions before manifests left behind."""
         for e in os.scandir(self.path):
             if e.name.startswith(STAGING_PREFIX) and e.is_dir(follow_symlinks=False):
                 shutil.rmtree(e.path, ignore_errors=True)
             elif e.name.startswith(LOCK + ".stale-"):
                 Path(e.path).unlink(missing_ok=True)
+        _clear_legacy_siblings(self.path)
 
     def _write_manifest(self, files: Iterable[str]) -> None:
         from lapbalance import __version__
@@ -629,6 +643,38 @@ class OutputFolder:
         self._release()
         if not keep:
             _remove_empty(self.created)
+
+
+#: Files the sibling staging folders of earlier versions held (``.NAME.xxxxxxxx.tmp``).
+_LEGACY_FILES = re.compile(r"(channels\.csv|corners\.csv|summary\.json|tunnel_corrected\.csv|"
+                           r"report\.html|\.lapbalance-demo|(compare|corners)_[\w.-]+\.csv|"
+                           r"[\w.-]+\.png)")
+
+
+def _clear_legacy_siblings(folder: Path, min_age_s: float = 60.0) -> None:
+    """Remove ``.NAME.xxxxxxxx.tmp`` / ``.NAME.old-PID`` siblings of ``folder`` that hold only
+    lapbalance result files and were last changed over ``min_age_s`` ago (a killed run of an
+    earlier version); anything else there is left alone."""
+    try:
+        parent = folder.resolve().parent
+        name = folder.resolve().name
+        entries = list(os.scandir(parent))
+    except OSError:
+        return
+    pat = re.compile(rf"\.{re.escape(name)}\.([a-z0-9_]{{8}}\.tmp|old-\d+)")
+    now = time.time()
+    for e in entries:
+        if not pat.fullmatch(e.name) or not e.is_dir(follow_symlinks=False):
+            continue
+        try:
+            inner = list(os.scandir(e.path))
+            young = now - e.stat(follow_symlinks=False).st_mtime < min_age_s
+        except OSError:
+            continue
+        if young or not all(x.is_file(follow_symlinks=False) and _LEGACY_FILES.fullmatch(x.name)
+                            for x in inner):
+            continue
+        shutil.rmtree(e.path, ignore_errors=True)
 
 
 def _parents_of(rel: str) -> list[str]:

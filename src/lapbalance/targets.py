@@ -431,7 +431,7 @@ def _percent_slip(q: Quantity, values, src, fld) -> None:
     if not is_share(q):
         return
     vals = [float(v) for v in values]
-    if any(1.5 < abs(v) <= 100.0 for v in vals) and all(abs(v) <= 100.0 for v in vals):
+    if any(2.0 < abs(v) <= 100.0 for v in vals) and all(abs(v) <= 100.0 for v in vals):
         fixed = [round(v / 100.0, 6) for v in vals]
         shown = (f"[{', '.join(f'{v:g}' for v in vals)}]" if len(vals) > 1 else f"{vals[0]:g}")
         fix = (f"[{', '.join(f'{v:g}' for v in fixed)}]" if len(vals) > 1 else f"{fixed[0]:g}")

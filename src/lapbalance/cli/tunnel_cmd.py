@@ -52,7 +52,7 @@ def _length(v, option: str, lo: float, hi: float, text: str | None = None) -> No
     shown = text if text is not None else f"{v:g}"
     if not math.isfinite(v):
         raise InputError(f"= {shown} is not a finite number; give metres", option)
-    if lo <= v <= hi:
+    if lo <= v <= hi or (lo >= 0.0 and v <= 0.0):  # zero/negative: the physics check says
         return
     if lo <= v / 1000.0 <= hi and abs(v) >= 10:
         raise InputError(f"= {shown} looks like millimetres, but the option is in metres; "
