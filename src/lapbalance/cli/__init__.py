@@ -31,6 +31,15 @@ class _Group(click.Group):
         except KeyboardInterrupt:
             click.echo("lapbalance: interrupted; no partial output was written", err=True)
             sys.exit(130)
+        except click.UsageError as e:  # a mistyped option or argument: one line too
+            if debug:
+                raise
+            sub = e.ctx.info_name if e.ctx is not None and e.ctx.parent is not None else None
+            where = f"{sub}: " if sub else ""
+            hint = f"lapbalance {sub} --help" if sub else "lapbalance --help"
+            msg = tidy(f"lapbalance: {where}{e.format_message().rstrip('.')}; see {hint}")
+            click.echo(msg, err=True)
+            sys.exit(2)
         except BrokenPipeError:  # output piped into a program that stopped reading
             import os
 

@@ -212,7 +212,7 @@ def compare_figures_png(result, i: int, key: str) -> dict[str, bytes]:
               metavar="SECTION.KEY=VALUE[,...]",
               help='A variant made of overrides on the base, e.g. --set-variant '
                    '"aero.downforce_area_m2=1.9,aero.drag_area_m2=0.86" (repeatable).')
-@click.option("--out", "out_dir", type=click.Path(file_okay=False),
+@click.option("--out", "out_dir", type=click.Path(),
               help="Write compare_<track>.csv, corners_<track>.csv and plots here.")
 @click.option("--plots/--no-plots", default=True, show_default=True,
               help="With --out, also write PNG figures.")
@@ -332,7 +332,7 @@ def format_sweep(rows, keys, limit: int = 30) -> str:
 @click.option("--cluster", default=None, metavar="ADDRESS",
               help="Run on a Dask scheduler, e.g. tcp://10.0.0.5:8786 (needs "
                    "lapbalance[cluster]).")
-@click.option("--out", "out_dir", type=click.Path(file_okay=False),
+@click.option("--out", "out_dir", type=click.Path(),
               help="Folder for sweep.csv (a rerun resumes), results.csv, sweep.json, plots.")
 @force_option
 @set_option

@@ -29,7 +29,7 @@ def _say(msg: str) -> None:
 
 
 @main.command("demo")
-@click.option("--out", "out_dir", type=click.Path(file_okay=False), default="lapbalance-demo",
+@click.option("--out", "out_dir", type=click.Path(), default="lapbalance-demo",
               show_default=True, help="Folder for the demo results.")
 @click.option("--force", is_flag=True,
               help="Replace an earlier result of another lapbalance command in --out "

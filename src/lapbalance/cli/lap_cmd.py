@@ -102,7 +102,7 @@ def _num(x, fmt):
 @main.command("lap")
 @click.argument("car_file", type=click.Path(dir_okay=False))
 @click.argument("track_file", type=click.Path(dir_okay=False))
-@click.option("--out", "out_dir", type=click.Path(file_okay=False),
+@click.option("--out", "out_dir", type=click.Path(),
               help="Write channels.csv, corners.csv and summary.json here.")
 @set_option
 @json_option

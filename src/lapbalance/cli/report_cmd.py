@@ -19,7 +19,7 @@ from lapbalance.cli.lap_cmd import load_inputs, track_options
               metavar="CAR_FILE", help="Another car file to compare with CAR_FILE "
               "(repeatable); adds a comparison table and overlay figures.")
 @set_option
-@click.option("--out", "out_file", required=True, type=click.Path(dir_okay=False),
+@click.option("--out", "out_file", required=True, type=click.Path(),
               help="HTML file to write, e.g. report.html.")
 @click.option("--force", is_flag=True, help="Replace an existing report file.")
 @track_options

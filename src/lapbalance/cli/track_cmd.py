@@ -92,7 +92,7 @@ def track_map_png(tr: Track) -> bytes:
               help="Spacing of the resampled points [m].")
 @click.option("--closed/--open", "closed", default=None,
               help="Force a closed circuit or an open stage (default: from the file).")
-@click.option("--map", "map_png", type=click.Path(dir_okay=False), default=None,
+@click.option("--map", "map_png", type=click.Path(), default=None,
               metavar="PNG", help="Save a track map with corners labelled.")
 @click.option("--force", is_flag=True, help="Replace an existing --map file.")
 @json_option

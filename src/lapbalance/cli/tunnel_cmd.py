@@ -124,7 +124,7 @@ def _print_reading(r: tunnel.CorrectedReading, measured_label: str, band=None):
               help="Moment reference point rearward of mid-wheelbase [m].")
 @click.option("--moment-ref-z-m", type=float, default=0.0, show_default=True,
               help="Moment reference point height above ground [m].")
-@click.option("--out", "out_path", type=click.Path(dir_okay=False),
+@click.option("--out", "out_path", type=click.Path(),
               help="Write the corrected table to this CSV file (table form).")
 @force_option
 @json_option
