@@ -397,3 +397,13 @@ def test_hidden_sibling_staging_of_an_earlier_version_is_cleared(tmp_path):
         os.utime(d, (time.time() - 3600, time.time() - 3600))
     assert CliRunner().invoke(main, _lap(out)).exit_code == 0
     assert not old.exists() and (mine / "todo.txt").read_text() == "mine"
+
+
+def test_temporaries_of_a_killed_write_do_not_make_the_folder_foreign(tmp_path):
+    out = tmp_path / "res"
+    assert CliRunner().invoke(main, _lap(out)).exit_code == 0
+    (out / ".summary.json.ab12cd34.tmp").write_text("{")  # kill -9 inside an atomic write
+    (out / f".{outputs.MANIFEST}.x9y8z7w6.tmp").write_text("{")
+    res = CliRunner().invoke(main, _lap(out, "--force"))
+    assert res.exit_code == 0, res.output
+    assert _hidden(tmp_path) == []

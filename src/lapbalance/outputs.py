@@ -407,6 +407,8 @@ def foreign_entries(folder: str | Path, listed: Iterable[str] = ()) -> list[str]
             name = f"{rel}{e.name}"
             if not rel and _is_own(e.name):
                 continue
+            if _temp_of(name, listed) and e.is_file(follow_symlinks=False):
+                continue  # a temporary file of an atomic write cut short by a kill
             if e.is_dir(follow_symlinks=False):
                 if name in dirs:
                     walk(Path(e.path), name + "/")
@@ -419,6 +421,19 @@ def foreign_entries(folder: str | Path, listed: Iterable[str] = ()) -> list[str]
 
     walk(folder, "")
     return out
+
+
+_TEMP = re.compile(r"(?:(.*)/)?\.(.+)\.[a-z0-9_]{8}\.tmp")
+
+
+def _temp_of(rel: str, listed) -> bool:
+    """True for ``.NAME.xxxxxxxx.tmp`` (a temporary of :func:`write_bytes_atomic`) where NAME
+    is a listed file or the manifest."""
+    m = _TEMP.fullmatch(rel)
+    if not m:
+        return False
+    target = f"{m.group(1)}/{m.group(2)}" if m.group(1) else m.group(2)
+    return target in listed or target == MANIFEST
 
 
 def _describe(names: Sequence[str], limit: int = 3) -> str:
@@ -558,6 +573,13 @@ class OutputFolder:
                 shutil.rmtree(e.path, ignore_errors=True)
             elif e.name.startswith(LOCK + ".stale-"):
                 Path(e.path).unlink(missing_ok=True)
+        man = read_manifest(self.path)
+        listed = set(man["files"]) if man else set()
+        for root, _dirs, files in os.walk(self.path):
+            for f in files:
+                rel = str((Path(root) / f).relative_to(self.path))
+                if _temp_of(rel, listed):
+                    (Path(root) / f).unlink(missing_ok=True)
         _clear_legacy_siblings(self.path)
 
     def _write_manifest(self, files: Iterable[str]) -> None:
