@@ -398,7 +398,7 @@ def _parse_row(cells: list[str], header: list[str], keys: Sequence[str]) -> dict
 def _read_log(path: Path, header: list[str], keys: Sequence[str],
               base_id: str) -> dict[str, dict]:
     """Rows already in the log {point: row}; rewrites the log if it holds a torn line."""
-    text = path.read_text(encoding="utf-8", errors="replace")
+    text = path.read_text(encoding="utf-8-sig", errors="replace")
     lines = list(csv.reader(io.StringIO(text)))
     if not lines or lines[0] != header:
         raise InputError(f"{path} holds a sweep over other keys or columns; pass --force to "

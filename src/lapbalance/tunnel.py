@@ -430,6 +430,15 @@ def read_readings(path: str | Path) -> ReadingsTable:
         cols = {k: v[keep] for k, v in cols.items()}
         extra = {k: [x for x, z in zip(v, zero, strict=True) if not z] for k, v in extra.items()}
         lines = lines[keep]
+    if "speed_kph" in cols and (cols["speed_kph"] == 0).any():
+        import warnings
+
+        still = cols["speed_kph"] == 0
+        at = ", ".join(str(int(x)) for x in lines[still][:5]) + (", ..." if still.sum() > 5
+                                                                  else "")
+        warnings.warn(f"{path}: line {at}: speed_kph = 0 with loads on the balance (a "
+                      "wind-off or tare row?); its areas are left empty: subtract the tare "
+                      "from the readings and delete the row", PhysicsWarning, stacklevel=2)
     return ReadingsTable(cols, extra, lines, str(path))
 
 
