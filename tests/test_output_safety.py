@@ -142,6 +142,7 @@ def test_a_live_lock_refuses_the_second_run_at_once(tmp_path, monkeypatch):
     assert sorted(p.name for p in out.iterdir()) == [outputs.LOCK]
 
 
+@pytest.mark.slow
 def test_two_concurrent_real_runs_give_one_result_and_one_refusal(tmp_path):
     out = tmp_path / "D"
     cmd = [sys.executable, "-m", "lapbalance", *_lap(out)]
@@ -309,6 +310,7 @@ def _descendants(pid: int) -> set[int]:
     return found
 
 
+@pytest.mark.slow
 @pytest.mark.skipif(not sys.platform.startswith("linux"), reason="reads /proc")
 def test_kill_9_of_a_sweep_leaves_no_process_after_10_s(tmp_path):
     track = ROOT / "tracks" / "veldmoor_ring.csv"  # the longest demo lap: the pool stays busy
