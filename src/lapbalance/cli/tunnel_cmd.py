@@ -154,6 +154,19 @@ def tunnel_command(readings, car_file, overrides, front_n, rear_n, drag_n, cg_te
     for name, v in numbers.items():
         if v is not None and not math.isfinite(v):
             raise InputError(f"= {v:g} is not a finite number; give a plain number", name)
+    for name in ("--front-n", "--rear-n", "--drag-n", "--lift-n"):
+        v = numbers[name]
+        if v is not None and abs(v) > 1e6:
+            raise InputError(f"= {v:g} N is beyond ±1e6 N (100 t); give the force in newtons "
+                             "(a car's aero loads are up to tens of kN)", name)
+    if pitch_moment_nm is not None and abs(pitch_moment_nm) > 1e7:
+        raise InputError(f"= {pitch_moment_nm:g} N·m is beyond ±1e7 N·m; give newton-metres",
+                         "--pitch-moment-nm")
+    for name in ("--cl", "--cd", "--cpm", "--clf", "--clr"):
+        v = numbers[name]
+        if v is not None and abs(v) > 20:
+            raise InputError(f"= {v:g} is beyond ±20; give the coefficient itself (C_L of a "
+                             "car is about -4 to 1), not in counts or percent", name)
     _length(wheelbase_m, "--wheelbase-m", 0.5, 6.0)
     _length(restraint_height_m, "--restraint-height-m", -0.5, 2.0)
     _length(drag_height_m, "--drag-height-m", -0.5, 3.0)
