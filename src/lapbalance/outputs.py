@@ -497,6 +497,7 @@ class OutputFolder:
         self.previous: list[str] = []
         self.previous_command: str | None = None
         self.adopted: set[str] = set()
+        self.hashes: dict[str, str] = {}
         self._locked = False
 
     # -- checks --------------------------------------------------------------------------
@@ -530,6 +531,14 @@ class OutputFolder:
                                  self.option)
         present = [f for f in listed if (p / f).exists()]
         self.previous = present
+        sums = man.get("sha256") if man and isinstance(man.get("sha256"), dict) else {}
+        self.hashes = {f: sums[f] for f in present if isinstance(sums.get(f), str)}
+        if present and (self.force or self.resume):
+            changed = [f for f, h in self.hashes.items() if _sha256(p / f) != h]
+            if changed:
+                raise InputError(f"{self._name()}: {_describe_changed(changed)} changed since "
+                                 "lapbalance wrote it; move it elsewhere to keep it, or choose "
+                                 f"another {self.option}", self.option)
         if present and not (self.force or self.resume):
             by = f" (written by lapbalance {self.previous_command})" \
                 if self.previous_command else ""
@@ -585,11 +594,14 @@ class OutputFolder:
     def _write_manifest(self, files: Iterable[str]) -> None:
         from lapbalance import __version__
 
+        files = sorted(set(files))
+        sums = {f: self.hashes[f] for f in files if self.hashes.get(f)}
         write_json_atomic(self.path / MANIFEST, {
             "written_by": "lapbalance", "version": __version__, "command": self.command,
             "note": "lapbalance wrote the files listed here and may replace them with "
-                    "--force; it refuses a folder holding anything else",
-            "files": sorted(set(files)),
+                    "--force (unless they were changed since); it refuses a folder holding "
+                    "anything else",
+            "files": files, "sha256": sums,
         })
 
     def adopt(self, names: Iterable[str]) -> None:
@@ -630,6 +642,10 @@ class OutputFolder:
                         new.append(str((Path(root) / f).relative_to(self.staging)))
             new_set = set(new) | self.adopted
             old = set(self.previous)
+            for f in new:
+                self.hashes[f] = _sha256(self.staging / f)
+            for f in self.adopted:  # written in place (a log that grows): no fixed sum
+                self.hashes.pop(f, None)
             if new or self.adopted:
                 self._write_manifest(old | new_set)  # a kill from here on leaves it listed
             for f in sorted(new):
@@ -697,6 +713,24 @@ def _clear_legacy_siblings(folder: Path, min_age_s: float = 60.0) -> None:
                             for x in inner):
             continue
         shutil.rmtree(e.path, ignore_errors=True)
+
+
+def _sha256(path: Path) -> str | None:
+    import hashlib
+
+    h = hashlib.sha256()
+    try:
+        with open(path, "rb") as fh:
+            for block in iter(lambda: fh.read(1 << 20), b""):
+                h.update(block)
+    except OSError:
+        return None
+    return h.hexdigest()
+
+
+def _describe_changed(names: Sequence[str]) -> str:
+    shown = ", ".join(clip(n, 40) for n in names[:3]) + (", ..." if len(names) > 3 else "")
+    return f"{shown} was" if len(names) == 1 else f"{len(names)} files ({shown}) were"
 
 
 def _parents_of(rel: str) -> list[str]:
