@@ -103,6 +103,24 @@ EXPECT: dict[str, str] = {
         r"car_variant_loop_b\.toml\); make one file the plain base",
     "car_variant_bad_override.toml":
         r"car_variant_bad_override\.toml: chassis\.cg_height_m: = -0\.4 m is not physical",
+    "car_torque_curve_rad_per_s.toml":
+        r"powertrain\.torque_curve_rpm: ends at 785\.4, far below rev_limit_rpm 7500: the "
+        r"speeds look like rad/s .*multiply them by 9\.5493 to give rpm",
+    "car_torque_curve_rev_per_s.toml":
+        r"powertrain\.torque_curve_rpm: .*the speeds look like rev/s .*multiply them by 60",
+    "car_torque_curve_ends_far_below_limit.toml":
+        r"powertrain\.torque_curve_rpm: ends at 1750 rpm, far below rev_limit_rpm 7500; give "
+        r"the torque up to the rev limit",
+    "car_deep_nesting.toml": r"nests lists or tables too deeply; a car file needs plain",
+    "car_huge_integer.toml": r"holds a number too long to read",
+    "car_350kB_string_value.toml":
+        r"chassis\.mass_kg: = '1300 kg .*….* \(352002 characters\) is not a number",
+    "car_windows_1252.toml": r"is not UTF-8 text; save the car file as UTF-8",
+    "car_utf16_without_bom.toml":
+        r"is UTF-16 text without a byte-order mark; save the car file as UTF-8",
+    "car_mass_as_list.toml": r"chassis\.mass_kg: = \[1300\.0\] is not a number",
+    "car_mass_as_boolean.toml": r"chassis\.mass_kg: = True is not a number",
+    "car_duplicate_key.toml": r"is not valid TOML \(Cannot overwrite a value .*line 8",
     "car_aero_map_missing.toml":
         r'aero\.map_file: aero map "no_such_aero_map\.csv" not found .*give a path relative '
         r"to the car file",
@@ -140,6 +158,14 @@ EXPECT: dict[str, str] = {
     "track_sectors_not_rising.csv": r"sectors_m: sector starts .* must increase",
     "track_negative_width.csv": r"line 12: width_m = -12 must be > 0",
     "track_duplicate_column.csv": LINE + r"a column name appears twice in the header; keep one",
+    "track_350kB_line.csv": r"line 25: 2 values but the header has 4 columns",
+    "track_quoted_text_cell.csv":
+        r'line 35: column x_m = "12\.5 m" is not a number; write a plain number',
+    "track_blank_cell.csv": r'line 13: column x_m = "" is not a number',
+    "track_single_column.csv": LINE + r"header needs columns x_m,y_m or lat_deg,lon_deg",
+    "track_windows_1252.csv": r"not UTF-8 text; export the track as CSV \(UTF-8\)",
+    "track_utf16_without_bom.csv":
+        r"UTF-16 text without a byte-order mark; export the track as CSV \(UTF-8\)",
     # aero maps ------------------------------------------------------------------------------
     "aeromap_ragged_grid.csv":
         r"grid: grid is not complete: 41 of 7 x 6 = 42 nodes given; missing front 10 mm with "
@@ -158,6 +184,10 @@ EXPECT: dict[str, str] = {
     "aeromap_text_cell.csv":
         LINE + r'front_downforce_area_m2 = "n/a" is not a number; give a number',
     "aeromap_negative_drag.csv": LINE + r"drag_area_m2 = -1\.\d+ is negative; drag area is >= 0",
+    "aeromap_binary.csv": r"is a binary file, not an aero map CSV",
+    "aeromap_not_utf8.csv": r"is not UTF-8 text; save the aero map as UTF-8 CSV",
+    "aeromap_quoted_text_cell.csv":
+        r'line 9: front_downforce_area_m2 = "about 1" is not a number; give a number',
     # tunnel readings ------------------------------------------------------------------------
     "tunnel_missing_column.csv":
         LINE + r'missing column "drag_n"; the header needs front_n, rear_n, drag_n',
@@ -171,6 +201,18 @@ EXPECT: dict[str, str] = {
         LINE + r"the header is separated by semicolons; save the file with commas",
     "tunnel_empty.csv": r"has no header line; give columns front_n, rear_n, drag_n",
     "tunnel_binary.csv": r"cannot be read as UTF-8 CSV text",
+    "tunnel_speeds_in_mps.csv":
+        r"speed_kph: the speeds look like m/s, not km/h: read as km/h they give a drag area of "
+        r"10\.4 m² \(the car's is 0\.8 m²\), as m/s 0\.80\d m²; multiply the speeds by 3\.6",
+    "tunnel_every_reading_zero.csv":
+        r"every reading is zero \(front_n, rear_n and drag_n\); give the readings with the "
+        r"wind on",
+    "tunnel_text_in_number.csv": LINE + r'rear_n = "450 N" is not a number',
+    "tunnel_nan_value.csv": LINE + r"drag_n = nan is not a finite number",
+    "tunnel_duplicate_column.csv": LINE + r'column "front_n" appears twice; keep one',
+    "tunnel_short_row.csv": LINE + r"has 5 values but the header has 7 columns; fill in",
+    "tunnel_header_only.csv": r"has a header but no readings",
+    "tunnel_not_utf8.csv": r"cannot be read as UTF-8 CSV text",
     # targets --------------------------------------------------------------------------------
     "targets_unknown_quantity.toml":
         r'target\[1\]\.quantity: unknown quantity "aero_balanse_front"; did you mean '
@@ -179,10 +221,24 @@ EXPECT: dict[str, str] = {
         r'target\[1\]\.condition: unknown condition "maximum"; did you mean "max"',
     "targets_syntax_error.toml": r"not valid TOML \(.*line 3",
     "targets_empty.toml": r"target: no targets; add at least one \[\[target\]\] table",
+    "targets_range_as_percent.toml":
+        r"target\[1\]\.condition\.range: = \[38, 48\] looks like a percentage, but "
+        r"aero_balance_front is a fraction \(0 to 1\); write \[0\.38, 0\.48\]",
+    "targets_max_usage_as_percent.toml":
+        r"target\[1\]\.condition\.max: = 95 looks like a percentage, but usage_rear_at_min is "
+        r"a fraction \(0 to 1\); write 0\.95",
+    "targets_min_balance_as_percent.toml":
+        r"target\[1\]\.condition\.min: = 40 looks like a percentage.*write 0\.4",
+    "targets_binary.toml": r"is a binary file, not a targets TOML file",
+    "targets_not_utf8.toml": r"is not UTF-8 text; save the targets file as UTF-8",
+    "targets_deep_nesting.toml": r"lists nested too deeply or a number too long",
 }
 
 # log_*.csv (logged laps) are checked by tests/test_correlate_bad.py
 CORPUS = sorted(p.name for p in BAD.iterdir() if p.is_file() and not p.name.startswith("log_"))
+
+#: Longest message line a bad input may give (long values are cut) [characters].
+MAX_MESSAGE = 520
 
 
 def _has(command: str) -> bool:
@@ -244,7 +300,8 @@ def _runs(name: str, tmp: Path) -> list[tuple[str, list[str]]]:
 
 
 def test_corpus_is_large_and_every_file_has_an_expectation():
-    assert len(CORPUS) >= 40
+    assert len(CORPUS) >= 110
+    assert len(CORPUS) + len(TRICKY_CORPUS) >= 130
     assert set(CORPUS) == set(EXPECT), (set(CORPUS) ^ set(EXPECT))
     kinds = {n.split("_", 1)[0] for n in CORPUS}
     assert kinds == {"car", "track", "aeromap", "tunnel", "targets"}
@@ -270,6 +327,7 @@ def test_bad_file_gives_one_clear_line(name, tmp_path):
         assert res.output.strip() == msg, where  # nothing else printed
         assert name in msg, where
         assert pattern.search(msg), f"{where}\nexpected /{EXPECT[name]}/"
+        assert len(msg) <= MAX_MESSAGE, f"{where}\n{len(msg)} characters"
         # nothing was written for a failed run
         assert not (tmp_path / "corrected.csv").exists()
         assert not (tmp_path / "r.html").exists()
@@ -301,7 +359,40 @@ def test_folder_given_as_car_file_is_a_usage_error():
     (["lap", str(GOOD_CAR), str(GOOD_TRACK), "--step-m", "nan"],
      r"--step-m: = nan must be between 0 and 50 m"),
     (["track", str(GOOD_TRACK), "--step-m", "1e9"],
-     r"--step-m: = 1000000000.0 must be between 0 and 50 m"),
+     r"--step-m: = 1e\+09 must be between 0 and 50 m"),
+    (["lap", str(GOOD_CAR), str(GOOD_TRACK), "--step-m", "1e-6"],
+     r"--step-m: = 1e-06 must be between 0 and 50 m, at least 0\.1 m \(at 1e-06 m a 5 km lap "
+     r"has 5e\+09 points, about .* GB of channels"),
+    (["lap", str(GOOD_CAR), "tracks/skarhelm_climb.csv", "--start-speed-kph", "900"],
+     r"--start-speed-kph: = 900 km/h is above the top speed of .* \(\d+ km/h at the rev "
+     r"limit in top gear\); the lap would silently start at \d+ km/h"),
+    (["sweep", str(GOOD_CAR), str(GOOD_TRACK), "--vary", "aero.drag_area_m2=0.8:0.9:10000000"],
+     r'--vary: aero\.drag_area_m2: n = 10000000 in "0\.8:0\.9:10000000" is more than 100000 '
+     r"values \(each is a whole lap\)"),
+    (["sweep", str(GOOD_CAR), str(GOOD_TRACK), "--vary", "aero.drag_area_m2=0.8:0.9",
+      "--lhs", "1000000000"], r"--lhs: = 1000000000 must be between 1 and 100000 \(each point"),
+    (["sweep", str(GOOD_CAR), str(GOOD_TRACK), "--vary", "aero.drag_area_m2=0.8:0.9",
+      "--lhs", "4", "--seed", "-3"], r"--seed: = -3 must be between 0 and 4294967295"),
+    (["sweep", str(GOOD_CAR), str(GOOD_TRACK), "--vary", "aero.drag_area_m2=0.8",
+      "--workers", "5000"], r"--workers: = 5000 must be between 1 and \d+ \(each worker is a "
+                             r"process"),
+    (["tunnel", "--front-n", "300", "--rear-n", "400", "--drag-n", "350", "--cg-height-m",
+      "420", "--wheelbase-m", "2.65"],
+     r"--cg-height-m: = 420 looks like millimetres, but the option is in metres; write 0\.42"),
+    (["tunnel", "--front-n", "nan", "--rear-n", "400", "--drag-n", "350", "--cg-height-m",
+      "0.42", "--wheelbase-m", "2.65"], r"--front-n: = nan is not a finite number"),
+    (["tunnel", "--cl", "-3", "--cd", "0.4", "--cpm", "0.1", "--frontal-area-m2", "2000",
+      "--speed-kph", "200", "--cg-height-m", "0.42", "--wheelbase-m", "2.65"],
+     r"--frontal-area-m2: = 2000 m² is more than 20 m²"),
+    (["tunnel", "--cl", "-300", "--cd", "40", "--cpm", "10", "--frontal-area-m2", "2",
+      "--speed-kph", "200", "--cg-height-m", "0.42", "--wheelbase-m", "2.65"],
+     r"--cl: = -300 is beyond ±20; give the coefficient itself"),
+    (["tunnel", "--front-n", "3e9", "--rear-n", "400", "--drag-n", "350", "--cg-height-m",
+      "0.42", "--wheelbase-m", "2.65"], r"--front-n: = 3e\+09 N is beyond ±1e6 N"),
+    (["car", str(GOOD_CAR), "--set", "chassis.mass_kg=" + "9" * 5000],
+     r"--set: chassis\.mass_kg: = inf is not a finite number"),
+    (["car", str(GOOD_CAR), "--set", "x" * 300000 + "=1"],
+     r"--set: \.x+…x+ \(300001 characters\): unknown key"),
     (["lap", str(GOOD_CAR), str(GOOD_TRACK), "--set", "chassis.mass=1000"],
      r'--set: chassis\.mass: unknown key "chassis\.mass"; did you mean "mass_kg"'),
     (["lap", str(GOOD_CAR), str(GOOD_TRACK), "--set", "nonsense"],
@@ -319,3 +410,107 @@ def test_bad_options_give_one_clear_line(argv, pattern, monkeypatch):
     msg = res.stderr.strip()
     assert "\n" not in msg and msg.startswith("lapbalance: "), res.output
     assert re.search(pattern, msg), msg
+    assert len(msg) <= MAX_MESSAGE, msg
+
+
+# ---------------------------------------------------------------------------------------------
+# tricky inputs that must be accepted (tests/data/tricky): spreadsheet and editor habits
+# ---------------------------------------------------------------------------------------------
+
+TRICKY = ROOT / "tests" / "data" / "tricky"
+TRICKY_CORPUS = sorted(p.name for p in TRICKY.iterdir() if p.is_file())
+PLAIN = {"car": GOOD_CAR, "targets": ROOT / "examples" / "targets_pass.toml",
+         "track": ROOT / "tracks" / "oranby_bowl.csv", "tunnel": GOOD_READINGS,
+         "aeromap": ROOT / "examples" / "single_seater_aero_map.csv"}
+
+#: tricky file -> regex of the one warning it must give (files not listed give none).
+TRICKY_WARNS: dict[str, str] = {
+    "car_torque_curve_short.toml":
+        r"powertrain\.torque_curve_rpm: the curve ends at 6000 rpm, below rev_limit_rpm 7500; "
+        r"the torque is held at 570 N·m up to the limit: extend the curve",
+    "car_shift_below_best_torque.toml":
+        r"powertrain\.shift_rpm: = 4200 rpm is below 5000 rpm, where the engine gives its best "
+        r"torque \(force\)",
+    "tunnel_tare_row.csv":
+        r"line \d+: front_n, rear_n and drag_n are all zero \(a tare or wind-off row\?\); the "
+        r"row is left out",
+    "tunnel_wind_off_row.csv":
+        r"line \d+: speed_kph = 0 with loads on the balance \(a wind-off or tare row\?\); its "
+        r"areas are left empty",
+}
+#: tricky files read on purpose differently from their plain twin (a row or the engine).
+TRICKY_DIFFERENT = {"car_torque_curve_short.toml", "car_shift_below_best_torque.toml",
+                    "tunnel_wind_off_row.csv"}
+
+
+def _load(kind: str, path: Path, tmp: Path):
+    from lapbalance import tunnel
+    from lapbalance.targets import load_targets
+
+    if kind == "car":
+        c = load_car(path)
+        return (c.chassis, c.aero, c.tyres, c.brakes, c.suspension, c.air)
+    if kind == "targets":
+        return [(t.name, t.quantity, t.condition, t.scope, t.aggregate)
+                for t in load_targets(path)]
+    if kind == "track":
+        t = load_track(path, step_m=4.0)
+        return (t.name, t.closed, round(t.length_m, 9), t.x_m.tolist(), t.y_m.tolist(),
+                t.bank_rad.tolist())
+    if kind == "tunnel":
+        tab = tunnel.read_readings(path)
+        return ({k: v.tolist() for k, v in tab.columns.items()}, tab.extra)
+    variant = tmp / f"variant_{path.stem}.toml"  # aero map: read through a car file
+    variant.write_text(f'base = "{MAPPED_CAR.as_posix()}"\n\n[aero]\nmap_file = '
+                       f'"{path.as_posix()}"\n', encoding="utf-8")
+    m = load_car(variant).aero.aero_map
+    return (m.rh_front_m.tolist(), m.rh_rear_m.tolist(), m.front_area_cg.tolist(),
+            m.rear_area_cg.tolist(), m.drag_area.tolist())
+
+
+def test_tricky_corpus_covers_every_reader():
+    assert {n.split("_", 1)[0] for n in TRICKY_CORPUS} == set(PLAIN)
+    assert set(TRICKY_WARNS) <= set(TRICKY_CORPUS)
+
+
+@pytest.mark.parametrize("name", TRICKY_CORPUS)
+def test_tricky_file_reads_like_the_plain_one(name, tmp_path):
+    import warnings
+
+    kind = name.split("_", 1)[0]
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        got = _load(kind, TRICKY / name, tmp_path)
+    texts = [str(w.message) for w in caught]
+    if name in TRICKY_WARNS:
+        assert len(texts) == 1 and re.search(TRICKY_WARNS[name], texts[0]), texts
+        assert name in texts[0]
+    else:
+        assert texts == []
+    if name in TRICKY_DIFFERENT:
+        return  # a different engine or an extra row on purpose
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        assert got == _load(kind, PLAIN[kind], tmp_path)
+
+
+@pytest.mark.parametrize("name", [n for n in TRICKY_CORPUS
+                                  if n.startswith(("car_", "tunnel_", "targets_"))])
+def test_tricky_file_is_accepted_by_the_commands(name, tmp_path):
+    path = str(TRICKY / name)
+    if name.startswith("car_"):
+        argv = ["car", path]
+    elif name.startswith("tunnel_"):
+        argv = ["tunnel", path, "--car", str(GOOD_CAR), "--out", str(tmp_path / "c.csv")]
+    else:
+        argv = ["check", str(GOOD_CAR), str(GOOD_TRACK), path, "--step-m", "4"]
+    res = CliRunner().invoke(main, argv)
+    assert res.exit_code in ((0, 1) if argv[0] == "check" else (0,)), res.output
+    assert "Traceback" not in res.output
+    warns = [ln for ln in res.stderr.splitlines() if ln.strip()]
+    assert len(warns) == (1 if name in TRICKY_WARNS else 0), res.stderr
+    if name.startswith("tunnel_"):
+        text = (tmp_path / "c.csv").read_text(encoding="utf-8")
+        assert "nan" not in text.lower()  # no literal nan cell (a tare row is left out)
+        rows = 6 if name == "tunnel_wind_off_row.csv" else 5  # the five readings (+ wind off)
+        assert text.count("\n") == 1 + rows

@@ -90,12 +90,22 @@ def test_demo_runs_twice_and_refuses_foreign_folder(tmp_path):
     out = tmp_path / "demo"
     r = CliRunner().invoke(main, ["demo", "--out", str(out)])
     assert r.exit_code == 0, r.output
-    assert (out / "summary.json").exists() and (out / ".lapbalance-demo").exists()
+    assert (out / "summary.json").exists() and (out / ".lapbalance-manifest.json").exists()
     r = CliRunner().invoke(main, ["demo", "--out", str(out)])
     assert r.exit_code == 0
+    # a user's file put into the demo's own folder: the rerun refuses and keeps it
+    (out / "my_notes.txt").write_text("keep me too")
+    for extra in ([], ["--force"]):
+        r = CliRunner().invoke(main, ["demo", "--out", str(out), *extra])
+        assert r.exit_code == 2, r.output
+        assert "holds 1 file lapbalance did not write (my_notes.txt)" in r.stderr
+    assert (out / "my_notes.txt").read_text() == "keep me too"
+    assert (out / "summary.json").exists()
     foreign = tmp_path / "mine"
     foreign.mkdir()
     (foreign / "notes.txt").write_text("keep me")
-    r = CliRunner().invoke(main, ["demo", "--out", str(foreign)])
-    assert r.exit_code == 2
+    for extra in ([], ["--force"]):
+        r = CliRunner().invoke(main, ["demo", "--out", str(foreign), *extra])
+        assert r.exit_code == 2
+    assert sorted(p.name for p in foreign.iterdir()) == ["notes.txt"]
     assert (foreign / "notes.txt").read_text() == "keep me"

@@ -30,22 +30,29 @@ READINGS = ROOT / "examples" / "gt_coupe_tunnel_sweep.csv"
 
 
 def _leftovers(folder: Path) -> list[str]:
-    """Hidden temporary files/folders the writers would leave behind."""
-    return sorted(p.name for p in folder.iterdir() if p.name.startswith("."))
+    """Hidden temporary files/folders (locks, staging, temporaries) the writers would leave
+    behind, here and in the folders below (the manifest of a result folder is no leftover)."""
+    return sorted(str(p.relative_to(folder)) for p in folder.rglob(".*")
+                  if p.name != outputs.MANIFEST)
 
 
 def _old_results(folder: Path) -> dict[str, bytes]:
+    """An earlier lapbalance result: files listed in the folder's manifest."""
     folder.mkdir()
     files = {"channels.csv": b"distance_m,speed_kph\n0,100\n",
              "summary.json": b'{"lap_time_s": 99.0}\n',
-             "notes.txt": b"engineer's notes\n"}
+             "plots/speed.png": b"png"}
     for name, data in files.items():
+        (folder / name).parent.mkdir(exist_ok=True)
         (folder / name).write_bytes(data)
+    (folder / outputs.MANIFEST).write_text(json.dumps(
+        {"written_by": "lapbalance", "command": "lap", "files": sorted(files)}))
     return files
 
 
 def _snapshot(folder: Path) -> dict[str, bytes]:
-    return {p.name: p.read_bytes() for p in folder.iterdir()}
+    return {str(p.relative_to(folder)): p.read_bytes() for p in folder.rglob("*")
+            if p.is_file() and p.name != outputs.MANIFEST}
 
 
 # ---------------------------------------------------------------------------------------------
@@ -120,10 +127,11 @@ def test_force_swaps_in_the_complete_new_folder(tmp_path):
     out = tmp_path / "results"
     _old_results(out)
     with staged_dir(out, force=True) as tmp:
-        assert tmp.parent == tmp_path and tmp != out
+        assert tmp.parent == out and tmp.name.startswith(outputs.STAGING_PREFIX)
         (tmp / "channels.csv").write_text("new")
-        assert (out / "notes.txt").exists()  # the old folder stays until the end
+        assert (out / "summary.json").exists()  # the old files stay until the end
     assert _snapshot(out) == {"channels.csv": b"new"}
+    assert outputs.read_manifest(out)["files"] == ["channels.csv"]
     assert _leftovers(tmp_path) == []
 
 
@@ -133,6 +141,7 @@ def test_empty_existing_folder_is_used_without_force(tmp_path):
     with staged_dir(out) as tmp:
         (tmp / "a.csv").write_text("a")
     assert _snapshot(out) == {"a.csv": b"a"}
+    assert _leftovers(tmp_path) == []
 
 
 def test_a_file_in_the_way_of_the_folder_is_an_error(tmp_path):
@@ -218,9 +227,9 @@ def test_lap_force_replaces_the_folder(tmp_path):
     _old_results(out)
     res = CliRunner().invoke(main, _lap_args(out, "--force"))
     assert res.exit_code == 0, res.output
-    assert sorted(p.name for p in out.iterdir()) == ["channels.csv", "corners.csv",
-                                                      "liftoff_response.csv", "provenance.json",
-                                                      "summary.json"]
+    assert sorted(p.name for p in out.iterdir()) == [outputs.MANIFEST, "channels.csv",
+                                                      "corners.csv", "liftoff_response.csv",
+                                                      "provenance.json", "summary.json"]
     assert json.loads((out / "summary.json").read_text())["lap_time_s"] > 0
     assert _leftovers(tmp_path) == []
 
@@ -256,6 +265,7 @@ def test_tunnel_table_refuses_an_existing_out_file_without_force(tmp_path):
     res = CliRunner().invoke(main, args)
     assert res.exit_code == 2
     assert "already exists; pass --force to replace it" in res.stderr
+    assert "(not written by lapbalance; --force replaces this one file)" in res.stderr
     assert target.read_text() == "engineer's table\n"
     res = CliRunner().invoke(main, args + ["--force"])
     assert res.exit_code == 0, res.output

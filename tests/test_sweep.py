@@ -160,8 +160,12 @@ def test_log_of_another_sweep_is_not_mixed(car, track, tmp_path):
     assert rows[0]["lap_time_s"] > 0
     (tmp_path / "busy").mkdir()
     (tmp_path / "busy" / "notes.txt").write_text("mine")
-    with pytest.raises(InputError, match="already holds"):
-        sweep(car, track, {"aero.drag_area_m2": [0.8]}, out=tmp_path / "busy")
+    for force in (False, True):  # a folder holding the user's files is never taken
+        with pytest.raises(InputError, match=r"holds 1 file lapbalance did not write "
+                                             r"\(notes\.txt\)"):
+            sweep(car, track, {"aero.drag_area_m2": [0.8]}, out=tmp_path / "busy",
+                  force=force)
+    assert sorted(p.name for p in (tmp_path / "busy").iterdir()) == ["notes.txt"]
 
 
 def test_infeasible_point_is_recorded_not_fatal(car, track, monkeypatch):
@@ -255,7 +259,7 @@ def test_cli_sweep_grid(track_file, tmp_path, car):
     (["--vary", "aero.dragarea_m2=0.7:0.9:3"], 'did you mean "drag_area_m2"'),
     (["--vary", "aero.drag_area_m2=0.7:0.9"], "lo:hi:n"),
     (["--vary", "aero.drag_area_m2=0.7:0.9:0"], "at least 1"),
-    (["--vary", "aero.drag_area_m2=0.7", "--workers", "0"], "at least 1 worker"),
+    (["--vary", "aero.drag_area_m2=0.7", "--workers", "0"], "--workers: = 0 must be between 1"),
     (["--vary", "aero.drag_area_m2=1,2", "--vary", "aero.drag_area_m2=3"], "twice"),
 ])
 def test_cli_sweep_bad_vary_exits_2(track_file, args, match):

@@ -34,8 +34,6 @@ References
 
 from __future__ import annotations
 
-import csv
-import io
 import math
 import warnings
 from dataclasses import dataclass, field
@@ -45,7 +43,8 @@ import numpy as np
 from scipy.interpolate import RectBivariateSpline
 
 from lapbalance import aero as _aero
-from lapbalance.errors import InputError, PhysicsWarning, closest, did_you_mean
+from lapbalance.errors import InputError, PhysicsWarning, clip, closest, did_you_mean
+from lapbalance.textio import csv_cells
 from lapbalance.units import MM
 
 #: Column names of the map file, in the documented order.
@@ -219,12 +218,9 @@ def _read_text(path: Path) -> str:
         raise InputError("is a folder, not an aero map CSV", path) from None
     except OSError as e:
         raise InputError(f"cannot read ({e.strerror})", path) from None
-    if b"\x00" in data:
-        raise InputError("is a binary file, not an aero map CSV", path)
-    try:
-        return data.decode("utf-8-sig")
-    except UnicodeDecodeError:
-        raise InputError("is not UTF-8 text; save the aero map as UTF-8 CSV", path) from None
+    from lapbalance.textio import decode_text
+
+    return decode_text(data, path, "an aero map CSV", "save the aero map as UTF-8 CSV")
 
 
 def _parse(text: str, path: Path):
@@ -234,7 +230,7 @@ def _parse(text: str, path: Path):
     rows = []
     for lineno, line in enumerate(text.splitlines(), start=1):
         s = line.strip()
-        if not s:
+        if not s or (lineno == 1 and s.lower() == "sep=,"):  # a spreadsheet's "sep=," hint
             continue
         if s.startswith("#"):
             body = s.lstrip("#").strip()
@@ -246,8 +242,7 @@ def _parse(text: str, path: Path):
                     _fail(f'unknown metadata "# {key}:"; '
                           f"{did_you_mean(key, METADATA_KEYS)}", path, f"line {lineno}")
             continue
-        cells = next(csv.reader(io.StringIO(s)))
-        cells = [c.strip() for c in cells]
+        cells = csv_cells(s)
         if header is None:
             header = (lineno, cells)
         else:
@@ -303,7 +298,7 @@ def load_aero_map(path: str | Path, cg_height: float, wheelbase: float) -> AeroM
         try:
             z = float(txt)
         except ValueError:
-            _fail(f'restraint_height_m = "{txt}" is not a number; give metres, e.g. 0.3',
+            _fail(f'restraint_height_m = "{clip(txt)}" is not a number; give metres, e.g. 0.3',
                   path, f"line {zl}")
         if not (math.isfinite(z) and 0.0 <= z <= 3.0):
             hint = f"; looks like mm, write {z / 1000:g}" if 3.0 < z <= 3000.0 else ""
@@ -345,7 +340,7 @@ def load_aero_map(path: str | Path, cg_height: float, wheelbase: float) -> AeroM
             except ValueError:
                 hint = "write the number with a '.' decimal point" if "," in cell \
                     or cell.replace(" ", "").isdigit() else "give a number"
-                _fail(f'{col} = "{cell}" is not a number; {hint}', path, f"line {lineno}")
+                _fail(f'{col} = "{clip(cell)}" is not a number; {hint}', path, f"line {lineno}")
             if not math.isfinite(val):
                 _fail(f"{col} = {cell} is not a finite number; fill in the measured value",
                       path, f"line {lineno}")

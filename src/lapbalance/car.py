@@ -21,7 +21,7 @@ from typing import Any
 
 from lapbalance import aero as _aero
 from lapbalance import air as _air
-from lapbalance.errors import InputError, did_you_mean
+from lapbalance.errors import InputError, clip, did_you_mean
 from lapbalance.units import G0, HPA, KW, MM
 
 # --------------------------------------------------------------------------------------------
@@ -479,12 +479,9 @@ def _read_toml(path: Path) -> dict:
         raise InputError("is a folder, not a car file", path) from None
     except OSError as e:
         raise InputError(f"cannot read ({e.strerror})", path) from None
-    if b"\x00" in data:
-        raise InputError("is a binary file, not a TOML car file", path)
-    try:
-        text = data.decode("utf-8")
-    except UnicodeDecodeError:
-        raise InputError("is not UTF-8 text; save the car file as UTF-8 TOML", path) from None
+    from lapbalance.textio import decode_text
+
+    text = decode_text(data, path, "a TOML car file", "save the car file as UTF-8 TOML")
     if not text.strip():
         raise InputError("is empty; a car file needs at least name and the sections "
                          "chassis, aero, tyres, powertrain, brakes", path)
@@ -493,6 +490,11 @@ def _read_toml(path: Path) -> dict:
     except tomllib.TOMLDecodeError as e:
         raise InputError(f"is not valid TOML ({e}); check quotes, '=' and [section] lines",
                          path) from None
+    except (RecursionError, ValueError) as e:  # nesting too deep; integer too long
+        what = "nests lists or tables too deeply" if isinstance(e, RecursionError) else \
+            "holds a number too long to read"
+        raise InputError(f"{what}; a car file needs plain numbers, lists and [section] "
+                         "tables", path) from None
 
 
 def _key_index(section: str) -> dict[str, Key]:
@@ -564,7 +566,12 @@ def _parse_override(text: str) -> tuple[str, str, Any]:
     rhs = rhs.strip()
     try:
         value = tomllib.loads(f"v = {rhs}")["v"]
-    except tomllib.TOMLDecodeError:
+    except ValueError as e:  # an integer too long for int(): read it as a float
+        try:
+            value = float(rhs) if not isinstance(e, tomllib.TOMLDecodeError) else rhs
+        except ValueError:
+            value = rhs
+    except RecursionError:
         value = rhs
     return sec, key, value
 
@@ -653,7 +660,7 @@ def _convert(spec: Key, sec: str, key: str, value, src: str):
     dotted = _fmt_dotted(sec, key)
     if spec.kind == "str":
         if not isinstance(value, str):
-            raise InputError(f"= {value!r} must be text in quotes", src, dotted)
+            raise InputError(f"= {clip(repr(value))} must be text in quotes", src, dotted)
         if spec.choices and value not in spec.choices:
             raise InputError(f'= "{value}" is not one of {", ".join(spec.choices)}; '
                              f"{did_you_mean(value, spec.choices)}", src, dotted)
@@ -665,7 +672,7 @@ def _convert(spec: Key, sec: str, key: str, value, src: str):
         out = []
         for i, v in enumerate(value):
             if isinstance(v, bool) or not isinstance(v, int | float):
-                raise InputError(f"item {i + 1} = {v!r} is not a number", src, dotted)
+                raise InputError(f"item {i + 1} = {clip(repr(v))} is not a number", src, dotted)
             if not math.isfinite(v):
                 raise InputError(f"item {i + 1} = {v} is not finite; give a plain number", src,
                                  dotted)
@@ -679,7 +686,7 @@ def _convert(spec: Key, sec: str, key: str, value, src: str):
                 float(value.replace(",", "."))
             except ValueError:
                 hint = "; give a number"
-        raise InputError(f"= {value!r} is not a number{hint}", src, dotted)
+        raise InputError(f"= {clip(repr(value))} is not a number{hint}", src, dotted)
     if not math.isfinite(value):
         raise InputError(f"= {value} is not a finite number; give a plain number", src, dotted)
     si = float(value) * spec.scale_of(key)
@@ -1003,6 +1010,8 @@ def _build_powertrain(v: dict, src: str) -> Powertrain:
         raise InputError(f"rev_limit_rpm {rev:g} is below shift_rpm {shift:g}; the limiter "
                          "must be at or above the shift point", _src(v, "rev_limit_rpm", src),
                          "powertrain.rev_limit_rpm")
+    if mode == "torque":
+        _check_torque_curve(rpm, nm, shift, rev, v, src)
     ftmax = v["max_tractive_force"]
     if mode == "power" and ftmax is None:
         ftmax = power * v["efficiency"] / 10.0  # force at 10 m/s (documented default)
@@ -1011,6 +1020,37 @@ def _build_powertrain(v: dict, src: str) -> Powertrain:
     return Powertrain(drive, share, mode, power, ftmax, tuple(rpm), tuple(nm), tuple(gears),
                       v["final_drive"], v["wheel_radius"], v["efficiency"], shift, rev,
                       v["overrun_torque"])
+
+
+def _check_torque_curve(rpm, nm, shift: float, rev: float, v: dict, src: str) -> None:
+    """Unit slips and gaps of a torque curve: speeds in rad/s or rev/s (InputError), a curve
+    that ends below the rev limit (torque is then held flat: warning), a shift point below
+    the engine speed of best torque (every gear is left before its best force: warning)."""
+    import warnings
+
+    from lapbalance.errors import PhysicsWarning
+
+    top = float(max(rpm))
+    field_ = "powertrain.torque_curve_rpm"
+    where = _src(v, "torque_curve_rpm", src)
+    if top < 0.3 * rev:
+        for factor, unit in ((60.0 / (2.0 * math.pi), "rad/s"), (60.0, "rev/s")):
+            if 0.6 <= top * factor / rev <= 1.5:
+                raise InputError(f"ends at {top:g}, far below rev_limit_rpm {rev:g}: the "
+                                 f"speeds look like {unit} ({top:g} {unit} = "
+                                 f"{top * factor:.0f} rpm); multiply them by {factor:.5g} to "
+                                 "give rpm", where, field_)
+        raise InputError(f"ends at {top:g} rpm, far below rev_limit_rpm {rev:g}; give the "
+                         "torque up to the rev limit (rpm)", where, field_)
+    if top < 0.97 * rev:
+        warnings.warn(f"{where}: {field_}: the curve ends at {top:g} rpm, below "
+                      f"rev_limit_rpm {rev:g}; the torque is held at {nm[-1]:g} N·m up to the "
+                      "limit: extend the curve to the rev limit", PhysicsWarning, stacklevel=2)
+    best = float(rpm[max(range(len(nm)), key=lambda i: nm[i])])
+    if shift < 0.97 * best:
+        warnings.warn(f"{where}: powertrain.shift_rpm: = {shift:g} rpm is below {best:g} rpm, "
+                      "where the engine gives its best torque (force); every gear is left "
+                      "before its best force: check shift_rpm", PhysicsWarning, stacklevel=2)
 
 
 def _build_suspension(v: dict, src: str) -> Suspension:

@@ -33,11 +33,47 @@ class InputError(ValueError):
     def one_line(self) -> str:
         parts = []
         if self.source:
-            parts.append(f"{self.source}:")
+            parts.append(f"{clip(self.source, 160)}:")
         if self.field:
-            parts.append(f"{self.field}:")
+            parts.append(f"{clip(self.field, 80)}:")
         parts.append(self.message)
-        return " ".join(parts).replace("\n", " ")
+        return tidy(" ".join(parts))
+
+
+#: Longest single value (word) echoed in a message before it is cut [characters].
+MAX_VALUE_CHARS = 80
+#: Longest whole message line [characters]; beyond, the middle is cut (the fix is kept).
+MAX_LINE_CHARS = 480
+
+
+def clip(value, limit: int = 60) -> str:
+    """``value`` as text cut to a readable length for a message.
+
+    Long text keeps its start and end around an ellipsis and says how long it was, e.g.
+    ``'AAAA…AAAA (350000 characters)'``. Control characters become spaces.
+    """
+    text = str(value)
+    text = "".join(" " if (ord(c) < 32 or ord(c) == 127) else c for c in text)
+    if len(text) <= limit:
+        return text
+    keep = max(limit - 24, 8)
+    head, tail = keep * 2 // 3, keep - keep * 2 // 3
+    return f"{text[:head]}…{text[-tail:] if tail else ''} ({len(text)} characters)"
+
+
+def tidy(line: str) -> str:
+    """One message line: newlines folded, long words cut (:func:`clip`), the whole line cut
+    in the middle when it is still longer than :data:`MAX_LINE_CHARS` (start and fix kept)."""
+    line = " ".join(line.splitlines())
+    if len(line) > MAX_VALUE_CHARS:
+        words = line.split(" ")
+        line = " ".join(clip(w, MAX_VALUE_CHARS) if len(w) > MAX_VALUE_CHARS else w
+                        for w in words)
+    if len(line) > MAX_LINE_CHARS:
+        head = MAX_LINE_CHARS * 2 // 5
+        tail = MAX_LINE_CHARS - head - 40
+        line = f"{line[:head]} …[{len(line) - head - tail} characters cut]… {line[-tail:]}"
+    return line
 
 
 class InfeasibleError(InputError):

@@ -96,25 +96,37 @@ def _prov_record(result, files):
     return _prov.for_lap(result, files)
 
 
+def write_lap_files(result: LapResult, folder: str | Path,
+                    extra: dict[str, bytes] | None = None,
+                    files: tuple[tuple[str, str], ...] = ()) -> None:
+    """Write channels.csv, corners.csv, summary.json (and ``extra`` files) and, last,
+    provenance.json into ``folder`` (a staging folder of
+    :func:`lapbalance.outputs.output_folder`). ``files`` are other inputs for the provenance
+    record, as (role, path)."""
+    tmp = Path(folder)
+    (tmp / "channels.csv").write_text(channels_csv(result), encoding="utf-8")
+    (tmp / "corners.csv").write_text(corners_csv(result), encoding="utf-8")
+    text = summary_json(result, _prov_record(result, files)) if files else \
+        summary_json(result)
+    (tmp / "summary.json").write_text(text, encoding="utf-8")
+    record = json.loads(text)["provenance"]  # the sidecar repeats the summary's record
+    for name, data in (extra or {}).items():
+        (tmp / name).parent.mkdir(parents=True, exist_ok=True)
+        (tmp / name).write_bytes(data)
+    write_provenance(tmp, record)
+
+
 def write_lap_folder(result: LapResult, out_dir: str | Path, force: bool = False,
                      extra: dict[str, bytes] | None = None,
                      files: tuple[tuple[str, str], ...] = ()) -> Path:
     """Write channels.csv, corners.csv, summary.json, provenance.json (and ``extra`` files)
     into ``out_dir``.
 
-    ``files`` are other inputs for the provenance record, as (role, path). The folder is
-    filled in a temporary sibling and swapped in only when complete.
+    ``files`` are other inputs for the provenance record, as (role, path). The files are
+    staged and moved in only when complete; ``out_dir`` must be new, empty or an earlier
+    lapbalance result (replaced only with ``force``; see :mod:`lapbalance.outputs`).
     """
     out_dir = Path(out_dir)
-    with staged_dir(out_dir, force=force) as tmp:
-        (tmp / "channels.csv").write_text(channels_csv(result), encoding="utf-8")
-        (tmp / "corners.csv").write_text(corners_csv(result), encoding="utf-8")
-        text = summary_json(result, _prov_record(result, files)) if files else \
-            summary_json(result)
-        (tmp / "summary.json").write_text(text, encoding="utf-8")
-        record = json.loads(text)["provenance"]  # the sidecar repeats the summary's record
-        for name, data in (extra or {}).items():
-            (tmp / name).parent.mkdir(parents=True, exist_ok=True)
-            (tmp / name).write_bytes(data)
-        write_provenance(tmp, record)
+    with staged_dir(out_dir, force=force, command="lap") as tmp:
+        write_lap_files(result, tmp, extra, files)
     return out_dir

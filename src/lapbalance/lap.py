@@ -104,17 +104,27 @@ CHANNELS: dict[str, tuple[str, str]] = {
     "floor_contact": ("-", "1 where a ride height reaches zero"),
     "aero_map_outside": ("-", "1 where ride heights leave the aero map (extrapolated)"),
     "limit": ("-", "limiting constraint code (see LIMIT_NAMES)"),
-    "liftoff_checked": ("-", "1 where the lift-off check applies (cornering on throttle)"),
+    "liftoff_checked": ("-", "1 where the lift-off check applies (cornering on throttle); "
+                        "the liftoff_* and coast_* channels are NaN where it is 0"),
     "overrun_force_n": ("N", "engine-braking force at the wheels in the current gear"),
-    "liftoff_balance_shift": ("-", "balance index change on lift-off, B_off - B_on"),
-    "liftoff_front_load_shift_n": ("N", "front axle load change on lift-off"),
-    "liftoff_usage_front": ("-", "front usage after lift-off"),
-    "liftoff_usage_rear": ("-", "rear usage after lift-off"),
-    "liftoff_ax_mps2": ("m/s²", "longitudinal acceleration after lift-off"),
-    "coast_balance_shift": ("-", "balance index change when coasting (no engine braking)"),
-    "coast_front_load_shift_n": ("N", "front axle load change when coasting"),
-    "coast_usage_front": ("-", "front usage when coasting"),
-    "coast_usage_rear": ("-", "rear usage when coasting"),
+    "liftoff_balance_shift": ("-", "balance index change on lift-off, B_off - B_on; NaN "
+                              "where not checked (liftoff_checked = 0)"),
+    "liftoff_front_load_shift_n": ("N", "front axle load change on lift-off; NaN where not "
+                                   "checked (liftoff_checked = 0)"),
+    "liftoff_usage_front": ("-", "front usage after lift-off; NaN where not checked "
+                            "(liftoff_checked = 0)"),
+    "liftoff_usage_rear": ("-", "rear usage after lift-off; NaN where not checked "
+                           "(liftoff_checked = 0)"),
+    "liftoff_ax_mps2": ("m/s²", "longitudinal acceleration after lift-off; NaN where not "
+                        "checked (liftoff_checked = 0)"),
+    "coast_balance_shift": ("-", "balance index change when coasting (no engine braking); "
+                            "NaN where not checked (liftoff_checked = 0)"),
+    "coast_front_load_shift_n": ("N", "front axle load change when coasting; NaN where not "
+                                 "checked (liftoff_checked = 0)"),
+    "coast_usage_front": ("-", "front usage when coasting; NaN where not checked "
+                          "(liftoff_checked = 0)"),
+    "coast_usage_rear": ("-", "rear usage when coasting; NaN where not checked "
+                         "(liftoff_checked = 0)"),
     "liftoff_step_margin": ("-", "lift-off margin a_y_safe / a_y_limit with engine overrun "
                             "(1 = a lift at the limit keeps the rear; checked steps only)"),
     "liftoff_safe_speed_mps": ("m/s", "highest speed at or below the limit where a lift with "

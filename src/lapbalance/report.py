@@ -636,6 +636,7 @@ def build_report(results: Sequence[LapResult] | LapResult, labels: Sequence[str]
     return ("<!DOCTYPE html>\n"
             '<html lang="en">\n<head>\n<meta charset="utf-8">\n'
             '<meta name="viewport" content="width=device-width, initial-scale=1">\n'
+            f'<meta name="generator" content="lapbalance {_e(__version__)}">\n'
             f"<title>{_e(title)}</title>\n<style>{_css()}</style>\n</head>\n<body>\n"
             + "\n".join(body) + "\n</body>\n</html>\n")
 

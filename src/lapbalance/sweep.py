@@ -47,8 +47,14 @@ from typing import Any
 import numpy as np
 
 from lapbalance.car import SCHEMA, Car, apply_overrides, build_car, load_car
-from lapbalance.errors import InfeasibleError, InputError, did_you_mean
-from lapbalance.outputs import csv_text, write_bytes_atomic, write_json_atomic, write_text_atomic
+from lapbalance.errors import InfeasibleError, InputError, clip, did_you_mean
+from lapbalance.outputs import (
+    OutputFolder,
+    csv_text,
+    write_bytes_atomic,
+    write_json_atomic,
+    write_text_atomic,
+)
 
 __all__ = ["RESULT_COLUMNS", "parse_vary", "point_key", "run_point", "sweep", "sweep_points"]
 
@@ -121,7 +127,7 @@ def parse_vary(text: str, method: str = "grid") -> tuple[str, list[float]]:
         try:
             x = float(s)
         except ValueError:
-            raise InputError(f'"{s}" in "{rhs}" is not a number; write lo:hi:n, e.g. '
+            raise InputError(f'"{clip(s)}" in "{clip(rhs)}" is not a number; write lo:hi:n, e.g. '
                              "1.2:2.0:5, or a list a,b,c", src, key) from None
         if not math.isfinite(x):
             raise InputError(f'"{s}" is not a finite number', src, key)
@@ -144,6 +150,9 @@ def parse_vary(text: str, method: str = "grid") -> tuple[str, list[float]]:
                              "lo:hi:n, e.g. 1.2:2.0:5", src, key) from None
         if n < 1:
             raise InputError(f'n = {n} in "{rhs}" must be at least 1', src, key)
+        if n > _MAX_POINTS:
+            raise InputError(f'n = {n} in "{rhs}" is more than {_MAX_POINTS} values (each is '
+                             "a whole lap); use fewer values or --lhs N", src, key)
         if n == 1 and lo != hi:
             raise InputError(f'n = 1 in "{rhs}" gives one value but lo != hi; write a single '
                              "value instead", src, key)
@@ -323,7 +332,50 @@ def run_point(raw: dict, source: str, track, point: Mapping[str, float],
 _WORKER: dict[str, Any] = {}
 
 
-def _init_worker(raw, source, track, options, threads):
+def _die_with_parent(parent_pid: int) -> None:
+    """End this worker when the sweep process dies (also by ``kill -9``).
+
+    On Linux the kernel sends SIGKILL when the worker's parent (the fork server or the sweep
+    process) exits (``prctl(PR_SET_PDEATHSIG)``); everywhere a daemon thread checks once a
+    second that the sweep process ``parent_pid`` is still there and exits if not.
+    """
+    import signal
+    import threading
+    import time
+
+    if sys.platform.startswith("linux"):
+        try:
+            import ctypes
+
+            libc = ctypes.CDLL(None, use_errno=True)
+            PR_SET_PDEATHSIG = 1
+            libc.prctl(PR_SET_PDEATHSIG, int(signal.SIGKILL), 0, 0, 0)
+        except (OSError, AttributeError):  # pragma: no cover - no libc prctl
+            pass
+
+    def watch() -> None:
+        while True:
+            time.sleep(1.0)
+            try:
+                os.kill(parent_pid, 0)
+                gone = False
+            except ProcessLookupError:
+                gone = True
+            except PermissionError:  # pragma: no cover - pid reused by another user
+                gone = True
+            if gone:
+                os._exit(1)
+
+    threading.Thread(target=watch, name="lapbalance-parent-watch", daemon=True).start()
+    try:  # the parent may have died before the signal was armed
+        os.kill(parent_pid, 0)
+    except OSError:
+        os._exit(1)
+
+
+def _init_worker(raw, source, track, options, threads, parent_pid=None):
+    if parent_pid is not None:
+        _die_with_parent(parent_pid)
     _WORKER.update(raw=raw, source=source, track=track, options=options)
     if threads:
         try:
@@ -385,7 +437,7 @@ def _parse_row(cells: list[str], header: list[str], keys: Sequence[str]) -> dict
 def _read_log(path: Path, header: list[str], keys: Sequence[str],
               base_id: str) -> dict[str, dict]:
     """Rows already in the log {point: row}; rewrites the log if it holds a torn line."""
-    text = path.read_text(encoding="utf-8", errors="replace")
+    text = path.read_text(encoding="utf-8-sig", errors="replace")
     lines = list(csv.reader(io.StringIO(text)))
     if not lines or lines[0] != header:
         raise InputError(f"{path} holds a sweep over other keys or columns; pass --force to "
@@ -430,7 +482,8 @@ def sweep(car, track, vary: Mapping[str, Sequence[float]], method: str = "grid",
           n: int | None = None, workers: int = 1, cluster=None, out=None, seed: int = 0,
           progress: Callable[[int, int, dict], None] | None = None, *, force: bool = False,
           simulate_options: Mapping[str, Any] | None = None, stats: dict | None = None,
-          plot_format: str = "png") -> list[dict]:
+          plot_format: str = "png", inputs: Sequence = (),
+          provenance: Mapping | None = None) -> list[dict]:
     """Run ``car`` over ``track`` at every point of a grid or a Latin hypercube.
 
     Parameters
@@ -467,6 +520,15 @@ def sweep(car, track, vary: Mapping[str, Sequence[float]], method: str = "grid",
         and ``computed``. [-]
     plot_format : str
         Format of the plots in ``out``: ``png``, ``svg`` or ``pdf``. [-]
+    inputs : sequence of paths, optional
+        The input files (an ``out`` folder holding one of them is refused).
+    provenance : mapping, optional
+        Provenance record (:mod:`lapbalance.provenance`) written to ``out`` as
+        ``provenance.json``, with every file of the folder and its SHA-256.
+
+    The ``out`` folder follows :mod:`lapbalance.outputs`: it is taken (locked) before the
+    first point runs, must be new, empty or an earlier lapbalance result (a sweep resumes
+    from its own), and only files its manifest lists are replaced.
 
     Returns
     -------
@@ -499,21 +561,67 @@ def sweep(car, track, vary: Mapping[str, Sequence[float]], method: str = "grid",
     out_dir = Path(out) if out is not None else None
     done: dict[str, dict] = {}
     log = None
+    folder = None
     if out_dir is not None:
-        if out_dir.exists() and not out_dir.is_dir():
-            raise InputError(f"{out_dir} exists and is not a folder; choose another --out",
-                             "--out")
-        log = out_dir / LOG_NAME
-        if out_dir.is_dir() and not force:
-            if log.exists():
+        folder = OutputFolder(out_dir, force=force, command="sweep", inputs=inputs,
+                              resume=True, need_bytes=128_000).reserve()
+    try:
+        if folder is not None:
+            log = out_dir / LOG_NAME
+            if folder.previous and not force:
+                if LOG_NAME not in folder.previous or folder.previous_command != "sweep":
+                    by = folder.previous_command or "another command"
+                    raise InputError(f"{out_dir} already holds results; pass --force to "
+                                     "replace them or choose another --out (written by "
+                                     f"lapbalance {by})", "--out")
                 done = _read_log(log, header, keys, base_id)
-            elif any(out_dir.iterdir()):
-                raise InputError(f"{out_dir} already holds other files; pass --force to "
-                                 "write the sweep there anyway or choose another --out",
-                                 "--out")
-        if force or not log.exists():
-            write_text_atomic(log, _row_line(dict(zip(header, header, strict=True)), header))
+            folder.adopt([LOG_NAME])
+            if force or not log.exists():
+                write_text_atomic(log, _row_line(dict(zip(header, header, strict=True)),
+                                                 header))
+        rows = _sweep_run(points, done, log, header, base_id, progress, cluster, workers,
+                          raw, source, track, options, stats)
+        if folder is not None:
+            reused = sum(1 for p in points if point_key(p) in done)
+            _write_final(out_dir, rows, keys, car, track, method, n, seed, base_id, header,
+                         folder, plot_format, reused, provenance)
+    except OSError as e:
+        if folder is not None:
+            kept = _stop(folder, log, header)
+            from lapbalance.outputs import os_input_error
 
+            err = os_input_error(e, "write in the output folder", e.filename or out_dir,
+                                 "--out")
+            if kept:
+                err = InputError(err.message + f"; the finished points are kept in {LOG_NAME}"
+                                 ", rerun to resume", "--out")
+            raise err from None
+        raise
+    except BaseException:
+        if folder is not None:
+            _stop(folder, log, header)
+        raise
+    if folder is not None:
+        folder.commit()
+    return rows
+
+
+def _stop(folder, log, header) -> None:
+    """After an error: keep a log holding finished points (a rerun resumes from it); else
+    take back every file this run wrote, so nothing is left behind."""
+    head = len(_row_line(dict(zip(header, header, strict=True)), header))
+    try:
+        keep = log is not None and log.stat().st_size > head
+    except OSError:
+        keep = False
+    # keep the log of finished points (a rerun resumes); drop the final files begun here
+    folder.discard_adopted(keep=[LOG_NAME] if keep else [])
+    folder.abort(keep=keep)
+    return keep
+
+
+def _sweep_run(points, done, log, header, base_id, progress, cluster, workers, raw, source,
+               track, options, stats=None) -> list[dict]:
     want = {point_key(p) for p in points}
     done = {k: v for k, v in done.items() if k in want}
     todo = [p for p in points if point_key(p) not in done]
@@ -547,12 +655,7 @@ def sweep(car, track, vary: Mapping[str, Sequence[float]], method: str = "grid",
     finally:
         if fh is not None:
             fh.close()
-
-    rows = [done[point_key(p)] for p in points]
-    if out_dir is not None:
-        _write_final(out_dir, rows, keys, car, track, method, n, seed, base_id, header,
-                     plot_format, total - len(todo))
-    return rows
+    return [done[point_key(p)] for p in points]
 
 
 def _run_pool(workers, raw, source, track, todo, options, record) -> None:
@@ -571,7 +674,7 @@ def _run_pool(workers, raw, source, track, todo, options, record) -> None:
         ctx.set_forkserver_preload(preload)
     ex = ProcessPoolExecutor(max_workers=min(workers, len(todo)), mp_context=ctx,
                              initializer=_init_worker,
-                             initargs=(raw, source, track, options, 1))
+                             initargs=(raw, source, track, options, 1, os.getpid()))
     pending = iter(todo)
     running = set()
     try:
@@ -627,12 +730,16 @@ def _run_dask(cluster, raw, source, track, todo, options, record) -> None:
 
 
 def _write_final(out_dir: Path, rows, keys, car, track, method, n, seed, base_id,
-                 header, plot_format="png", reused=0) -> None:
+                 header, folder=None, plot_format="png", reused=0, provenance=None) -> None:
     cols = ["point", *keys, *RESULT_COLUMNS]
+    title = f"{car.name} on {getattr(track, 'name', '') or 'track'}"
+    figures = sweep_figures(rows, keys, title=title, fmt=plot_format)
+    if folder is not None:
+        folder.adopt([RESULTS_NAME, "sweep.json", *figures]
+                     + (["provenance.json"] if provenance is not None else []))
     write_text_atomic(out_dir / RESULTS_NAME,
                       csv_text(cols, ([_fmt(r.get(c)) for c in cols] for r in rows)))
-    title = f"{car.name} on {getattr(track, 'name', '') or 'track'}"
-    for name, data in sweep_figures(rows, keys, title=title, fmt=plot_format).items():
+    for name, data in figures.items():
         write_bytes_atomic(out_dir / name, data)
     ok = [r for r in rows if r["status"] == "ok"]
     best = min(ok, key=lambda r: r["lap_time_s"]) if ok else None
@@ -643,6 +750,10 @@ def _write_final(out_dir: Path, rows, keys, car, track, method, n, seed, base_id
         "infeasible": len(rows) - len(ok), "reused": reused, "base_id": base_id,
         "best": None if best is None else {k: best[k] for k in ("point", *keys, "lap_time_s")},
     })
+    if provenance is not None:
+        from lapbalance.export import write_provenance
+
+        write_provenance(out_dir, dict(provenance))
 
 
 def sweep_figures_png(rows: Sequence[Mapping], keys: Sequence[str],

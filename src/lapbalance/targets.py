@@ -30,7 +30,7 @@ from pathlib import Path
 import numpy as np
 
 from lapbalance import handling
-from lapbalance.errors import InputError, closest, did_you_mean
+from lapbalance.errors import InputError, clip, closest, did_you_mean
 from lapbalance.lap import CHANNELS
 from lapbalance.liftoff import FLAG_VERDICTS, VERDICTS
 
@@ -278,7 +278,7 @@ def _num(x) -> bool:
 
 def _pair(val, src, fld, what) -> tuple[float, float]:
     if not (isinstance(val, list) and len(val) == 2 and all(_num(x) for x in val)):
-        raise InputError(f"{what} must be two numbers [lo, hi], got {val!r}", src, fld)
+        raise InputError(f"{what} must be two numbers [lo, hi], got {clip(repr(val))}", src, fld)
     lo, hi = float(val[0]), float(val[1])
     if lo > hi:
         raise InputError(f"lo {lo:g} > hi {hi:g}; write [{hi:g}, {lo:g}]", src, fld)
@@ -302,13 +302,26 @@ def load_targets(path: str | Path) -> list[Target]:
     InputError
         One line naming the file, ``target[i].key`` and the fix.
     """
+    from lapbalance.textio import decode_text
+
     src = str(path)
     try:
-        raw = tomllib.loads(Path(path).read_text(encoding="utf-8"))
+        data = Path(path).read_bytes()
     except FileNotFoundError:
         raise InputError("file not found; give the path of a targets TOML file", src) from None
-    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as e:
+    except IsADirectoryError:
+        raise InputError("is a folder, not a targets TOML file", src) from None
+    except OSError as e:
+        raise InputError(f"cannot read ({e.strerror}); check the path", src) from None
+    text = decode_text(data, src, "a targets TOML file", "save the targets file as UTF-8 "
+                       "TOML")
+    try:
+        raw = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as e:
         raise InputError(f"not valid TOML ({e})", src) from None
+    except (RecursionError, ValueError):  # nesting too deep; integer too long
+        raise InputError("is not a plain targets file (lists nested too deeply or a number "
+                         "too long); give [[target]] tables with plain numbers", src) from None
     return targets_from_dict(raw, src)
 
 
@@ -345,7 +358,7 @@ def _model(m, src) -> Model:
                 raise InputError("speeds must be >= 0 km/h", src, fld)
             continue
         if not _num(v) or v <= 0:
-            raise InputError(f"= {v!r} must be a number > 0", src, fld)
+            raise InputError(f"= {clip(repr(v))} must be a number > 0", src, fld)
         kw[attr] = float(v)
     if ("cornering_stiffness_front" in kw) != ("cornering_stiffness_rear" in kw):
         missing = ("cornering_stiffness_rear_n_per_deg" if "cornering_stiffness_front" in kw
@@ -404,10 +417,13 @@ def _condition(c, q: Quantity, src, fld) -> tuple:
                          f"({'text' if q.text else 'a number'}); use {ok}", src, fld)
     f = f"{fld}.{kind}"
     if kind == "range":
-        return kind, _pair(val, src, f, "range")
+        pair = _pair(val, src, f, "range")
+        _percent_slip(q, pair, src, f)
+        return kind, pair
     if kind in ("max", "min"):
         if not _num(val):
-            raise InputError(f"= {val!r} must be a number", src, f)
+            raise InputError(f"= {clip(repr(val))} must be a number", src, f)
+        _percent_slip(q, (float(val),), src, f)
         return kind, float(val)
     if not isinstance(val, list) or not val or not all(isinstance(x, str) for x in val):
         raise InputError("must be a non-empty list of strings", src, f)
@@ -416,6 +432,26 @@ def _condition(c, q: Quantity, src, fld) -> tuple:
             raise InputError(f'"{x}" is not a value of {q.name}; {did_you_mean(x, q.choices)}',
                              src, f)
     return kind, tuple(val)
+
+
+def is_share(q: Quantity) -> bool:
+    """True for quantities that are a share between 0 and 1 (aero balance, grip usage)."""
+    return q.unit in ("-", "") and not q.text and (
+        "aero_balance" in q.name or q.name.startswith("usage") or "_usage_" in q.name
+        or q.name.endswith("_share")) and "migration" not in q.name
+
+
+def _percent_slip(q: Quantity, values, src, fld) -> None:
+    """Refuse limits typed as a percentage for a quantity that is a fraction (0 to 1)."""
+    if not is_share(q):
+        return
+    vals = [float(v) for v in values]
+    if any(2.0 < abs(v) <= 100.0 for v in vals) and all(abs(v) <= 100.0 for v in vals):
+        fixed = [round(v / 100.0, 6) for v in vals]
+        shown = (f"[{', '.join(f'{v:g}' for v in vals)}]" if len(vals) > 1 else f"{vals[0]:g}")
+        fix = (f"[{', '.join(f'{v:g}' for v in fixed)}]" if len(vals) > 1 else f"{fixed[0]:g}")
+        raise InputError(f"= {shown} looks like a percentage, but {q.name} is a fraction "
+                         f"(0 to 1); write {fix}", src, fld)
 
 
 def _scope(s, q: Quantity, src, fld) -> dict:
@@ -439,12 +475,12 @@ def _scope(s, q: Quantity, src, fld) -> dict:
             out[k] = _pair(v, src, f, k)
         elif k == "corner_min_speed_kph":
             if not _num(v) or v < 0:
-                raise InputError(f"= {v!r} must be a speed >= 0 km/h", src, f)
+                raise InputError(f"= {clip(repr(v))} must be a speed >= 0 km/h", src, f)
             out[k] = float(v)
         else:
             if not isinstance(v, list) or not v or not all(
                     isinstance(x, int) and not isinstance(x, bool) for x in v):
-                raise InputError(f"= {v!r} must be a non-empty list of corner numbers, "
+                raise InputError(f"= {clip(repr(v))} must be a non-empty list of corner numbers, "
                                  "e.g. [3, 7]", src, f)
             out[k] = tuple(v)
     return out

@@ -71,7 +71,7 @@ import numpy as np
 from scipy.interpolate import CubicSpline
 from scipy.ndimage import gaussian_filter1d
 
-from lapbalance.errors import InputError
+from lapbalance.errors import InputError, clip
 
 # --------------------------------------------------------------------------------------------
 # Thresholds (engineering judgement unless a source is named)
@@ -397,7 +397,16 @@ def _read_csv(path: Path) -> tuple[dict, dict[str, np.ndarray], list[int]]:
     if not raw.strip():
         raise InputError("the file is empty; give a header row (x_m,y_m or lat_deg,lon_deg) "
                          "and one row per point", src)
+    if raw.startswith((b"\xff\xfe", b"\xfe\xff")):  # UTF-16 "Unicode text" export
+        from lapbalance.textio import decode_text
+
+        raw = decode_text(raw, src, "CSV text", "export the track as CSV (UTF-8)").encode()
     if b"\x00" in raw[:4096]:
+        from lapbalance.textio import looks_like_utf16
+
+        if looks_like_utf16(raw):
+            raise InputError("the file is UTF-16 text without a byte-order mark; export the "
+                             "track as CSV (UTF-8)", src)
         raise InputError("this is a binary file, not CSV text; export the track as CSV", src)
     try:
         text = raw.decode("utf-8-sig")
@@ -405,6 +414,8 @@ def _read_csv(path: Path) -> tuple[dict, dict[str, np.ndarray], list[int]]:
         raise InputError("the file is not UTF-8 text; export the track as CSV (UTF-8)",
                          src) from None
     lines = text.splitlines()
+    if lines and lines[0].strip().lower().strip('"') in ("sep=,", "sep=, "):
+        lines[0] = ""  # a spreadsheet's "sep=," hint line
     meta: dict[str, str] = {}
     i = 0
     while i < len(lines) and (not lines[i].strip() or lines[i].lstrip().startswith("#")):
@@ -422,7 +433,7 @@ def _read_csv(path: Path) -> tuple[dict, dict[str, np.ndarray], list[int]]:
             if delim in header_line:
                 raise InputError(f"the header uses {label} between columns; use commas "
                                  "(x_m,y_m,...)", src, f"line {header_lineno}")
-    names = [c.strip().lower() for c in header_line.split(",")]
+    names = [c.lower() for c in _cells(header_line)]
     if _is_number(names[0]):
         raise InputError("the first row is numbers, not a header; add a header row such as "
                          "x_m,y_m or lat_deg,lon_deg", src, f"line {header_lineno}")
@@ -447,7 +458,7 @@ def _read_csv(path: Path) -> tuple[dict, dict[str, np.ndarray], list[int]]:
         line = lines[j]
         if not line.strip() or line.lstrip().startswith("#"):
             continue
-        cells = line.split(",")
+        cells = _cells(line)
         if len(cells) != len(names):
             if len(cells) == 1 and (";" in line or "\t" in line):
                 raise InputError("values are separated by semicolons or tabs; use commas", src,
@@ -459,7 +470,7 @@ def _read_csv(path: Path) -> tuple[dict, dict[str, np.ndarray], list[int]]:
             try:
                 v = float(cell)
             except ValueError:
-                raise InputError(f'column {n} = "{cell}" is not a number; write a plain '
+                raise InputError(f'column {n} = "{clip(cell)}" is not a number; write a plain '
                                  "number (decimal point, no units)", src, f"line {j + 1}"
                                  ) from None
             if not math.isfinite(v):
@@ -471,6 +482,15 @@ def _read_csv(path: Path) -> tuple[dict, dict[str, np.ndarray], list[int]]:
         raise InputError("the header has no rows of points below it; add one row per point",
                          src)
     return meta, {n: np.asarray(v, dtype=float) for n, v in data.items()}, linenos
+
+
+def _cells(line: str) -> list[str]:
+    """Cells of a CSV line; quoted cells (a spreadsheet export quoting every cell) too."""
+    if '"' not in line:
+        return [c.strip() for c in line.split(",")]
+    from lapbalance.textio import csv_cells
+
+    return csv_cells(line)
 
 
 def _is_number(s: str) -> bool:

@@ -32,7 +32,7 @@ from pathlib import Path
 import numpy as np
 
 from lapbalance import aero as _aero
-from lapbalance.errors import InputError, closest, did_you_mean
+from lapbalance.errors import InputError, PhysicsWarning, clip, closest, did_you_mean
 from lapbalance.units import KPH
 
 #: Columns a readings table must have.
@@ -346,13 +346,21 @@ def read_readings(path: str | Path) -> ReadingsTable:
     """
     path = Path(path)
     try:
-        text = path.read_text(encoding="utf-8-sig")
+        head = path.read_bytes()[:2] if path.is_file() else b""
+        if head in (b"\xff\xfe", b"\xfe\xff"):  # UTF-16 "Unicode text" export
+            from lapbalance.textio import decode_text
+
+            text = decode_text(path.read_bytes(), path, "a CSV of readings",
+                               "save the file as UTF-8 CSV")
+        else:
+            text = path.read_text(encoding="utf-8-sig")
     except FileNotFoundError:
         raise InputError("readings file not found; check the path", path) from None
     except (IsADirectoryError, UnicodeDecodeError, OSError):
         raise InputError("cannot be read as UTF-8 CSV text", path) from None
     records = [(n, s) for n, s in enumerate(text.splitlines(), start=1)
-               if s.strip() and not s.lstrip().startswith("#")]
+               if s.strip() and not s.lstrip().startswith("#")
+               and not (n == 1 and s.strip().lower() == "sep=,")]  # a spreadsheet's hint
     if not records:
         raise InputError("has no header line; give columns " + ", ".join(REQUIRED_COLUMNS),
                          path)
@@ -396,7 +404,7 @@ def read_readings(path: str | Path) -> ReadingsTable:
             try:
                 v = float(cell)
             except ValueError:
-                raise InputError(f'{n} = "{cell}" is not a number; give a number with a '
+                raise InputError(f'{n} = "{clip(cell)}" is not a number; give a number with a '
                                  "'.' decimal point", path, f"line {lineno}") from None
             if not math.isfinite(v):
                 raise InputError(f"{n} = {cell} is not a finite number", path,
@@ -405,11 +413,69 @@ def read_readings(path: str | Path) -> ReadingsTable:
                 raise InputError(f"{n} = {cell} is negative; drag is positive rearward and "
                                  "speed >= 0", path, f"line {lineno}")
             cols[n][r] = v
-    return ReadingsTable(cols, extra, np.array([n for n, _ in rows]), str(path))
+    lines = np.array([n for n, _ in rows])
+    zero = (cols["front_n"] == 0) & (cols["rear_n"] == 0) & (cols["drag_n"] == 0)
+    if zero.all():
+        raise InputError("every reading is zero (front_n, rear_n and drag_n); give the "
+                         "readings with the wind on, tare already subtracted", path)
+    if zero.any():
+        import warnings
+
+        at = ", ".join(str(int(x)) for x in lines[zero][:5]) + (", ..." if zero.sum() > 5
+                                                                 else "")
+        warnings.warn(f"{path}: line {at}: front_n, rear_n and drag_n are all zero (a tare "
+                      "or wind-off row?); the row is left out (subtract the tare from the "
+                      "readings, then delete the row)", PhysicsWarning, stacklevel=2)
+        keep = ~zero
+        cols = {k: v[keep] for k, v in cols.items()}
+        extra = {k: [x for x, z in zip(v, zero, strict=True) if not z] for k, v in extra.items()}
+        lines = lines[keep]
+    if "speed_kph" in cols and (cols["speed_kph"] == 0).any():
+        import warnings
+
+        still = cols["speed_kph"] == 0
+        at = ", ".join(str(int(x)) for x in lines[still][:5]) + (", ..." if still.sum() > 5
+                                                                  else "")
+        warnings.warn(f"{path}: line {at}: speed_kph = 0 with loads on the balance (a "
+                      "wind-off or tare row?); its areas are left empty: subtract the tare "
+                      "from the readings and delete the row", PhysicsWarning, stacklevel=2)
+    return ReadingsTable(cols, extra, lines, str(path))
+
+
+#: Drag area above which readings are no longer a road vehicle's, with speeds <= 100 [m²].
+_CDA_SUSPECT_M2 = 5.0
+
+
+def check_speed_unit(table: ReadingsTable, air_density: float,
+                     expected_drag_area: float | None = None) -> None:
+    """Refuse ``speed_kph`` values that are in m/s (areas would come out 13 times too big).
+
+    With speeds read as km/h, the median drag area ``D / q`` is compared with the car's drag
+    area ``expected_drag_area`` [m²] (a ratio near 3.6² = 12.96 is the slip), or without it
+    with :data:`_CDA_SUSPECT_M2` when no speed exceeds 100.
+    """
+    c = table.columns
+    if "speed_kph" not in c:
+        return
+    v = c["speed_kph"] * KPH
+    ok = (v > 0) & (c["drag_n"] > 0)
+    if not ok.any():
+        return
+    cda = float(np.median(c["drag_n"][ok] / _aero.dynamic_pressure(air_density, v[ok])))
+    if expected_drag_area is not None and expected_drag_area > 0:
+        slip = 0.5 * 3.6**2 <= cda / expected_drag_area <= 2.0 * 3.6**2
+    else:
+        slip = cda > _CDA_SUSPECT_M2 and float(np.max(c["speed_kph"])) <= 100.0
+    if slip:
+        ref = (f"the car's is {expected_drag_area:.3g} m²" if expected_drag_area
+               else "a road vehicle has about 0.3 to 2 m²")
+        raise InputError(f"the speeds look like m/s, not km/h: read as km/h they give a drag "
+                         f"area of {cda:.3g} m² ({ref}), as m/s {cda / 3.6**2:.3g} m²; "
+                         "multiply the speeds by 3.6", table.source, "speed_kph")
 
 
 def correct_table(table: ReadingsTable, cg_height, wheelbase, restraint_height=0.0,
-                  air_density=None, drag_height=None) -> dict:
+                  air_density=None, drag_height=None, expected_drag_area=None) -> dict:
     """Correct every reading of a table to the CG convention.
 
     Parameters
@@ -422,6 +488,8 @@ def correct_table(table: ReadingsTable, cg_height, wheelbase, restraint_height=0
         Air density, for the downforce and drag areas when ``speed_kph`` is given. [kg/m³]
     drag_height : float, optional
         Drag line height, for the vertical centre of pressure. [m]
+    expected_drag_area : float, optional
+        The car's drag area, to catch speeds given in m/s (:func:`check_speed_unit`). [m²]
 
     Returns
     -------
@@ -433,6 +501,8 @@ def correct_table(table: ReadingsTable, cg_height, wheelbase, restraint_height=0
         ``drag_area_m2``; with a drag height: ``centre_of_pressure_m``.
     """
     c = table.columns
+    if air_density is not None:
+        check_speed_unit(table, air_density, expected_drag_area)
     out: dict = {}
     for n in OPTIONAL_COLUMNS:
         if n in c:

@@ -12,8 +12,8 @@ import warnings
 
 import click
 
+from lapbalance.errors import InputError, PhysicsWarning, tidy
 from lapbalance.version import __version__
-from lapbalance.errors import InputError, PhysicsWarning
 
 
 class _Group(click.Group):
@@ -31,11 +31,38 @@ class _Group(click.Group):
         except KeyboardInterrupt:
             click.echo("lapbalance: interrupted; no partial output was written", err=True)
             sys.exit(130)
+        except click.UsageError as e:  # a mistyped option or argument: one line too
+            if debug:
+                raise
+            sub = e.ctx.info_name if e.ctx is not None and e.ctx.parent is not None else None
+            where = f"{sub}: " if sub else ""
+            hint = f"lapbalance {sub} --help" if sub else "lapbalance --help"
+            msg = tidy(f"lapbalance: {where}{e.format_message().rstrip('.')}; see {hint}")
+            click.echo(msg, err=True)
+            sys.exit(2)
+        except BrokenPipeError:  # output piped into a program that stopped reading
+            import os
+
+            os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+            sys.exit(1)
+        except OSError as e:  # a path fault no reader or writer turned into words
+            if debug:
+                raise
+            from lapbalance.outputs import os_error_line
+
+            click.echo(f"lapbalance: {os_error_line(e, 'use the path')}", err=True)
+            sys.exit(2)
+        except MemoryError:
+            if debug:
+                raise
+            click.echo("lapbalance: out of memory; use a coarser --step-m, fewer sweep "
+                       "points or a smaller input", err=True)
+            sys.exit(2)
 
 
 def _show_warning(message, category, filename, lineno, file=None, line=None):
     prefix = "warning" if issubclass(category, PhysicsWarning) else category.__name__
-    click.echo(f"lapbalance: {prefix}: {message}", err=True)
+    click.echo(tidy(f"lapbalance: {prefix}: {message}"), err=True)
 
 
 @click.group(cls=_Group, context_settings={"help_option_names": ["-h", "--help"]})
@@ -50,6 +77,26 @@ def main(debug: bool) -> None:
     qualified engineers and track testing, within the rules and the law.
     """
     warnings.showwarning = _show_warning
+    _terminate_cleanly()
+
+
+def _terminate_cleanly() -> None:
+    """Turn SIGTERM (a job scheduler or ``kill``) into the interrupt path, so staging folders
+    and locks are removed as on Ctrl-C (``kill -9`` cannot be caught: the next run clears
+    what it leaves)."""
+    import signal
+    import threading
+
+    if threading.current_thread() is not threading.main_thread():
+        return
+    try:
+        if signal.getsignal(signal.SIGTERM) is signal.SIG_DFL:
+            def _raise(signum, frame):
+                raise KeyboardInterrupt
+
+            signal.signal(signal.SIGTERM, _raise)
+    except (ValueError, OSError, AttributeError):  # pragma: no cover - no SIGTERM here
+        pass
 
 
 # Command modules register themselves on ``main`` when imported.

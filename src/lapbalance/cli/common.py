@@ -97,3 +97,93 @@ def check_car_track_order(car_file, track_file, car_arg: str = "CAR_FILE",
         raise InputError(f"{c.name} looks like a track and {t.name} like a car file: the "
                          f"arguments are swapped; give the car first, then the track "
                          f"({car_arg} {track_arg})", c)
+
+
+# --------------------------------------------------------------------------------------------
+# bounds on numeric options (each with its reason)
+# --------------------------------------------------------------------------------------------
+
+#: Smallest and largest resampling step [m].
+STEP_MIN_M, STEP_MAX_M = 0.1, 50.0
+#: Most track points a lap may have (memory for the channels grows with it) [-].
+MAX_TRACK_POINTS = 2_000_000
+#: Highest start speed accepted at all [km/h].
+START_SPEED_MAX_KPH = 1000.0
+
+
+def _channel_bytes_per_point() -> int:
+    try:
+        from lapbalance.lap import CHANNELS
+
+        return 8 * (len(CHANNELS) + 16)
+    except ImportError:  # pragma: no cover
+        return 8 * 80
+
+
+def check_step(step_m: float, option: str = "--step-m") -> float:
+    """Refuse a resampling step outside [0.1, 50] m, saying what it would cost."""
+    import math
+
+    from lapbalance.errors import InputError
+
+    if not (isinstance(step_m, int | float) and math.isfinite(step_m)
+            and STEP_MIN_M <= step_m <= STEP_MAX_M):
+        why = ""
+        if isinstance(step_m, int | float) and 0 < step_m < STEP_MIN_M:
+            n = 5000.0 / step_m
+            gb = n * _channel_bytes_per_point() / 1e9
+            why = (f" (at {step_m:g} m a 5 km lap has {n:.3g} points, about {gb:.3g} GB of "
+                   "channels; finer steps than 0.1 m add nothing the track data can hold)")
+        elif isinstance(step_m, int | float) and step_m > STEP_MAX_M:
+            why = " (a coarser step steps over whole corners)"
+        raise InputError(f"= {step_m:g} must be between 0 and {STEP_MAX_M:g} m, at least "
+                         f"{STEP_MIN_M:g} m{why}; 1 m is usual", option)
+    return float(step_m)
+
+
+def check_track_size(track, step_m: float, option: str = "--step-m") -> None:
+    """Refuse a track that would have more than :data:`MAX_TRACK_POINTS` points."""
+    from lapbalance.errors import InputError
+
+    n = int(getattr(track, "n", 0))
+    if n > MAX_TRACK_POINTS:
+        gb = n * _channel_bytes_per_point() / 1e9
+        need = track.length_m / MAX_TRACK_POINTS
+        raise InputError(f"= {step_m:g} m gives {n} points on this {track.length_m / 1000:.1f}"
+                         f" km track (about {gb:.2g} GB of channels, more than the "
+                         f"{MAX_TRACK_POINTS} point limit); use a step >= {need:.2g} m", option)
+
+
+def check_start_speed(start_speed_kph, cars) -> None:
+    """Refuse a start speed far above what the car can reach (it would be clamped)."""
+    import math
+
+    from lapbalance.errors import InputError
+
+    if start_speed_kph is None or not (math.isfinite(start_speed_kph)
+                                       and start_speed_kph >= 0.0):
+        return  # negative or not finite: simulate_lap says so
+    if start_speed_kph > START_SPEED_MAX_KPH:
+        raise InputError(f"= {start_speed_kph:g} km/h is above {START_SPEED_MAX_KPH:g} km/h; "
+                         "give the speed in km/h (not m/h or mm/s)", "--start-speed-kph")
+    for car in cars:
+        try:
+            vmax = car.powertrain.top_speed_rev_limited() * 3.6
+        except (AttributeError, ZeroDivisionError):
+            continue
+        if start_speed_kph > 1.02 * vmax:
+            raise InputError(f"= {start_speed_kph:g} km/h is above the top speed of "
+                             f"{car.name} ({vmax:.0f} km/h at the rev limit in top gear); the "
+                             f"lap would silently start at {vmax:.0f} km/h; give a start "
+                             f"speed <= {vmax:.0f} km/h", "--start-speed-kph")
+
+
+def check_int(value, option: str, lo: int, hi: int, why: str) -> int:
+    """Refuse a whole-number option outside [lo, hi], with the reason ``why``."""
+    from lapbalance.errors import InputError
+
+    if value is None:
+        return value
+    if not lo <= int(value) <= hi:
+        raise InputError(f"= {value} must be between {lo} and {hi} ({why})", option)
+    return int(value)

@@ -18,11 +18,14 @@ from lapbalance.errors import InputError
 
 
 def _load_tracks(track_files, step_m, closed):
+    from lapbalance.cli.common import check_step, check_track_size
     from lapbalance.track import load_track
 
-    if step_m <= 0 or step_m > 50:
-        raise InputError(f"= {step_m} must be between 0 and 50 m", "--step-m")
-    return [load_track(f, step_m=step_m, closed=closed) for f in track_files]
+    check_step(step_m)
+    tracks = [load_track(f, step_m=step_m, closed=closed) for f in track_files]
+    for t in tracks:
+        check_track_size(t, step_m)
+    return tracks
 
 
 def split_settings(text: str) -> list[str]:
@@ -319,7 +322,7 @@ def compare_figures_png(result, i: int, key: str) -> dict[str, bytes]:
               metavar="SECTION.KEY=VALUE[,...]",
               help='A variant made of overrides on the base, e.g. --set-variant '
                    '"aero.downforce_area_m2=1.9,aero.drag_area_m2=0.86" (repeatable).')
-@click.option("--out", "out_dir", type=click.Path(file_okay=False),
+@click.option("--out", "out_dir", type=click.Path(),
               help="Write compare_<track>.csv, corners_<track>.csv and plots here.")
 @click.option("--plots/--no-plots", default=True, show_default=True,
               help="With --out, also write figures.")
@@ -341,41 +344,46 @@ def compare_command(base_file, variant_files, track_files, set_variants, out_dir
 
     With --line min-curvature every car drives the line built for BASE_FILE's width, so the
     comparison shows the cars, not their lines."""
+    from contextlib import nullcontext
+
     from lapbalance import provenance
+    from lapbalance.cli.common import check_start_speed
     from lapbalance.compare import compare
+    from lapbalance.outputs import output_folder
 
     if not variant_files and not set_variants:
         raise InputError("give at least one variant: a car file after the base, or "
                          "--set-variant SECTION.KEY=VALUE[,...]", "compare")
-    base = load_car(base_file)
-    variants: list = [load_car(f) for f in variant_files]
-    for text in set_variants:
-        items = split_settings(text)
-        try:
-            base.with_overrides(items)  # report bad keys against --set-variant
-        except InputError as e:
-            raise InputError(e.message, "--set-variant", e.field) from None
-        variants.append(items)
-    tracks = _load_tracks(track_files, step_m, closed)
-    tracks = [apply_line(t, base, line, track_width_m, line_margin_m) for t in tracks]
-    if out_dir:  # refuse an occupied folder before the laps are run, not after
-        from lapbalance.outputs import check_output_dir
+    inputs = [base_file, *variant_files, *track_files]
+    # take the output folder first: a refused or unwritable folder fails before any lap
+    with (output_folder(out_dir, force, command="compare", inputs=inputs)
+          if out_dir else nullcontext()) as folder:
+        base = load_car(base_file)
+        variants: list = [load_car(f) for f in variant_files]
+        for text in set_variants:
+            items = split_settings(text)
+            try:
+                base.with_overrides(items)  # report bad keys against --set-variant
+            except InputError as e:
+                raise InputError(e.message, "--set-variant", e.field) from None
+            variants.append(items)
+        check_start_speed(start_speed_kph, [base, *[v for v in variants
+                                                    if not isinstance(v, list)]])
+        tracks = _load_tracks(track_files, step_m, closed)
+        tracks = [apply_line(t, base, line, track_width_m, line_margin_m) for t in tracks]
+        prepare_solver()
+        opts = {"start_speed_kph": start_speed_kph} if start_speed_kph is not None else {}
+        result = compare(base, variants, tracks, simulate_options=opts)
+        cars = [r.car for r in result.laps[0]]
+        record = provenance.build(cars, tracks, solver=result.laps[0][0].settings,
+                                  settings={"labels": result.labels,
+                                            "set_variants": list(set_variants),
+                                            "speed_bands_kph": list(result.speed_bands_kph)})
+        written: list[str] = []
+        if folder is not None:
+            from lapbalance.export import write_provenance
 
-        check_output_dir(out_dir, force)
-    prepare_solver()
-    opts = {"start_speed_kph": start_speed_kph} if start_speed_kph is not None else {}
-    result = compare(base, variants, tracks, simulate_options=opts)
-    cars = [r.car for r in result.laps[0]]
-    record = provenance.build(cars, tracks, solver=result.laps[0][0].settings,
-                              settings={"labels": result.labels,
-                                        "set_variants": list(set_variants),
-                                        "speed_bands_kph": list(result.speed_bands_kph)})
-    written: list[str] = []
-    if out_dir:
-        from lapbalance.export import write_provenance
-        from lapbalance.outputs import staged_dir
-
-        with staged_dir(out_dir, force=force) as tmp:
+            tmp = folder.staging
             for i, key in enumerate(result.tracks):
                 for name, text in (
                         (f"compare_{key}.csv", _csv_rows(result.summary_for(key),
@@ -424,6 +432,8 @@ class _Progress:
         self.bar = None
 
     def __call__(self, done, total, row):
+        if not sys.stderr.isatty():  # no bar in logs and pipes (keeps errors one line)
+            return
         if self.bar is None:
             self.bar = click.progressbar(length=total, label="sweep", file=sys.stderr,
                                          show_pos=True)
@@ -481,7 +491,7 @@ def format_sweep(rows, keys, limit: int = 30, units: str = "metric",
 @click.option("--cluster", default=None, metavar="ADDRESS",
               help="Run on a Dask scheduler, e.g. tcp://10.0.0.5:8786 (needs "
                    "lapbalance[cluster]).")
-@click.option("--out", "out_dir", type=click.Path(file_okay=False),
+@click.option("--out", "out_dir", type=click.Path(),
               help="Folder for sweep.csv (a rerun resumes), results.csv, sweep.json, plots.")
 @force_option
 @set_option
@@ -498,10 +508,16 @@ def sweep_command(car_file, track_file, vary_specs, lhs_n, seed, workers, cluste
 
     With --line min-curvature the line is built once for CAR_FILE's width (a swept
     chassis.overall_width_m does not move it)."""
+    import os
+
     from lapbalance import provenance
-    from lapbalance.cli.common import check_car_track_order
+    from lapbalance.cli.common import check_car_track_order, check_int, check_start_speed
     from lapbalance.sweep import auto_workers, parse_vary, sweep, sweep_points
 
+    check_int(lhs_n, "--lhs", 1, 100_000, "each point is a whole lap")
+    check_int(seed, "--seed", 0, 2**32 - 1, "the seed of the Latin hypercube generator")
+    check_int(workers, "--workers", 1, max(64, 4 * (os.cpu_count() or 1)),
+              "each worker is a process holding its own solver and track, ~200 MB")
     method = "lhs" if lhs_n is not None else "grid"
     vary: dict[str, list[float]] = {}
     for spec in vary_specs:
@@ -511,6 +527,7 @@ def sweep_command(car_file, track_file, vary_specs, lhs_n, seed, workers, cluste
         vary[key] = values
     check_car_track_order(car_file, track_file)
     car = load_car(car_file, overrides)
+    check_start_speed(start_speed_kph, [car])
     (track,) = _load_tracks([track_file], step_m, closed)
     track = apply_line(track, car, line, track_width_m, line_margin_m)
     opts = {"start_speed_kph": start_speed_kph} if start_speed_kph is not None else {}
@@ -520,12 +537,20 @@ def sweep_command(car_file, track_file, vary_specs, lhs_n, seed, workers, cluste
             click.echo(f"sweep: {workers} worker process{'es' if workers > 1 else ''} "
                        "(--workers to change)", err=True)
     prepare_solver()
+    from lapbalance.lap import LIFTOFF_AY_THRESHOLD
+
+    record = provenance.build([car], [track],
+                              solver={**opts, "liftoff_ay_threshold_mps2": LIFTOFF_AY_THRESHOLD},
+                              settings={"vary": vary, "method": method, "lhs_points": lhs_n,
+                                        "seed": seed, "workers": workers,
+                                        "cluster": cluster})
     bar = _Progress()
     stats: dict = {}
     try:
         rows = sweep(car, track, vary, method=method, n=lhs_n, workers=workers,
                      cluster=cluster, out=out_dir, seed=seed, progress=bar, force=force,
-                     simulate_options=opts, stats=stats, plot_format=plot_format)
+                     simulate_options=opts, stats=stats, plot_format=plot_format,
+                     inputs=[car_file, track_file], provenance=record)
     except KeyboardInterrupt:
         bar.close()
         kept = (f"; finished points are kept in {out_dir}/sweep.csv, rerun the same command "
@@ -534,19 +559,6 @@ def sweep_command(car_file, track_file, vary_specs, lhs_n, seed, workers, cluste
         sys.exit(130)
     finally:
         bar.close()
-    from lapbalance.lap import LIFTOFF_AY_THRESHOLD
-
-    record = provenance.build([car], [track],
-                              solver={**opts, "liftoff_ay_threshold_mps2": LIFTOFF_AY_THRESHOLD},
-                              settings={"vary": vary, "method": method, "lhs_points": lhs_n,
-                                        "seed": seed, "workers": workers,
-                                        "cluster": cluster})
-    if out_dir:
-        from pathlib import Path
-
-        from lapbalance.export import write_provenance
-
-        write_provenance(Path(out_dir), record)
     if as_json:
         echo_json({"points": rows, "reused": stats.get("reused", 0), "provenance": record})
         return
@@ -558,7 +570,8 @@ def sweep_command(car_file, track_file, vary_specs, lhs_n, seed, workers, cluste
     click.echo(format_sweep(rows, list(vary), units=units,
                             time_word="lap" if track.closed else "run"))
     if out_dir:
-        figs = (f", lap_time.{plot_format}, liftoff_shift.{plot_format}"
+        figs = (f", lap_time.{plot_format}, liftoff_margin.{plot_format}, "
+                f"liftoff_shift.{plot_format}"
                 if len(vary) <= 2 else "")
         click.echo(f"\nwrote {out_dir}/results.csv, sweep.csv, sweep.json, "
                    f"{provenance.SIDECAR}{figs}")

@@ -10,7 +10,7 @@ from lapbalance.cli import main
 from lapbalance.cli.common import table
 from lapbalance.errors import InputError
 
-#: Marker file that identifies a folder the demo wrote (and may therefore replace).
+#: Marker file of demo folders written before output manifests existed (still recognised).
 DEMO_MARKER = ".lapbalance-demo"
 
 
@@ -29,27 +29,38 @@ def _say(msg: str) -> None:
 
 
 @main.command("demo")
-@click.option("--out", "out_dir", type=click.Path(file_okay=False), default="lapbalance-demo",
+@click.option("--out", "out_dir", type=click.Path(), default="lapbalance-demo",
               show_default=True, help="Folder for the demo results.")
-@click.option("--force", is_flag=True, help="Replace a folder the demo did not write.")
+@click.option("--force", is_flag=True,
+              help="Replace an earlier result of another lapbalance command in --out "
+                   "(a folder holding files lapbalance did not write is always refused).")
 def demo_command(out_dir, force):
     """Run the demo: a lap of the GT coupe with its lift-off check, the wind-tunnel
     correction of its balance readings, and the HTML report."""
+    from lapbalance.lap import CAUTION
+    from lapbalance.outputs import output_folder, read_manifest
+
+    root = demo_root()
+    out = Path(out_dir)
+    man = read_manifest(out) if out.is_dir() else None
+    own = (man is not None and man.get("command") == "demo") or (out / DEMO_MARKER).is_file()
+    # take the folder first (refused or unwritable folders fail before the lap runs); the
+    # demo replaces its own earlier result, never a file lapbalance did not write
+    with output_folder(out, force=force or own, option="--out", command="demo") as folder:
+        _demo(root, folder.staging, out)
+    click.echo(f"caution: {CAUTION}")
+
+
+def _demo(root: Path, tmp: Path, out: Path) -> None:
+    """Run the demo jobs, print them, and write their files into staging folder ``tmp``."""
     from lapbalance import tunnel
     from lapbalance.car import load_car
     from lapbalance.cli.lap_cmd import format_lap
     from lapbalance.export import channels_csv, corners_csv, summary_json
-    from lapbalance.lap import CAUTION, simulate_lap
-    from lapbalance.outputs import columns_csv_text, staged_dir
+    from lapbalance.lap import simulate_lap
+    from lapbalance.outputs import columns_csv_text
     from lapbalance.track import load_track
 
-    root = demo_root()
-    out = Path(out_dir)
-    own = (out / DEMO_MARKER).exists()
-    if not own:
-        from lapbalance.outputs import check_output_dir
-
-        check_output_dir(out, force, "--out")
     car_file = root / "examples" / "gt_coupe.toml"
     track_file = root / "tracks" / "veldmoor_ring.csv"
     _say(f"demo: loading {car_file.name} and {track_file.name}")
@@ -66,7 +77,8 @@ def demo_command(out_dir, force):
     _say("demo: correcting the wind-tunnel balance readings for the wheel restraint")
     readings = tunnel.read_readings(root / "examples" / "gt_coupe_tunnel_sweep.csv")
     corr = tunnel.correct_table(readings, car.chassis.cg_height, car.chassis.wheelbase, 0.0,
-                                car.air.density, car.aero.drag_height)
+                                car.air.density, car.aero.drag_height,
+                                expected_drag_area=car.aero.drag_area or None)
     rows = []
     for i in range(len(corr["front_n_measured"])):
         rows.append([f"{corr['speed_kph'][i]:.0f}" if "speed_kph" in corr else str(i + 1),
@@ -95,21 +107,18 @@ def demo_command(out_dir, force):
             results.append(simulate_lap(load_car(variant), track))
         report_html = _report.build_report(results, dpi=70)
 
-    with staged_dir(out, force=force or own, option="--out") as tmp:
-        (tmp / DEMO_MARKER).write_text("written by lapbalance demo; the demo may replace "
-                                       "this folder\n", encoding="utf-8")
-        (tmp / "channels.csv").write_text(channels_csv(result), encoding="utf-8")
-        (tmp / "corners.csv").write_text(corners_csv(result), encoding="utf-8")
-        (tmp / "summary.json").write_text(summary_json(result), encoding="utf-8")
-        (tmp / "tunnel_corrected.csv").write_text(columns_csv_text(corr), encoding="utf-8")
-        if report_html is not None:
-            (tmp / "report.html").write_text(report_html, encoding="utf-8")
-        from lapbalance import provenance
-        from lapbalance.export import write_provenance
+    (tmp / "channels.csv").write_text(channels_csv(result), encoding="utf-8")
+    (tmp / "corners.csv").write_text(corners_csv(result), encoding="utf-8")
+    (tmp / "summary.json").write_text(summary_json(result), encoding="utf-8")
+    (tmp / "tunnel_corrected.csv").write_text(columns_csv_text(corr, nan=""),
+                                              encoding="utf-8")
+    if report_html is not None:
+        (tmp / "report.html").write_text(report_html, encoding="utf-8")
+    from lapbalance import provenance
+    from lapbalance.export import write_provenance
 
-        write_provenance(tmp, provenance.for_lap(
-            result, [("tunnel-readings", root / "examples" / "gt_coupe_tunnel_sweep.csv")]))
+    write_provenance(tmp, provenance.for_lap(
+        result, [("tunnel-readings", root / "examples" / "gt_coupe_tunnel_sweep.csv")]))
     click.echo(f"wrote {out}/ (channels.csv, corners.csv, summary.json, provenance.json, "
                "tunnel_corrected.csv"
                f"{', report.html' if report_html else ''})")
-    click.echo(f"caution: {CAUTION}")

@@ -22,18 +22,20 @@ def track_options(f):
     return f
 
 
-def load_inputs(car_file, track_file, overrides, step_m, closed, prepare: bool = True):
-    """Load the car and the track (and compile the solver with progress on a first run)."""
-    from lapbalance.cli.common import check_car_track_order, prepare_solver
+def load_inputs(car_file, track_file, overrides, step_m, closed, start_speed_kph=None,
+                more_cars=(), prepare: bool = True):
+    """Check the numeric options, load the car and the track (InputError on bad input), and
+    compile the solver with progress on a first run (``prepare``)."""
+    from lapbalance.cli.common import (check_car_track_order, check_start_speed, check_step,
+                                       check_track_size, prepare_solver)
     from lapbalance.track import load_track
 
-    if not 0 < step_m <= 50:
-        from lapbalance.errors import InputError
-
-        raise InputError(f"= {step_m} must be between 0 and 50 m", "--step-m")
+    check_step(step_m)
     check_car_track_order(car_file, track_file)
     car = load_car(car_file, overrides)
+    check_start_speed(start_speed_kph, [car, *more_cars])
     track = load_track(track_file, step_m=step_m, closed=closed)
+    check_track_size(track, step_m)
     if prepare:
         prepare_solver()
     return car, track
@@ -236,7 +238,7 @@ def _num(x, fmt):
 @main.command("lap")
 @click.argument("car_file", type=click.Path(dir_okay=False))
 @click.argument("track_file", type=click.Path(dir_okay=False))
-@click.option("--out", "out_dir", type=click.Path(file_okay=False),
+@click.option("--out", "out_dir", type=click.Path(),
               help="Write channels.csv, corners.csv, summary.json and provenance.json here.")
 @set_option
 @json_option
@@ -262,45 +264,50 @@ def lap_command(car_file, track_file, out_dir, overrides, as_json, force, step_m
     With --out, summary.json records what was run (inputs with SHA-256, overrides, the
     resolved car, settings); `lapbalance rerun OUT/summary.json` runs it again.
     """
-    from lapbalance.export import write_lap_folder
+    from contextlib import nullcontext
+
+    from lapbalance.export import write_lap_files
     from lapbalance.lap import CHANNELS, simulate_lap
+    from lapbalance.outputs import output_folder
 
     if map_channel is not None and map_channel not in CHANNELS:
         from lapbalance.errors import InputError, did_you_mean
 
         raise InputError(f'"{map_channel}" is not a channel; '
                          f"{did_you_mean(map_channel, CHANNELS)}", "--map-channel")
-    if out_dir:  # refuse an occupied folder before the lap is run, not after
-        from lapbalance.outputs import check_output_dir
-
-        check_output_dir(out_dir, force)
-    elif plots:
+    if plots and not out_dir:
         raise click.UsageError("--plots needs --out DIR")
-    car, track = load_inputs(car_file, track_file, overrides, step_m, closed)
-    track = apply_line(track, car, line, track_width_m, line_margin_m)
-    result = simulate_lap(car, track, start_speed_kph=start_speed_kph)
-    runs = None
-    if in_time and car.transient is not None:
-        from lapbalance.transient import lap_corner_runs
+    # take the folder before the lap is run: refused or unwritable folders fail at once
+    with (output_folder(out_dir, force, command="lap", inputs=[car_file, track_file])
+          if out_dir else nullcontext()) as folder:
+        car, track = load_inputs(car_file, track_file, overrides, step_m, closed,
+                                 start_speed_kph)
+        track = apply_line(track, car, line, track_width_m, line_margin_m)
+        result = simulate_lap(car, track, start_speed_kph=start_speed_kph)
+        runs = None
+        if in_time and car.transient is not None:
+            from lapbalance.transient import lap_corner_runs
 
-        runs = lap_corner_runs(result)
-    extra = {}
-    if runs:
-        extra["liftoff_runs.csv"] = runs_csv_text(runs).encode("utf-8")
-    if out_dir:
-        from lapbalance.liftoff import corner_response
+            runs = lap_corner_runs(result)
+        extra = {}
+        if runs:
+            extra["liftoff_runs.csv"] = runs_csv_text(runs).encode("utf-8")
+        if folder is not None:
+            from lapbalance.liftoff import corner_response
 
-        curve = corner_response(result)
-        if curve is not None:
-            extra["liftoff_response.csv"] = curve.csv_text().encode("utf-8")
-        if plots:
-            from lapbalance import plots as _plots
-
-            extra.update(_plots.lap_figures(result, fmt=plot_format, map_channel=map_channel))
+            curve = corner_response(result)
             if curve is not None:
-                fig = _plots.liftoff_response_figure(curve, result.car.name)
-                extra[f"liftoff_response.{plot_format}"] = _plots.figure_bytes(fig, plot_format)
-        write_lap_folder(result, out_dir, force=force, extra=extra)
+                extra["liftoff_response.csv"] = curve.csv_text().encode("utf-8")
+            if plots:
+                from lapbalance import plots as _plots
+
+                extra.update(_plots.lap_figures(result, fmt=plot_format,
+                                                map_channel=map_channel))
+                if curve is not None:
+                    fig = _plots.liftoff_response_figure(curve, result.car.name)
+                    extra[f"liftoff_response.{plot_format}"] = _plots.figure_bytes(
+                        fig, plot_format)
+            write_lap_files(result, folder.staging, extra)
     if as_json:
         out = lap_json(result)
         if runs is not None:

@@ -19,7 +19,7 @@ from lapbalance.cli.lap_cmd import load_inputs, track_options
               metavar="CAR_FILE", help="Another car file to compare with CAR_FILE "
               "(repeatable); adds a comparison table and overlay figures.")
 @set_option
-@click.option("--out", "out_file", required=True, type=click.Path(dir_okay=False),
+@click.option("--out", "out_file", required=True, type=click.Path(),
               help="HTML file to write, e.g. report.html.")
 @click.option("--force", is_flag=True, help="Replace an existing report file.")
 @click.option("--log", "log_file", type=click.Path(dir_okay=False),
@@ -40,48 +40,48 @@ def report_command(car_file, track_file, variants, overrides, out_file, force, s
     with variants, a setup table and what each variant changes from the base.
     """
     from lapbalance import provenance
-    from lapbalance.errors import InputError
+    from lapbalance.cli.common import prepare_solver
     from lapbalance.lap import simulate_lap
-    from lapbalance.report import write_report
+    from lapbalance.outputs import output_file, write_text_atomic
+    from lapbalance.report import build_report
 
     out = Path(out_file)
-    if out.exists() and not force:  # fail before the laps are run, not after
-        raise InputError("already exists; pass --force to replace it or choose another --out",
-                         out)
-    car, track = load_inputs(car_file, track_file, overrides, step_m, closed, prepare=False)
-    track = apply_line(track, car, line, track_width_m, line_margin_m)
-    log = None
-    if log_file:  # read (and check) the log before any lap is run
-        from lapbalance import correlate as C
-
-        fit = C.check_factors(log_fit.split(","))
-        log = C.load_log(log_file, track, track_latlon_origin=C.track_origin(track_file))
-    elif log_fit:
-        raise click.UsageError("--log-fit needs --log FILE")
-    cars = [car] + [load_car(v, overrides) for v in variants]
-    from lapbalance.cli.common import prepare_solver
-
-    prepare_solver()  # after every input is read, so a bad input gets its one line alone
     files = [car_file, *variants]
-    labels = [c.name for c in cars]
-    if len(set(labels)) < len(labels):
-        labels = [Path(f).stem for f in files]
-    results = []
-    for j, (c, lab) in enumerate(zip(cars, labels, strict=True)):
-        click.echo(f"[{j + 1}/{len(cars)}] {lab}: running the lap ...", err=True)
-        results.append(simulate_lap(c, track, start_speed_kph=start_speed_kph))
-    corr = None
-    if log_file:
-        from lapbalance import correlate as C
+    # take the file first: an existing, unwritable or input file fails before any lap runs
+    with output_file(out, force, "--out", command="report",
+                     inputs=[*files, track_file, *([log_file] if log_file else [])],
+                     need_bytes=1_500_000 * (1 + len(variants))):
+        more = [load_car(v, overrides) for v in variants]
+        car, track = load_inputs(car_file, track_file, overrides, step_m, closed,
+                                 start_speed_kph, more, prepare=False)
+        track = apply_line(track, car, line, track_width_m, line_margin_m)
+        log = None
+        if log_file:  # read (and check) the log before any lap is run
+            from lapbalance import correlate as C
 
-        click.echo(f"correlating {labels[0]} with {log_file} ...", err=True)
-        corr = C.correlate(car, track, log, fit=fit, model=results[0])
-    click.echo("rendering figures ...", err=True)
-    files = [("log", log_file)] if log_file else []
-    record = provenance.build(cars, [track], files=files, solver=results[0].settings,
-                              settings={"log_fit": log_fit} if log_file else None)
-    write_report(results, out, force=force, labels=labels, units=units, provenance=record,
-                 correlation=corr)
+            fit = C.check_factors(log_fit.split(","))
+            log = C.load_log(log_file, track, track_latlon_origin=C.track_origin(track_file))
+        elif log_fit:
+            raise click.UsageError("--log-fit needs --log FILE")
+        prepare_solver()  # after every input is read, so a bad input gets its one line alone
+        cars = [car, *more]
+        labels = [c.name for c in cars]
+        if len(set(labels)) < len(labels):
+            labels = [Path(f).stem for f in files]
+        results = []
+        for j, (c, lab) in enumerate(zip(cars, labels, strict=True)):
+            click.echo(f"[{j + 1}/{len(cars)}] {lab}: running the lap ...", err=True)
+            results.append(simulate_lap(c, track, start_speed_kph=start_speed_kph))
+        corr = None
+        if log_file:
+            click.echo(f"correlating {labels[0]} with {log_file} ...", err=True)
+            corr = C.correlate(car, track, log, fit=fit, model=results[0])
+        click.echo("rendering figures ...", err=True)
+        pfiles = [("log", log_file)] if log_file else []
+        record = provenance.build(cars, [track], files=pfiles, solver=results[0].settings,
+                                  settings={"log_fit": log_fit} if log_file else None)
+        write_text_atomic(out, build_report(results, labels, units=units, provenance=record,
+                                            correlation=corr))
     times = ", ".join(f"{lab} {r.lap_time_s:.3f} s" for lab, r in zip(labels, results,
                                                                        strict=True))
     click.echo(f"wrote {out} ({times})")

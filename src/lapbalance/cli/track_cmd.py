@@ -105,7 +105,8 @@ def track_map_png(tr: Track, fmt: str = "png") -> bytes:
                  "(blue left, orange right)", fontsize=9)
     ax.legend(loc="best", fontsize=8)
     buf = io.BytesIO()
-    fig.savefig(buf, format=fmt, metadata=None if fmt == "png" else {"Date": None})
+    fig.savefig(buf, format=fmt,
+                metadata={"Software": "lapbalance"} if fmt == "png" else {"Date": None})
     return buf.getvalue()
 
 
@@ -118,7 +119,7 @@ def track_map_png(tr: Track, fmt: str = "png") -> bytes:
 @click.option("--noise-m", type=float, default=None,
               help="Position noise of the points (standard deviation) [m]; default: "
                    "estimated from the points; 0 trusts them as exact.")
-@click.option("--map", "map_png", type=click.Path(dir_okay=False), default=None,
+@click.option("--map", "map_png", type=click.Path(), default=None,
               metavar="FILE", help="Save a track map with corners labelled and the curvature "
                                    "against distance beside it (PNG; SVG or PDF when the "
                                    "file name ends in .svg or .pdf).")
@@ -127,10 +128,10 @@ def track_map_png(tr: Track, fmt: str = "png") -> bytes:
               help="Car width for --line min-curvature [m] (default 2.0, or from --car).")
 @click.option("--car", "car_file", type=click.Path(dir_okay=False), default=None,
               help="Car file whose chassis.overall_width_m sets the car width.")
-@click.option("--out", "out_csv", type=click.Path(dir_okay=False), default=None,
+@click.option("--out", "out_csv", type=click.Path(), default=None,
               metavar="CSV", help="Write the track (on --line, the line) as a track CSV that "
               "the other commands read.")
-@click.option("--force", is_flag=True, help="Replace an existing --out file.")
+@click.option("--force", is_flag=True, help="Replace an existing --map or --out file.")
 @json_option
 def track_command(track_file, step_m, closed, noise_m, map_png, line, track_width_m,
                   line_margin_m, car_width_m, car_file, out_csv, force, as_json):
@@ -139,57 +140,65 @@ def track_command(track_file, step_m, closed, noise_m, map_png, line, track_widt
     With --line min-curvature, build the minimum-curvature line inside the track width and
     describe (and --out: export) that line instead.
     """
-    from pathlib import Path
+    from contextlib import ExitStack
 
+    from lapbalance.cli.common import check_step, check_track_size
+    from lapbalance.outputs import output_file
     from lapbalance.track import MAX_NOISE_M, load_track
 
-    if not 0 < step_m <= 50:
-        raise InputError(f"= {step_m} must be between 0 and 50 m", "--step-m")
+    check_step(step_m)
     if noise_m is not None and not (math.isfinite(noise_m) and 0 <= noise_m <= MAX_NOISE_M):
         raise InputError(f"= {noise_m} must be between 0 and {MAX_NOISE_M:g} m", "--noise-m")
-    if out_csv and Path(out_csv).exists() and not force:
-        raise InputError("already exists; pass --force to replace it or choose another --out",
-                         out_csv)
     if car_width_m is not None and car_file:
         raise InputError("give --car or --car-width-m, not both", "--car-width-m")
-    tr = load_track(track_file, step_m=step_m, closed=closed, noise_m=noise_m)
-    ref = tr
-    ref_length = tr.length_m
-    if line != "centreline" or track_width_m is not None:
-        from lapbalance import line as _line
+    inputs = [track_file, *([car_file] if car_file else [])]
+    with ExitStack() as outs:
+        # take the output files first: an existing, unwritable or input file fails at once
+        if map_png:
+            outs.enter_context(output_file(map_png, force, "--map", command="track",
+                                           inputs=inputs, need_bytes=300_000))
+        if out_csv:
+            outs.enter_context(output_file(out_csv, force, "--out", command="track",
+                                           inputs=inputs))
+        tr = load_track(track_file, step_m=step_m, closed=closed, noise_m=noise_m)
+        check_track_size(tr, step_m)
+        ref = tr
+        ref_length = tr.length_m
+        if line != "centreline" or track_width_m is not None:
+            from lapbalance import line as _line
 
-        margin = _line.LINE_MARGIN_M if line_margin_m is None else line_margin_m
-        if car_file:
-            from lapbalance.car import load_car
+            margin = _line.LINE_MARGIN_M if line_margin_m is None else line_margin_m
+            if car_file:
+                from lapbalance.car import load_car
 
-            car_width_m = _line.car_width_m(load_car(car_file))
-        elif car_width_m is None:
-            car_width_m = DEFAULT_CAR_WIDTH_M
-        tr = _line.on_line(tr, line, car_width=car_width_m, margin_m=margin,
-                           width_m=track_width_m)
-    info = track_summary(tr)
-    if getattr(tr, "line", "centreline") != "centreline":
-        info["line"] = {"kind": tr.line, "reference_length_m": round(ref_length, 3),
-                        "car_width_m": tr.car_width_m, "margin_m": tr.margin_m,
-                        "offset_min_m": round(float(tr.line_offset_m.min()), 4),
-                        "offset_max_m": round(float(tr.line_offset_m.max()), 4),
-                        "solver": {k: (round(v, 6) if isinstance(v, float) else v)
-                                   for k, v in (tr.solver or {}).items()}}
-    if out_csv:
-        from lapbalance.line import track_csv_text
-        from lapbalance.outputs import write_text_atomic
+                car_width_m = _line.car_width_m(load_car(car_file))
+            elif car_width_m is None:
+                car_width_m = DEFAULT_CAR_WIDTH_M
+            tr = _line.on_line(tr, line, car_width=car_width_m, margin_m=margin,
+                               width_m=track_width_m)
+        info = track_summary(tr)
+        if getattr(tr, "line", "centreline") != "centreline":
+            info["line"] = {"kind": tr.line, "reference_length_m": round(ref_length, 3),
+                            "car_width_m": tr.car_width_m, "margin_m": tr.margin_m,
+                            "offset_min_m": round(float(tr.line_offset_m.min()), 4),
+                            "offset_max_m": round(float(tr.line_offset_m.max()), 4),
+                            "solver": {k: (round(v, 6) if isinstance(v, float) else v)
+                                       for k, v in (tr.solver or {}).items()}}
+        if out_csv:
+            from lapbalance.line import track_csv_text
+            from lapbalance.outputs import write_text_atomic
 
-        note = f"written by lapbalance track from {tr.source}"
-        if "line" in info:
-            note += (f"\n{tr.line} line for a car {tr.car_width_m:.2f} m wide, "
-                     f"{tr.margin_m:.2f} m from each edge")
-        write_text_atomic(out_csv, track_csv_text(tr, note))
-        info["out_csv"] = str(out_csv)
-    if map_png:
-        suffix = str(map_png).lower().rsplit(".", 1)[-1]
-        write_bytes_atomic(map_png, track_map_png(tr, suffix if suffix in ("svg", "pdf")
-                                                  else "png"))
-        info["map_png"] = str(map_png)
+            note = f"written by lapbalance track from {tr.source}"
+            if "line" in info:
+                note += (f"\n{tr.line} line for a car {tr.car_width_m:.2f} m wide, "
+                         f"{tr.margin_m:.2f} m from each edge")
+            write_text_atomic(out_csv, track_csv_text(tr, note))
+            info["out_csv"] = str(out_csv)
+        if map_png:
+            suffix = str(map_png).lower().rsplit(".", 1)[-1]
+            write_bytes_atomic(map_png, track_map_png(tr, suffix if suffix in ("svg", "pdf")
+                                                      else "png"))
+            info["map_png"] = str(map_png)
     if as_json:
         from lapbalance import provenance
 

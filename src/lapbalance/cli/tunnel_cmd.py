@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import math
 import re
-from pathlib import Path
 
 import click
 
@@ -44,6 +43,22 @@ def parse_height_band(text: str, option: str = "--cg-height-m"):
         raise InputError(f'"{text}" is not a height; write 0.45, 0.45±0.03, 0.45+-0.03 or '
                          "0.42:0.48 (metres)", option) from None
     return v, v, v
+
+
+def _length(v, option: str, lo: float, hi: float, text: str | None = None) -> None:
+    """Refuse a length [m] outside [lo, hi] (a value in mm is named as such)."""
+    if v is None:
+        return
+    shown = text if text is not None else f"{v:g}"
+    if not math.isfinite(v):
+        raise InputError(f"= {shown} is not a finite number; give metres", option)
+    if lo <= v <= hi or (lo >= 0.0 and v <= 0.0):  # zero/negative: the physics check says
+        return
+    if lo <= v / 1000.0 <= hi and abs(v) >= 10:
+        raise InputError(f"= {shown} looks like millimetres, but the option is in metres; "
+                         f"write {v / 1000.0:g}", option)
+    raise InputError(f"= {shown} m is outside {lo:g} to {hi:g} m; give the value in metres",
+                     option)
 
 
 def _pct(x):
@@ -109,7 +124,7 @@ def _print_reading(r: tunnel.CorrectedReading, measured_label: str, band=None):
               help="Moment reference point rearward of mid-wheelbase [m].")
 @click.option("--moment-ref-z-m", type=float, default=0.0, show_default=True,
               help="Moment reference point height above ground [m].")
-@click.option("--out", "out_path", type=click.Path(dir_okay=False),
+@click.option("--out", "out_path", type=click.Path(),
               help="Write the corrected table to this CSV file (table form).")
 @click.option("--force", is_flag=True,
               help="Replace the --out file (and its provenance sidecar) if it exists.")
@@ -132,6 +147,32 @@ def tunnel_command(readings, car_file, overrides, front_n, rear_n, drag_n, cg_te
     load: the front reads light by D·(h_cg - z)/L. Coefficients and CFD moments are
     ground-referenced (SAE J1594), i.e. z = 0.
     """
+    numbers = {"--front-n": front_n, "--rear-n": rear_n, "--drag-n": drag_n, "--cl": cl,
+               "--cd": cd, "--cpm": cpm, "--clf": clf, "--clr": clr,
+               "--frontal-area-m2": frontal_area_m2, "--speed-kph": speed_kph,
+               "--air-density": air_density, "--lift-n": lift_n,
+               "--pitch-moment-nm": pitch_moment_nm}
+    for name, v in numbers.items():
+        if v is not None and not math.isfinite(v):
+            raise InputError(f"= {v:g} is not a finite number; give a plain number", name)
+    for name in ("--front-n", "--rear-n", "--drag-n", "--lift-n"):
+        v = numbers[name]
+        if v is not None and abs(v) > 1e6:
+            raise InputError(f"= {v:g} N is beyond ±1e6 N (100 t); give the force in newtons "
+                             "(a car's aero loads are up to tens of kN)", name)
+    if pitch_moment_nm is not None and abs(pitch_moment_nm) > 1e7:
+        raise InputError(f"= {pitch_moment_nm:g} N·m is beyond ±1e7 N·m; give newton-metres",
+                         "--pitch-moment-nm")
+    for name in ("--cl", "--cd", "--cpm", "--clf", "--clr"):
+        v = numbers[name]
+        if v is not None and abs(v) > 20:
+            raise InputError(f"= {v:g} is beyond ±20; give the coefficient itself (C_L of a "
+                             "car is about -4 to 1), not in counts or percent", name)
+    _length(wheelbase_m, "--wheelbase-m", 0.5, 6.0)
+    _length(restraint_height_m, "--restraint-height-m", -0.5, 2.0)
+    _length(drag_height_m, "--drag-height-m", -0.5, 3.0)
+    _length(moment_ref_x_m, "--moment-ref-x-m", -10.0, 10.0)
+    _length(moment_ref_z_m, "--moment-ref-z-m", -5.0, 5.0)
     car = load_car(car_file, overrides) if car_file else None
     if overrides and car is None:
         raise click.UsageError("--set needs --car")
@@ -153,6 +194,8 @@ def tunnel_command(readings, car_file, overrides, front_n, rear_n, drag_n, cg_te
     # geometry ---------------------------------------------------------------------------
     if cg_text is not None:
         h, h_lo, h_hi = parse_height_band(cg_text)
+        for x in (h_lo, h_hi):
+            _length(x, "--cg-height-m", 0.0, 2.0, text=cg_text)
     elif car is not None:
         h = h_lo = h_hi = car.chassis.cg_height
     else:
@@ -182,6 +225,13 @@ def tunnel_command(readings, car_file, overrides, front_n, rear_n, drag_n, cg_te
             for name, v in (("--frontal-area-m2", frontal_area_m2), ("--speed-kph", speed_kph)):
                 if not v > 0:
                     raise InputError(f"= {v:g} must be > 0", name)
+            if frontal_area_m2 > 20.0:
+                raise InputError(f"= {frontal_area_m2:g} m² is more than 20 m²; give the "
+                                 "frontal area in m² (a car has about 1.5 to 3 m²)",
+                                 "--frontal-area-m2")
+            if speed_kph > 1000.0:
+                raise InputError(f"= {speed_kph:g} km/h is above 1000 km/h; give the air "
+                                 "speed in km/h", "--speed-kph")
             rho = air_density if air_density is not None else (
                 car.air.density if car is not None else isa_density(0.0))
             if not 0.3 <= rho <= 1.6:
@@ -235,19 +285,30 @@ def _table_form(readings, car, restraint_height_m, drag_height_m, air_density, o
                 force, as_json):
     if car is None:
         raise click.UsageError("the table form needs --car CAR.toml (CG height, wheelbase)")
-    if out_path and not force:
-        from lapbalance.provenance import sidecar_for
+    from contextlib import ExitStack
 
-        if Path(out_path).exists() or sidecar_for(out_path).exists():
-            raise InputError(f"{out_path} already exists; pass --force to replace it or "
-                             "choose another --out", "--out")
+    from lapbalance.outputs import output_file
+    from lapbalance.provenance import sidecar_for
+
+    with ExitStack() as outs:
+        if out_path:  # the CSV and its provenance sidecar, taken before any work
+            for p in (out_path, sidecar_for(out_path)):
+                outs.enter_context(output_file(p, force, "--out", command="tunnel",
+                                               inputs=[readings, car.source]))
+        _table_run(readings, car, restraint_height_m, drag_height_m, air_density, out_path,
+                   as_json)
+
+
+def _table_run(readings, car, restraint_height_m, drag_height_m, air_density, out_path,
+               as_json):
     tab = tunnel.read_readings(readings)
     dh = drag_height_m if drag_height_m is not None else car.aero.drag_height
     rho = air_density if air_density is not None else car.air.density
     if not 0.3 <= rho <= 1.6:
         raise InputError(f"= {rho:g} kg/m³ is not physical (0.3 to 1.6)", "--air-density")
     cols = tunnel.correct_table(tab, car.chassis.cg_height, car.chassis.wheelbase,
-                                restraint_height_m, rho, dh)
+                                restraint_height_m, rho, dh,
+                                expected_drag_area=car.aero.drag_area or None)
     from lapbalance import provenance
 
     record = provenance.build([car], files=[("tunnel-readings", readings)],
@@ -256,7 +317,7 @@ def _table_form(readings, car, restraint_height_m, drag_height_m, air_density, o
     if out_path:
         import json
 
-        write_text_atomic(out_path, columns_csv_text(cols))
+        write_text_atomic(out_path, columns_csv_text(cols, nan=""))
         side = provenance.sidecar_for(out_path)
         write_text_atomic(side, json.dumps(
             {**record, "outputs": [provenance.file_record(out_path, "output")]},
