@@ -294,7 +294,8 @@ def test_cli_writes_folder_and_a_variant_every_command_reads(tmp_path):
                                "--plots", "--set", "chassis.mass_kg=1310"])
     assert res.exit_code == 0, res.output
     assert "aligned by positions" in res.output and "grip" in res.output
-    assert sorted(p.name for p in out.iterdir()) == ["correlation.png", "provenance.json",
+    assert sorted(p.name for p in out.iterdir()) == [".lapbalance-manifest.json",
+                                                      "correlation.png", "provenance.json",
                                                       "segments.csv",
                                                       "summary.json", "trace.csv"]
     text = variant.read_text(encoding="utf-8")

@@ -25,6 +25,9 @@ from lapbalance import outputs
 from lapbalance.cli import main
 
 ROOT = Path(__file__).resolve().parents[1]
+#: What `lap --out` writes for a demo car with a [transient] section (sorted).
+LAP_FILES = ["channels.csv", "corners.csv", "liftoff_response.csv", "liftoff_runs.csv",
+             "provenance.json", "summary.json"]
 CAR = ROOT / "examples" / "gt_coupe.toml"
 VARIANT = ROOT / "examples" / "gt_coupe_high_wing.toml"
 TRACK = ROOT / "tracks" / "oranby_bowl.csv"
@@ -92,8 +95,7 @@ def test_force_replaces_only_the_files_the_manifest_lists(tmp_path):
     assert "already holds results; pass --force" in _one_line(res)
     res = CliRunner().invoke(main, _lap(out, "--force"))  # without --plots this time
     assert res.exit_code == 0, res.output
-    assert sorted(p.name for p in out.iterdir()) == [outputs.MANIFEST, "channels.csv",
-                                                      "corners.csv", "summary.json"]
+    assert sorted(p.name for p in out.iterdir()) == [outputs.MANIFEST, *LAP_FILES]
     (out / "extra.txt").write_text("mine")  # the user adds a file: now it is theirs too
     msg = _one_line(CliRunner().invoke(main, _lap(out, "--force")))
     assert "holds 1 file lapbalance did not write (extra.txt)" in msg
@@ -104,8 +106,7 @@ def test_out_dot_works_and_leaves_no_hidden_staging(tmp_path, monkeypatch):
     monkeypatch.chdir(tmp_path)
     res = CliRunner().invoke(main, _lap("."))
     assert res.exit_code == 0, res.output
-    assert sorted(p.name for p in tmp_path.iterdir()) == [outputs.MANIFEST, "channels.csv",
-                                                          "corners.csv", "summary.json"]
+    assert sorted(p.name for p in tmp_path.iterdir()) == [outputs.MANIFEST, *LAP_FILES]
     (tmp_path / "car.toml").write_text("name = 'x'\n")
     assert "holds 1 file lapbalance did not write (car.toml)" in _one_line(
         CliRunner().invoke(main, _lap(".", "--force")))
@@ -155,8 +156,7 @@ def test_two_concurrent_real_runs_give_one_result_and_one_refusal(tmp_path):
     assert "\n" not in err and "Traceback" not in err, err
     assert re.search(r"is being written by another lapbalance run|already holds results; "
                      r"pass --force", err), err
-    assert sorted(p.name for p in out.iterdir()) == [outputs.MANIFEST, "channels.csv",
-                                                      "corners.csv", "summary.json"]
+    assert sorted(p.name for p in out.iterdir()) == [outputs.MANIFEST, *LAP_FILES]
     assert json.loads((out / "summary.json").read_text())["lap_time_s"] > 0
     assert _hidden(tmp_path) == []
 
@@ -362,8 +362,7 @@ def test_a_damaged_manifest_never_reaches_outside_the_folder(tmp_path):
     res = CliRunner().invoke(main, _lap(out, "--force"))
     assert res.exit_code == 0, res.output
     assert victim.read_text() == "mine"
-    assert outputs.read_manifest(out)["files"] == ["channels.csv", "corners.csv",
-                                                   "summary.json"]
+    assert outputs.read_manifest(out)["files"] == LAP_FILES
 
 
 def test_sigterm_during_a_run_cleans_up_like_ctrl_c(tmp_path):
@@ -415,8 +414,7 @@ def test_temporaries_of_a_killed_write_do_not_make_the_folder_foreign(tmp_path):
 def test_a_result_file_the_user_edited_is_not_replaced(tmp_path):
     out = tmp_path / "res"
     assert CliRunner().invoke(main, _lap(out)).exit_code == 0
-    assert set(outputs.read_manifest(out)["sha256"]) == {"channels.csv", "corners.csv",
-                                                          "summary.json"}
+    assert set(outputs.read_manifest(out)["sha256"]) == set(LAP_FILES)
     edited = (out / "summary.json").read_text() + "\n// my notes on this run\n"
     (out / "summary.json").write_text(edited)
     msg = _one_line(CliRunner().invoke(main, _lap(out, "--force")))

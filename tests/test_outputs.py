@@ -229,7 +229,8 @@ def test_lap_force_replaces_the_folder(tmp_path):
     assert res.exit_code == 0, res.output
     assert sorted(p.name for p in out.iterdir()) == [outputs.MANIFEST, "channels.csv",
                                                       "corners.csv", "liftoff_response.csv",
-                                                      "provenance.json", "summary.json"]
+                                                      "liftoff_runs.csv", "provenance.json",
+                                                      "summary.json"]
     assert json.loads((out / "summary.json").read_text())["lap_time_s"] > 0
     assert _leftovers(tmp_path) == []
 

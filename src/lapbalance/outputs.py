@@ -592,7 +592,7 @@ class OutputFolder:
         _clear_legacy_siblings(self.path)
 
     def _write_manifest(self, files: Iterable[str]) -> None:
-        from lapbalance import __version__
+        from lapbalance.version import __version__
 
         files = sorted(set(files))
         sums = {f: self.hashes[f] for f in files if self.hashes.get(f)}

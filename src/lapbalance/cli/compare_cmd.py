@@ -428,14 +428,15 @@ def compare_command(base_file, variant_files, track_files, set_variants, out_dir
 class _Progress:
     """A click progress bar on stderr, opened at the first report."""
 
-    def __init__(self):
+    def __init__(self, label: str = "sweep"):
         self.bar = None
+        self.label = label
 
     def __call__(self, done, total, row):
         if not sys.stderr.isatty():  # no bar in logs and pipes (keeps errors one line)
             return
         if self.bar is None:
-            self.bar = click.progressbar(length=total, label="sweep", file=sys.stderr,
+            self.bar = click.progressbar(length=total, label=self.label, file=sys.stderr,
                                          show_pos=True)
             self.bar.__enter__()
         self.bar.update(done - self.bar.pos)
@@ -533,9 +534,6 @@ def sweep_command(car_file, track_file, vary_specs, lhs_n, seed, workers, cluste
     opts = {"start_speed_kph": start_speed_kph} if start_speed_kph is not None else {}
     if workers is None:
         workers = 1 if cluster else auto_workers(len(sweep_points(vary, method, lhs_n, seed)))
-        if not as_json:
-            click.echo(f"sweep: {workers} worker process{'es' if workers > 1 else ''} "
-                       "(--workers to change)", err=True)
     prepare_solver()
     from lapbalance.lap import LIFTOFF_AY_THRESHOLD
 
@@ -544,7 +542,10 @@ def sweep_command(car_file, track_file, vary_specs, lhs_n, seed, workers, cluste
                               settings={"vary": vary, "method": method, "lhs_points": lhs_n,
                                         "seed": seed, "workers": workers,
                                         "cluster": cluster})
-    bar = _Progress()
+    # the worker count is shown on the progress bar, once the output folder is taken (a
+    # refused folder gets its one line alone)
+    bar = _Progress(f"sweep ({workers} worker process{'es' if workers > 1 else ''}; "
+                    "--workers to change)")
     stats: dict = {}
     try:
         rows = sweep(car, track, vary, method=method, n=lhs_n, workers=workers,
