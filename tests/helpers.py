@@ -82,3 +82,24 @@ def make_car(**sections):
             else:
                 target[k] = v
     return car_from_dict(raw, "test car")
+
+
+def wavy_circuit(length=5000.0, ds=1.0, seed=7, r_min=15.0, name=None):
+    """Closed circuit whose curvature varies continuously along the whole lap.
+
+    Curvature [1/m] is a deterministic sum of sines of distance with whole numbers of periods
+    per lap (each integrates to zero, so the heading turns exactly 2π) plus the closing turn
+    2π/length, scaled so the tightest radius is ``r_min`` [m]; the radius of a bend's apex then
+    lies between ``r_min`` and a few hundred metres, with sign changes (esses) between. A
+    benchmark and test circuit: no step has the same curvature as its neighbour.
+    """
+    n = int(round(length / ds))
+    s = np.arange(n) * ds
+    rng = np.random.default_rng(seed)
+    k = np.zeros(n)
+    for j in range(3, 30):
+        k += rng.normal() / j * np.sin(2 * math.pi * j * s / length + rng.uniform(0, 2 * math.pi))
+    base = 2 * math.pi / length
+    k *= (1.0 / r_min - base) / np.max(np.abs(k))
+    return analytic_track(k + base, ds=ds, closed=True,
+                          name=name or f"wavy {length / 1000:g} km (seed {seed})")
