@@ -793,7 +793,8 @@ def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, t
     hint = math.nan
     a_prev = math.nan
     for i in range(n - 2, -1, -1):
-        vnext = vb[i + 1]
+        # braking into the speed the car has at the next step (the slower of the traces)
+        vnext = vb[i + 1] if vb[i + 1] < vf[i + 1] else vf[i + 1]
         if vnext >= vlim[i] or vnext >= vf[i]:
             # not braking into step i+1 from here: the limit (or the forward trace) rules
             vb[i] = vlim[i]
@@ -828,11 +829,36 @@ def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, t
             vp = vnew
             if done or vp >= vlim[i]:
                 break
-        vb[i] = vp if vp < vlim[i] else vlim[i]
+        vc = vp if vp < vlim[i] else vlim[i]
+        # the speed must be one the car can brake from to vnext with the force applied at
+        # that speed (the final pass applies it): else the fastest such speed (bisection)
+        if not _brakes_from_full(vc, vnext, ds, kappa[i], grade[i], bank[i], p, mx, my, mt,
+                                 out):
+            lo = vnext
+            hi = vc
+            for _ in range(40):
+                mid = 0.5 * (lo + hi)
+                if _brakes_from_full(mid, vnext, ds, kappa[i], grade[i], bank[i], p, mx, my,
+                                     mt, out):
+                    lo = mid
+                else:
+                    hi = mid
+            vc = lo
+            a_prev = math.nan
+            hint = math.nan
+        vb[i] = vc
     v = np.empty(n)
     for i in range(n):
         v[i] = vf[i] if vf[i] < vb[i] else vb[i]
     return v
+
+
+@njit(cache=True)
+def _brakes_from_full(v, vnext, ds, kappa, grade, bank, p, mx, my, mt, out):
+    """True when the step from v [m/s] to vnext over ds [m] is feasible."""
+    a_req = (vnext * vnext - v * v) / (2.0 * ds)
+    control_for_ax(v, kappa, grade, bank, a_req, p, mx, my, mt, out)
+    return out[O_STATUS] == 0.0 and max_usage(out) <= 1.0
 
 
 NCH = 40  # channels written by final_pass per step
