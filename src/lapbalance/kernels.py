@@ -774,6 +774,62 @@ def _bracket_up(lo, glo, step, vcap, kappa, grade, bank, p, mx, my, mt, out):
 
 
 @njit(cache=True)
+def _window_search(kind, x0, slope, v, ds, kappa, grade, bank, p, mx, my, mt, out, xtol,
+                   x_lo, x_hi, x_stop):
+    """Secant search from a neighbour's prediction ``x0`` for a feasible point on the
+    boundary: one whose usage excess g lies in (-2e-5, 0] (the acceptance of
+    :func:`_illinois`), aiming at -1e-5 with the slope dg/dx ``slope`` known from the
+    neighbouring step and corrected by each probe. x stays within [x_lo, x_hi]; at
+    ``x_stop`` (kind 1: the engine force) a feasible g is accepted. Kinds as
+    :func:`_illinois`.
+
+    Returns (x, slope, ok); ok False after 4 probes without success or on an unloaded axle
+    (the caller then runs its bracketing search).
+    """
+    x = x0
+    have_ok = False
+    have_bad = False
+    xo = 0.0
+    xb = 0.0
+    xp = math.nan
+    gp = math.nan
+    for _ in range(4):
+        g = _g_kind(kind, x, v, ds, kappa, grade, bank, p, mx, my, mt, out)
+        if g >= 0.5 * BIG:
+            return x, slope, False
+        if g <= 0.0:
+            if g > -2e-5 or x == x_stop:
+                return x, slope, True
+            have_ok = True
+            xo = x
+        else:
+            have_bad = True
+            xb = x
+        if have_ok and have_bad and abs(xb - xo) <= xtol:
+            return xo, slope, True
+        if not math.isnan(xp) and x != xp:
+            s = (g - gp) / (x - xp)
+            if s * slope > 0.0:
+                slope = s
+        xp = x
+        gp = g
+        if kind == 0 and x > 0.0:
+            # usage grows about as a power of speed (v² without aero): step in that model
+            e = slope * x / (1.0 + g)
+            xn = x * ((1.0 - 1e-5) / (1.0 + g)) ** (1.0 / e) if e > 0.1 else \
+                x - (g + 1e-5) / slope
+        else:
+            xn = x - (g + 1e-5) / slope
+        if have_ok and have_bad and (xn - xo) * (xn - xb) >= 0.0:
+            xn = 0.5 * (xo + xb)
+        xn = x_lo if xn < x_lo else (x_hi if xn > x_hi else xn)
+        if xn == x:
+            return x, slope, False
+        x = xn
+    return x, slope, False
+
+
+@njit(cache=True)
 def corner_limit(kappa, grade, bank, guess, lo_known, vcap, p, mx, my, mt, out, tol):
     """Highest steady speed [m/s] below the first infeasible one (both axles u <= 1).
 
@@ -873,6 +929,11 @@ def corner_limits(kappa, grade, bank, vcap, p, mx, my, mt, tol, nchunks):
         prev_k = 0.0
         prev_g = math.nan
         prev_b = math.nan
+        slope = math.nan  # d(usage)/dv at the neighbour's limit [s/m]
+        k_band = 0.0  # curvature of the last check for an infeasible band below the limit
+        since = 0
+        v2 = math.nan  # the limits two and three steps back (smooth curvature: extrapolate)
+        v3 = math.nan
         start = c * size
         stop = min(n, start + size)
         for i in range(start, stop):
@@ -891,8 +952,39 @@ def corner_limits(kappa, grade, bank, vcap, p, mx, my, mt, tol, nchunks):
                     r = math.sqrt(abs(prev_k) / abs(k))
                     r = 0.8 if r < 0.8 else (1.25 if r > 1.25 else r)
                     guess = prev_v * r
-            vl = corner_limit(k, grade[i], bank[i], guess, lo_known, vcap, p, mx, my, mt, out,
-                              tol)
+            vl = -1.0
+            since += 1
+            if same and prev_v < vcap and k != 0.0 and (k * prev_k > 0.0 or bank[i] == 0.0) \
+                    and prev_k != 0.0 and \
+                    not math.isnan(slope):
+                # the neighbour's limit, scaled, with its slope: a secant step or two; below
+                # a rising curvature, look for an infeasible band now and then
+                band_ok = True
+                if lo_known == 0.0 and (abs(k) > 1.05 * k_band or since > 32):
+                    band_ok = _g_speed(0.5 * guess, kappa[i], grade[i], bank[i], p, mx, my,
+                                       mt, out) <= 0.0
+                    k_band = abs(k)
+                    since = 0
+                if band_ok:
+                    if not math.isnan(v3):
+                        ge = 3.0 * prev_v - 3.0 * v2 + v3
+                        if abs(ge - guess) < 0.05 * guess:
+                            guess = ge
+                    x, s2, ok = _window_search(0, guess, slope, 0.0, 0.0, k, grade[i], bank[i],
+                                               p, mx, my, mt, out, tol, V_MIN, vcap, -1.0)
+                    if ok and x < vcap and x >= lo_known:
+                        vl = x
+                        slope = s2
+            if vl < 0.0:
+                vl = corner_limit(k, grade[i], bank[i], guess, lo_known, vcap, p, mx, my, mt,
+                                  out, tol)
+                slope = 1.5 / vl if vl > V_MIN else math.nan
+                k_band = abs(k)
+                since = 0
+                v2 = math.nan
+                prev_v = math.nan
+            v3 = v2
+            v2 = prev_v
             vlim[i] = vl
             prev_v = vl
             prev_k = k
@@ -1023,6 +1115,7 @@ def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, t
     hint = math.nan  # the last drive search's result [N] and the one before it
     hint2 = math.nan
     last = -10  # step of the last search
+    slope = math.nan  # d(usage)/dF at the last search's result [1/N]
     for i in range(n - 1):
         vi = vf[i]
         vt = vlim[i + 1]
@@ -1041,7 +1134,13 @@ def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, t
             d = d if d > 4.0 * ftol else 4.0 * ftol
             fs = _resistance_nomap(vi, kappa[i], grade[i], bank[i], p)
             F = math.nan
-            if guess < feng and fs < feng:
+            if guess < feng and fs < feng and not math.isnan(slope):
+                x, s2, ok = _window_search(1, guess, slope, vi, 0.0, kappa[i], grade[i],
+                                           bank[i], p, mx, my, mt, out, ftol, fs, feng, feng)
+                if ok:
+                    F = x
+                    slope = s2
+            if math.isnan(F) and guess < feng and fs < feng:
                 F = _search_kind(1, vi, 0.0, kappa[i], grade[i], bank[i], fs, math.nan, guess,
                                  d, d, 1.0, feng, p, mx, my, mt, out, ftol)
             if math.isnan(F):
@@ -1052,6 +1151,8 @@ def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, t
             F = _max_accel_feng(vi, kappa[i], grade[i], bank[i], feng, p, mx, my, mt, out,
                                 ftol, math.nan, 0.005 * m * G, 0.02 * m * G)
             hint2 = math.nan
+        if math.isnan(slope):
+            slope = 1.0 / (p[P_MUXR] * (m * G + abs(out[O_DOWNF])))  # about 1 / grip
         hint = F
         last = i
         ax = ax_of_control(vi, kappa[i], grade[i], bank[i], F, p, mx, my, mt, out)
@@ -1063,6 +1164,7 @@ def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, t
     hint = math.nan
     hint2 = math.nan
     last = n + 10
+    slope = math.nan
     for i in range(n - 2, -1, -1):
         # braking into the speed the car has at the next step (the slower of the traces)
         vnext = vb[i + 1] if vb[i + 1] < vf[i + 1] else vf[i + 1]
@@ -1091,8 +1193,17 @@ def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, t
         f_ok = _resistance_nomap(vnext, kappa[i], grade[i], bank[i], p)  # about steady
         qc = p[P_RHO] * cap * cap
         f_stop = -5.0 * m * G - 5.0 * qc * (abs(p[P_CLAF]) + abs(p[P_CLAR]) + 1.0)
-        F = _search_kind(2, vnext, ds, kappa[i], grade[i], bank[i], f_ok, math.nan, guess,
-                         back, step, -1.0, f_stop, p, mx, my, mt, out, ftol)
+        F = math.nan
+        if not math.isnan(guess) and not math.isnan(slope) and f_stop < guess < f_ok:
+            x, s2, ok = _window_search(2, guess, slope, vnext, ds, kappa[i], grade[i], bank[i],
+                                       p, mx, my, mt, out, ftol, f_stop, f_ok, f_stop)
+            if ok:
+                F = x
+                slope = s2
+        if math.isnan(F):
+            F = _search_kind(2, vnext, ds, kappa[i], grade[i], bank[i], f_ok, math.nan, guess,
+                             back, step, -1.0, f_stop, p, mx, my, mt, out, ftol)
+            slope = -1.0 / (p[P_MUXF] * (m * G + abs(out[O_DOWNF])))
         if not math.isnan(F):
             hint2 = hint if last == i + 1 else math.nan
             hint = F

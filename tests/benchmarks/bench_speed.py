@@ -11,7 +11,7 @@ Rows (``--only`` takes a comma-separated subset of the keys in brackets):
   segments track of ``bench_lap.py``: median of repeated ``simulate_lap`` calls (whole call,
   lift-off assessment included) and of the three kernels alone, and their ratio.
 * [evals] state evaluations per step, counted: the kernels run as plain Python
-  (``NUMBA_DISABLE_JIT=1``, in a subprocess) on a 1 km circuit of the same kind with the
+  (``NUMBA_DISABLE_JIT=1``, in a subprocess) on the same 5 km circuit with the
   load-and-usage model wrapped by counters (the full ``_state_once`` and, where it exists,
   the lean ``_usage_once``), per solver phase (corner limits, speed passes, final pass with
   its two lift-off evaluations where the check applies); aero-map lookups counted too.
@@ -143,7 +143,7 @@ for name in ("_corner_limits_kernel", "_speed_passes_kernel", "_final_pass_kerne
 out = {}
 for car in sys.argv[1:]:
     counts.clear()
-    tr = wavy_circuit(1000.0, 1.0, seed=11)
+    tr = wavy_circuit(5000.0, 1.0, seed=7)
     simulate_lap(load_car("examples/" + car), tr, assess_liftoff=False)
     out[car] = dict(counts, steps=len(tr.distance_m))
 print(json.dumps(out))
