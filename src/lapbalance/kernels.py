@@ -924,73 +924,91 @@ def corner_limits(kappa, grade, bank, vcap, p, mx, my, mt, tol, nchunks):
     vlim = np.empty(n)
     size = (n + nchunks - 1) // nchunks
     for c in prange(nchunks):
-        out = np.full(NOUT, np.nan)
-        prev_v = 0.0
-        prev_k = 0.0
-        prev_g = math.nan
-        prev_b = math.nan
-        slope = math.nan  # d(usage)/dv at the neighbour's limit [s/m]
-        k_band = 0.0  # curvature of the last check for an infeasible band below the limit
-        since = 0
-        v2 = math.nan  # the limits two and three steps back (smooth curvature: extrapolate)
-        v3 = math.nan
-        start = c * size
-        stop = min(n, start + size)
-        for i in range(start, stop):
-            k = kappa[i]
-            same = grade[i] == prev_g and bank[i] == prev_b and prev_v > 0.0
-            lo_known = 0.0
-            guess = prev_v
-            if same:
-                if abs(k) <= abs(prev_k):
-                    if prev_v >= vcap:
-                        vlim[i] = vcap
-                        prev_k = k
-                        continue
-                    lo_known = prev_v
-                if k != 0.0 and prev_k != 0.0:
-                    r = math.sqrt(abs(prev_k) / abs(k))
-                    r = 0.8 if r < 0.8 else (1.25 if r > 1.25 else r)
-                    guess = prev_v * r
-            vl = -1.0
-            since += 1
-            if same and prev_v < vcap and k != 0.0 and (k * prev_k > 0.0 or bank[i] == 0.0) \
-                    and prev_k != 0.0 and \
-                    not math.isnan(slope):
-                # the neighbour's limit, scaled, with its slope: a secant step or two; below
-                # a rising curvature, look for an infeasible band now and then
-                band_ok = True
-                if lo_known == 0.0 and (abs(k) > 1.05 * k_band or since > 32):
-                    band_ok = _g_speed(0.5 * guess, kappa[i], grade[i], bank[i], p, mx, my,
-                                       mt, out) <= 0.0
-                    k_band = abs(k)
-                    since = 0
-                if band_ok:
-                    if not math.isnan(v3):
-                        ge = 3.0 * prev_v - 3.0 * v2 + v3
-                        if abs(ge - guess) < 0.05 * guess:
-                            guess = ge
-                    x, s2, ok = _window_search(0, guess, slope, 0.0, 0.0, k, grade[i], bank[i],
-                                               p, mx, my, mt, out, tol, V_MIN, vcap, -1.0)
-                    if ok and x < vcap and x >= lo_known:
-                        vl = x
-                        slope = s2
-            if vl < 0.0:
-                vl = corner_limit(k, grade[i], bank[i], guess, lo_known, vcap, p, mx, my, mt,
-                                  out, tol)
-                slope = 1.5 / vl if vl > V_MIN else math.nan
+        _corner_limits_chunk(kappa, grade, bank, vcap, p, mx, my, mt, tol, c * size,
+                             min(n, (c + 1) * size), vlim)
+    return vlim
+
+
+@njit(cache=True)
+def corner_limits_serial(kappa, grade, bank, vcap, p, mx, my, mt, tol, nchunks):
+    """:func:`corner_limits` in one thread (the same chunks, so the same result); compiles
+    much faster than the parallel kernel and is what a single lap on a small machine uses."""
+    n = kappa.shape[0]
+    vlim = np.empty(n)
+    size = (n + nchunks - 1) // nchunks
+    for c in range(nchunks):
+        _corner_limits_chunk(kappa, grade, bank, vcap, p, mx, my, mt, tol, c * size,
+                             min(n, (c + 1) * size), vlim)
+    return vlim
+
+
+@njit(cache=True)
+def _corner_limits_chunk(kappa, grade, bank, vcap, p, mx, my, mt, tol, start, stop, vlim):
+    """Corner limits of steps start..stop-1 into ``vlim``, each warm-started from the last."""
+    out = np.full(NOUT, np.nan)
+    prev_v = 0.0
+    prev_k = 0.0
+    prev_g = math.nan
+    prev_b = math.nan
+    slope = math.nan  # d(usage)/dv at the neighbour's limit [s/m]
+    k_band = 0.0  # curvature of the last check for an infeasible band below the limit
+    since = 0
+    v2 = math.nan  # the limits two and three steps back (smooth curvature: extrapolate)
+    v3 = math.nan
+    for i in range(start, stop):
+        k = kappa[i]
+        same = grade[i] == prev_g and bank[i] == prev_b and prev_v > 0.0
+        lo_known = 0.0
+        guess = prev_v
+        if same:
+            if abs(k) <= abs(prev_k):
+                if prev_v >= vcap:
+                    vlim[i] = vcap
+                    prev_k = k
+                    continue
+                lo_known = prev_v
+            if k != 0.0 and prev_k != 0.0:
+                r = math.sqrt(abs(prev_k) / abs(k))
+                r = 0.8 if r < 0.8 else (1.25 if r > 1.25 else r)
+                guess = prev_v * r
+        vl = -1.0
+        since += 1
+        if same and prev_v < vcap and k != 0.0 and (k * prev_k > 0.0 or bank[i] == 0.0) \
+                and prev_k != 0.0 and \
+                not math.isnan(slope):
+            # the neighbour's limit, scaled, with its slope: a secant step or two; below
+            # a rising curvature, look for an infeasible band now and then
+            band_ok = True
+            if lo_known == 0.0 and (abs(k) > 1.05 * k_band or since > 32):
+                band_ok = _g_speed(0.5 * guess, kappa[i], grade[i], bank[i], p, mx, my,
+                                   mt, out) <= 0.0
                 k_band = abs(k)
                 since = 0
-                v2 = math.nan
-                prev_v = math.nan
-            v3 = v2
-            v2 = prev_v
-            vlim[i] = vl
-            prev_v = vl
-            prev_k = k
-            prev_g = grade[i]
-            prev_b = bank[i]
-    return vlim
+            if band_ok:
+                if not math.isnan(v3):
+                    ge = 3.0 * prev_v - 3.0 * v2 + v3
+                    if abs(ge - guess) < 0.05 * guess:
+                        guess = ge
+                x, s2, ok = _window_search(0, guess, slope, 0.0, 0.0, k, grade[i], bank[i],
+                                           p, mx, my, mt, out, tol, V_MIN, vcap, -1.0)
+                if ok and x < vcap and x >= lo_known:
+                    vl = x
+                    slope = s2
+        if vl < 0.0:
+            vl = corner_limit(k, grade[i], bank[i], guess, lo_known, vcap, p, mx, my, mt,
+                              out, tol)
+            slope = 1.5 / vl if vl > V_MIN else math.nan
+            k_band = abs(k)
+            since = 0
+            v2 = math.nan
+            prev_v = math.nan
+        v3 = v2
+        v2 = prev_v
+        vlim[i] = vl
+        prev_v = vl
+        prev_k = k
+        prev_g = grade[i]
+        prev_b = bank[i]
 
 
 @njit(cache=True)
@@ -1268,6 +1286,25 @@ def final_pass(v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm, tnm
     for ch in prange(nchunks):
         out = np.full(NOUT, np.nan)
         tmp = np.full(NOUT, np.nan)
+        for i in range(ch * size, min(n, (ch + 1) * size)):
+            _final_step(i, v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm, tnm,
+                        mx, my, mt, ftol, ay_liftoff, res, out, tmp)
+    return res
+
+
+@njit(cache=True)
+def final_pass_serial(v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm, tnm, mx,
+                      my, mt, ftol, ay_liftoff):
+    """:func:`final_pass` in one thread (same result)."""
+    n = v.shape[0]
+    res = np.zeros((n, NOUT + NCH))
+    out = np.full(NOUT, np.nan)
+    tmp = np.full(NOUT, np.nan)
+    nchunks = 8 if n > 400 else 1
+    size = (n + nchunks - 1) // nchunks
+    for ch in range(nchunks):
+        out[:] = math.nan
+        tmp[:] = math.nan
         for i in range(ch * size, min(n, (ch + 1) * size)):
             _final_step(i, v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm, tnm,
                         mx, my, mt, ftol, ay_liftoff, res, out, tmp)

@@ -10,6 +10,7 @@ lap closes on itself. Each step's a_x comes from the force balance applied there
 from __future__ import annotations
 
 import math
+import os
 import warnings
 from dataclasses import dataclass, field
 from typing import Any
@@ -38,6 +39,13 @@ LIMIT_NAMES = {
 #: Default lateral-acceleration threshold for the lift-off check [m/s²]: ISO 9816 starts its
 #: power-off-in-a-turn runs from a steady turn at about 4 m/s² (ISO 9816:2018).
 LIFTOFF_AY_THRESHOLD = 4.0
+
+#: Fewest steps [-] and cores [-] for which a single lap runs its parallel kernels on several
+#: numba threads; below either, one thread (and the serial kernels, which also compile much
+#: faster) is quicker: a lap of a few thousand steps takes milliseconds, less than waking
+#: and joining threads costs on a busy machine.
+PARALLEL_MIN_STEPS = 50_000
+PARALLEL_MIN_CORES = 4
 
 #: Speed tolerance of the corner-limit search [m/s] and force tolerance of the
 #: longitudinal searches [N] (docs/method.md, the solver: stop at a tolerance that matters).
@@ -246,6 +254,25 @@ def car_parameters(car: Car) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.nda
     return p, gears, trpm, tnm, mx, my, mt
 
 
+def solver_threads(n_steps: int) -> int:
+    """Numba threads a lap of ``n_steps`` steps uses: 1 unless it is long
+    (:data:`PARALLEL_MIN_STEPS`) and the machine has :data:`PARALLEL_MIN_CORES` cores; then the
+    numba thread count, which sweep workers set to 1 (so N workers use N cores)."""
+    cores = os.cpu_count() or 1
+    if n_steps < PARALLEL_MIN_STEPS or cores < PARALLEL_MIN_CORES:
+        return 1
+    import numba
+
+    return min(numba.get_num_threads(), cores)
+
+
+def _kernels(n_steps: int):
+    """(corner limits, final pass) kernels for a lap of ``n_steps``: serial or parallel."""
+    if solver_threads(n_steps) == 1:
+        return _k.corner_limits_serial, _k.final_pass_serial
+    return _corner_limits_kernel, _final_pass_kernel
+
+
 def speed_cap(car: Car) -> float:
     """Highest speed the car can reach [m/s]: the rev limiter in top gear."""
     return car.powertrain.top_speed_rev_limited()
@@ -298,7 +325,8 @@ def simulate_lap(car: Car, track, *, start_speed_kph: float | None = None,
             raise InputError(f"track {name} has non-finite values", track.source)
     vcap = speed_cap(car)
     nchunks = 8 if n > 400 else 1
-    vlim = _corner_limits_kernel(kappa, grade, bank, vcap, p, mx, my, mt, SPEED_TOL, nchunks)
+    corner_limits_kernel, final_pass_kernel = _kernels(n)
+    vlim = corner_limits_kernel(kappa, grade, bank, vcap, p, mx, my, mt, SPEED_TOL, nchunks)
     bad = np.flatnonzero(vlim <= 0.0)
     if bad.size:
         i = int(bad[0])
@@ -326,8 +354,8 @@ def simulate_lap(car: Car, track, *, start_speed_kph: float | None = None,
         tail = float(v[0])
     else:
         tail = closed_tail_speed
-    res = _final_pass_kernel(v, kappa, grade, bank, ds, tail, vcap, p, gears, trpm, tnm, mx,
-                             my, mt, FORCE_TOL, liftoff_ay_threshold)
+    res = final_pass_kernel(v, kappa, grade, bank, ds, tail, vcap, p, gears, trpm, tnm, mx,
+                            my, mt, FORCE_TOL, liftoff_ay_threshold)
     vnext = np.append(v[1:], v[0] if track.closed else v[-1])
     vsum = v + vnext
     if np.any(vsum[: n if track.closed else n - 1] <= 0.0):
@@ -521,7 +549,7 @@ def steady_state(car: Car, speed: float, curvature: float = 0.0, grade: float = 
         control force [N] and every state quantity (keys as the ``O_*`` names, lower case).
     """
     p, gears, trpm, tnm, mx, my, mt = car_parameters(car)
-    out = np.empty(_k.NOUT)
+    out = np.full(_k.NOUT, np.nan)
     F = _k.control_for_ax(speed, curvature, grade, bank, ax, p, mx, my, mt, out)
     d = _state_dict(out)
     d["control_n"] = float(F)
@@ -552,7 +580,7 @@ def limits_at(car: Car, speed: float, curvature: float = 0.0, grade: float = 0.0
         (steady corner-speed limit at this curvature) [m/s].
     """
     p, gears, trpm, tnm, mx, my, mt = car_parameters(car)
-    out = np.empty(_k.NOUT)
+    out = np.full(_k.NOUT, np.nan)
     fa = _k.max_accel_control(speed, curvature, grade, bank, p, gears, trpm, tnm, mx, my, mt,
                               out, FORCE_TOL)
     _k.state_control(speed, curvature, grade, bank, fa, p, mx, my, mt, out)
@@ -585,7 +613,7 @@ def evaluate_forces(car: Car, speed: float, curvature: float = 0.0, grade: float
         Every state quantity (keys as the ``O_*`` names in lower case, SI units).
     """
     p, gears, trpm, tnm, mx, my, mt = car_parameters(car)
-    out = np.empty(_k.NOUT)
+    out = np.full(_k.NOUT, np.nan)
     _k.state(speed, curvature, grade, bank, drive_n, brake_n, p, mx, my, mt, out)
     return _state_dict(out)
 

@@ -73,18 +73,21 @@ def _kernels_only(car, track):
     ds = float(track.step_m)
     vcap = L.speed_cap(car)
     n = len(kappa)
+    # the kernels simulate_lap picks (serial ones where threads do not pay), if it picks
+    corner, final = L._kernels(n) if hasattr(L, "_kernels") else (K.corner_limits,
+                                                                  K.final_pass)
 
     def run():
-        vlim = K.corner_limits(kappa, grade, bank, vcap, p, mx, my, mt, L.SPEED_TOL,
-                               8 if n > 400 else 1)
+        vlim = corner(kappa, grade, bank, vcap, p, mx, my, mt, L.SPEED_TOL,
+                      8 if n > 400 else 1)
         s = int(np.argmin(vlim))
         order = np.concatenate([np.arange(s, n), np.arange(0, s), [s]])
         v = K.speed_passes(kappa[order], grade[order], bank[order], vlim[order], ds, math.nan,
                            float(vlim[s]), p, gears, trpm, tnm, mx, my, mt, L.FORCE_TOL)
         vv = np.empty(n)
         vv[order[:n]] = v[:n]
-        K.final_pass(vv, kappa, grade, bank, ds, float(vv[0]), vcap, p, gears, trpm, tnm, mx,
-                     my, mt, L.FORCE_TOL, L.LIFTOFF_AY_THRESHOLD)
+        final(vv, kappa, grade, bank, ds, float(vv[0]), vcap, p, gears, trpm, tnm, mx, my, mt,
+              L.FORCE_TOL, L.LIFTOFF_AY_THRESHOLD)
 
     return run
 
@@ -129,17 +132,22 @@ for name in ("_state_once", "_usage_once", "map_eval"):
     if hasattr(K, name):
         wrap(name)
 import lapbalance.lap as L
-def phase(name):
-    f = getattr(L, name)
+def phase(mod, name, tag):
+    f = getattr(mod, name)
     def g(*a, **k):
         before = counts.get("_state_once", 0) + counts.get("_usage_once", 0)
         r = f(*a, **k)
         after = counts.get("_state_once", 0) + counts.get("_usage_once", 0)
-        counts["phase" + name] = counts.get("phase" + name, 0) + after - before
+        counts[tag] = counts.get(tag, 0) + after - before
         return r
-    setattr(L, name, g)
-for name in ("_corner_limits_kernel", "_speed_passes_kernel", "_final_pass_kernel"):
-    phase(name)
+    setattr(mod, name, g)
+for mod, name, tag in ((L, "_corner_limits_kernel", "corner_limits"),
+                       (K, "corner_limits_serial", "corner_limits"),
+                       (L, "_speed_passes_kernel", "speed_passes"),
+                       (L, "_final_pass_kernel", "final_pass"),
+                       (K, "final_pass_serial", "final_pass")):
+    if hasattr(mod, name):
+        phase(mod, name, tag)
 out = {}
 for car in sys.argv[1:]:
     counts.clear()
@@ -164,7 +172,7 @@ def row_evals(res):
         res[f"evals_full_per_step_{tag}"] = full / n
         res[f"evals_lean_per_step_{tag}"] = lean / n
         for ph in ("corner_limits", "speed_passes", "final_pass"):
-            res[f"evals_{ph}_per_step_{tag}"] = c.get(f"phase_{ph}_kernel", 0) / n
+            res[f"evals_{ph}_per_step_{tag}"] = c.get(ph, 0) / n
         if "mapped" in car:
             res[f"map_lookups_per_step_{tag}"] = c.get("map_eval", 0) / n
 
