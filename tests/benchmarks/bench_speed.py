@@ -307,7 +307,7 @@ def main():
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--only", default=",".join(ROWS))
     ap.add_argument("--repeats", type=int, default=15)
-    ap.add_argument("--points", type=int, default=40, help="points of the [sweep] row")
+    ap.add_argument("--points", type=int, default=200, help="points of the [sweep] row")
     ap.add_argument("--json", help="also write the figures to this JSON file")
     args = ap.parse_args()
     only = [s.strip() for s in args.only.split(",") if s.strip()]
