@@ -124,7 +124,7 @@ BIG = 1e9
 V_MIN = 0.5  # lowest speed searched for a corner limit [m/s]
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _bracket_index(grid, x):
     n = grid.shape[0]
     if x <= grid[0]:
@@ -142,12 +142,12 @@ def _bracket_index(grid, x):
     return lo, (x - grid[lo]) / (grid[lo + 1] - grid[lo])
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def map_lookup(mx, my, mt, k, x, y):
     """Clamped bilinear lookup of table ``mt[k]`` (0 front, 1 rear, 2 drag area) at (x, y)."""
     return map_eval(mx, my, mt, x, y)[k]
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def map_eval(mx, my, mt, x, y):
     """All three map tables at (x, y) with one cell search: (front area, rear area, drag area,
     d front/dx, d front/dy, d rear/dx, d rear/dy); gradients zero outside the grid."""
@@ -178,7 +178,7 @@ def map_eval(mx, my, mt, x, y):
     return fv, rv, dv, fx, fy, rx, ry
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _state_once(v, kappa, grade, bank, f_drive, f_brake, p, claf, clar, cda, out):
     m = p[P_MASS]
     L = p[P_L]
@@ -272,7 +272,7 @@ def _state_once(v, kappa, grade, bank, f_drive, f_brake, p, claf, clar, cda, out
     return 0
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def state(v, kappa, grade, bank, f_drive, f_brake, p, mx, my, mt, out):
     """Evaluate the car at speed v [m/s] on a step (curvature [1/m], grade, bank [rad]) with
     drive force f_drive [N] (negative = engine overrun) and brake force f_brake >= 0 [N].
@@ -291,7 +291,7 @@ def state(v, kappa, grade, bank, f_drive, f_brake, p, mx, my, mt, out):
                       p[P_RHF0], p[P_RHR0], 1e-6)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _ride_heights(g_n, q, xs, ax_mode, p, mx, my, mt, rhf, rhr, tol):
     """Ride heights [m] and map areas [m2] at dynamic pressure q [Pa] from a start (rhf, rhr).
 
@@ -350,14 +350,14 @@ def _ride_heights(g_n, q, xs, ax_mode, p, mx, my, mt, rhf, rhr, tol):
     return rhf, rhr, claf, clar, cda
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True, inline="always", error_model="numpy")
 def _map_outside(rhf, rhr, mx, my):
     if rhf < mx[0] or rhf > mx[mx.shape[0] - 1] or rhr < my[0] or rhr > my[my.shape[0] - 1]:
         return 1.0
     return 0.0
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _state_map(v, kappa, grade, bank, f_drive, f_brake, p, mx, my, mt, out, rhf, rhr, tol):
     """:func:`state` for a mapped car with the ride-height fixed point started at (rhf, rhr)
     [m] and stopped at residual ``tol`` [m]."""
@@ -377,7 +377,7 @@ def _state_map(v, kappa, grade, bank, f_drive, f_brake, p, mx, my, mt, out, rhf,
 RH_TOL_WARM = 1e-9
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True, inline="always", error_model="numpy")
 def _warm_rh(out, p, mx, my):
     """Start of the ride-height fixed point: the ride heights ``out`` holds from the last
     evaluation when they lie inside the map, else the static ones."""
@@ -388,7 +388,7 @@ def _warm_rh(out, p, mx, my):
     return p[P_RHF0], p[P_RHR0]
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _usage_once(v, kappa, grade, bank, f_drive, f_brake, p, claf, clar, cda, out):
     """Lean :func:`_state_once` for the searches: the same arithmetic, but only a_x,
     downforce, the two usages and the status are written to ``out``."""
@@ -445,7 +445,7 @@ def _usage_once(v, kappa, grade, bank, f_drive, f_brake, p, claf, clar, cda, out
     return 0
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def state_usage(v, kappa, grade, bank, f_drive, f_brake, p, mx, my, mt, out):
     """Lean :func:`state` for the searches: writes only a_x, downforce, the usages, the
     status and (mapped cars) the ride heights to ``out``; returns the status. A mapped car's
@@ -465,7 +465,7 @@ def state_usage(v, kappa, grade, bank, f_drive, f_brake, p, mx, my, mt, out):
     return st
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _control_for_ax_map(v, kappa, grade, bank, ax, p, mx, my, mt, out, full):
     """Control [N] giving a_x = ``ax`` [m/s²] for a mapped car: one ride-height fixed point
     with the ground force m a_x + drag + grade force (warm-started); ``out`` holds the full
@@ -490,7 +490,7 @@ def _control_for_ax_map(v, kappa, grade, bank, ax, p, mx, my, mt, out, full):
     return F
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True, error_model="numpy")
 def state_control(v, kappa, grade, bank, F, p, mx, my, mt, out):
     """:func:`state` with one signed control force F [N] (>= 0 drive, < 0 brake); a mapped
     car's ride heights start from those ``out`` holds (see :func:`state_usage`)."""
@@ -503,7 +503,7 @@ def state_control(v, kappa, grade, bank, F, p, mx, my, mt, out):
                       RH_TOL_WARM)
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True, error_model="numpy")
 def usage_control(v, kappa, grade, bank, F, p, mx, my, mt, out):
     """:func:`state_usage` with one signed control force F [N]."""
     if F >= 0.0:
@@ -511,7 +511,7 @@ def usage_control(v, kappa, grade, bank, F, p, mx, my, mt, out):
     return state_usage(v, kappa, grade, bank, 0.0, -F, p, mx, my, mt, out)
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True, inline="always", error_model="numpy")
 def max_usage(out):
     u = out[O_UF]
     if out[O_UR] > u:
@@ -519,7 +519,7 @@ def max_usage(out):
     return u
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def control_for_ax(v, kappa, grade, bank, ax, p, mx, my, mt, out):
     """Signed control force [N] that gives longitudinal acceleration ``ax`` [m/s²].
 
@@ -533,7 +533,7 @@ def control_for_ax(v, kappa, grade, bank, ax, p, mx, my, mt, out):
     return _control_for_ax_map(v, kappa, grade, bank, ax, p, mx, my, mt, out, True)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def control_for_ax_lean(v, kappa, grade, bank, ax, p, mx, my, mt, out):
     """:func:`control_for_ax` leaving the lean state (:func:`state_usage`) in ``out``."""
     if p[P_USEMAP] == 0.0:
@@ -543,7 +543,7 @@ def control_for_ax_lean(v, kappa, grade, bank, ax, p, mx, my, mt, out):
     return _control_for_ax_map(v, kappa, grade, bank, ax, p, mx, my, mt, out, False)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def gear_and_rpm(v, p, gears):
     """Gear index (0 = first) and engine speed [rpm] at speed v [m/s]: the lowest gear whose
     engine speed does not exceed the shift point, else top gear."""
@@ -556,7 +556,7 @@ def gear_and_rpm(v, p, gears):
     return n - 1, w * gears[n - 1]
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def engine_force(v, p, gears, trpm, tnm):
     """Largest drive force the powertrain gives at v [m/s], at the wheels [N]."""
     g, rpm = gear_and_rpm(v, p, gears)
@@ -570,18 +570,34 @@ def engine_force(v, p, gears, trpm, tnm):
     r = rpm
     if r < trpm[0]:
         r = trpm[0]
-    torque = np.interp(r, trpm, tnm)
+    torque = _interp(r, trpm, tnm)
     return torque * gears[g] * p[P_FINAL] * p[P_ETA] / p[P_RW]
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
+def _interp(x, xp, fp):
+    """np.interp(x, xp, fp) for increasing xp, held at the ends (the same arithmetic as
+    numpy's, without compiling its general implementation)."""
+    n = xp.shape[0]
+    if x <= xp[0]:
+        return fp[0]
+    if x >= xp[n - 1]:
+        return fp[n - 1]
+    j = 0
+    while xp[j + 1] <= x:
+        j += 1
+    slope = (fp[j + 1] - fp[j]) / (xp[j + 1] - xp[j])
+    return slope * (x - xp[j]) + fp[j]
+
+
+@njit(cache=True, error_model="numpy")
 def overrun_force(v, p, gears):
     """Engine-braking force at the wheels [N] (positive, retarding) in the current gear."""
     g, rpm = gear_and_rpm(v, p, gears)
     return p[P_OVERRUN] * gears[g] * p[P_FINAL] / p[P_RW]
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True, inline="always", error_model="numpy")
 def _resistance_nomap(v, kappa, grade, bank, p):
     """Drag + rolling resistance + grade force [N] without an aero map (independent of the
     control force, since the total normal load does not depend on it)."""
@@ -594,7 +610,7 @@ def _resistance_nomap(v, kappa, grade, bank, p):
     return f
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True, error_model="numpy")
 def ax_of_control(v, kappa, grade, bank, F, p, mx, my, mt, out):
     """Longitudinal acceleration [m/s²] at control F [N] (a closed form without a map)."""
     if p[P_USEMAP] == 0.0:
@@ -603,7 +619,7 @@ def ax_of_control(v, kappa, grade, bank, F, p, mx, my, mt, out):
     return out[O_AX]
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True, error_model="numpy")
 def steady_control(v, kappa, grade, bank, p, mx, my, mt, out):
     """Control force [N] holding speed (a_x = 0); ``out`` holds that (lean) state."""
     if p[P_USEMAP] != 0.0:
@@ -614,7 +630,7 @@ def steady_control(v, kappa, grade, bank, p, mx, my, mt, out):
     return F
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True, error_model="numpy")
 def _g_control(v, kappa, grade, bank, F, p, mx, my, mt, out):
     """Usage excess max(u_f, u_r) - 1 at control F [N]; BIG when an axle unloads."""
     st = usage_control(v, kappa, grade, bank, F, p, mx, my, mt, out)
@@ -623,7 +639,7 @@ def _g_control(v, kappa, grade, bank, F, p, mx, my, mt, out):
     return max_usage(out) - 1.0
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True, error_model="numpy")
 def _g_speed(v, kappa, grade, bank, p, mx, my, mt, out):
     """Usage excess at steady speed v [m/s]; BIG when an axle unloads or the car rolls."""
     steady_control(v, kappa, grade, bank, p, mx, my, mt, out)
@@ -632,7 +648,7 @@ def _g_speed(v, kappa, grade, bank, p, mx, my, mt, out):
     return max_usage(out) - 1.0
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _refine(kind, x_ok, g_ok, x_bad, g_bad, v, kappa, grade, bank, p, mx, my, mt, out, xtol):
     """Illinois (modified regula falsi) search for the feasibility boundary.
 
@@ -650,7 +666,7 @@ def _refine(kind, x_ok, g_ok, x_bad, g_bad, v, kappa, grade, bank, p, mx, my, mt
 BRAKE_MARGIN = 1e-7
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _brake_speed(vnext, ds, kappa, grade, bank, F, p, mx, my, mt, out, evaluate):
     """Speed [m/s] at a step of length ``ds`` [m] from which the control F [N], applied at
     that speed, reaches ``vnext`` [m/s] at the next step (the implicit braking step).
@@ -684,7 +700,7 @@ def _brake_speed(vnext, ds, kappa, grade, bank, F, p, mx, my, mt, out, evaluate)
     return v, st
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True, error_model="numpy")
 def _g_brake(vnext, ds, kappa, grade, bank, F, p, mx, my, mt, out):
     """Usage excess (plus :data:`BRAKE_MARGIN`) of the implicit braking step with control F."""
     v, st = _brake_speed(vnext, ds, kappa, grade, bank, F, p, mx, my, mt, out, True)
@@ -693,7 +709,7 @@ def _g_brake(vnext, ds, kappa, grade, bank, F, p, mx, my, mt, out):
     return max_usage(out) - 1.0 + BRAKE_MARGIN
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True, error_model="numpy")
 def _g_kind(kind, x, v, ds, kappa, grade, bank, p, mx, my, mt, out):
     if kind == 0:
         return _g_speed(x, kappa, grade, bank, p, mx, my, mt, out)
@@ -702,7 +718,7 @@ def _g_kind(kind, x, v, ds, kappa, grade, bank, p, mx, my, mt, out):
     return _g_brake(v, ds, kappa, grade, bank, x, p, mx, my, mt, out)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _illinois(kind, x_ok, g_ok, x_bad, g_bad, v, ds, kappa, grade, bank, p, mx, my, mt, out,
               xtol):
     """:func:`_refine` for every kind; kind 2: x is the control [N] of an implicit braking
@@ -745,7 +761,7 @@ def _illinois(kind, x_ok, g_ok, x_bad, g_bad, v, ds, kappa, grade, bank, p, mx, 
     return lo
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def largest_feasible_control(v, kappa, grade, bank, f_ok, f_bad, p, mx, my, mt, out, tol):
     """Feasible control [N] nearest the boundary between a feasible ``f_ok`` and an
     infeasible ``f_bad`` (either side)."""
@@ -756,7 +772,7 @@ def largest_feasible_control(v, kappa, grade, bank, f_ok, f_bad, p, mx, my, mt, 
     return _refine(1, f_ok, g_ok, f_bad, g_bad, v, kappa, grade, bank, p, mx, my, mt, out, tol)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _bracket_up(lo, glo, step, vcap, kappa, grade, bank, p, mx, my, mt, out):
     """From a feasible ``lo`` step up (step doubling) to the first infeasible speed or vcap.
 
@@ -773,7 +789,7 @@ def _bracket_up(lo, glo, step, vcap, kappa, grade, bank, p, mx, my, mt, out):
         step *= 2.0
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _window_search(kind, x0, slope, v, ds, kappa, grade, bank, p, mx, my, mt, out, xtol,
                    x_lo, x_hi, x_stop):
     """Secant search from a neighbour's prediction ``x0`` for a feasible point on the
@@ -829,7 +845,7 @@ def _window_search(kind, x0, slope, v, ds, kappa, grade, bank, p, mx, my, mt, ou
     return x, slope, False
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def corner_limit(kappa, grade, bank, guess, lo_known, vcap, p, mx, my, mt, out, tol):
     """Highest steady speed [m/s] below the first infeasible one (both axles u <= 1).
 
@@ -911,7 +927,7 @@ def corner_limit(kappa, grade, bank, guess, lo_known, vcap, p, mx, my, mt, out, 
     return _refine(0, lo, glo, hi, ghi, 0.0, kappa, grade, bank, p, mx, my, mt, out, tol)
 
 
-@njit(cache=True, parallel=True)
+@njit(cache=True, parallel=True, error_model="numpy")
 def corner_limits(kappa, grade, bank, vcap, p, mx, my, mt, tol, nchunks):
     """Corner-speed limit [m/s] at every step; chunks run in parallel, each warm-started.
 
@@ -929,20 +945,7 @@ def corner_limits(kappa, grade, bank, vcap, p, mx, my, mt, tol, nchunks):
     return vlim
 
 
-@njit(cache=True)
-def corner_limits_serial(kappa, grade, bank, vcap, p, mx, my, mt, tol, nchunks):
-    """:func:`corner_limits` in one thread (the same chunks, so the same result); compiles
-    much faster than the parallel kernel and is what a single lap on a small machine uses."""
-    n = kappa.shape[0]
-    vlim = np.empty(n)
-    size = (n + nchunks - 1) // nchunks
-    for c in range(nchunks):
-        _corner_limits_chunk(kappa, grade, bank, vcap, p, mx, my, mt, tol, c * size,
-                             min(n, (c + 1) * size), vlim)
-    return vlim
-
-
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _corner_limits_chunk(kappa, grade, bank, vcap, p, mx, my, mt, tol, start, stop, vlim):
     """Corner limits of steps start..stop-1 into ``vlim``, each warm-started from the last."""
     out = np.full(NOUT, np.nan)
@@ -1011,7 +1014,7 @@ def _corner_limits_chunk(kappa, grade, bank, vcap, p, mx, my, mt, tol, start, st
         prev_b = bank[i]
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _search_from_hint(v, kappa, grade, bank, f_ok, g_ok, hint, direction, f_stop, p, mx, my,
                       mt, out, ftol):
     """Boundary of the feasible control interval beyond a feasible ``f_ok`` [N] in
@@ -1022,7 +1025,7 @@ def _search_from_hint(v, kappa, grade, bank, f_ok, g_ok, hint, direction, f_stop
                         0.02 * m * G, direction, f_stop, p, mx, my, mt, out, ftol)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _search_kind(kind, v, ds, kappa, grade, bank, f_ok, g_ok, hint, back, step, direction,
                  f_stop, p, mx, my, mt, out, ftol):
     """:func:`_search_from_hint` for control kinds 1 and 2 (see :func:`_illinois`), with the
@@ -1077,7 +1080,7 @@ def _search_kind(kind, v, ds, kappa, grade, bank, f_ok, g_ok, hint, back, step, 
                      out, ftol)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def max_accel_control(v, kappa, grade, bank, p, gears, trpm, tnm, mx, my, mt, out, ftol,
                       hint=math.nan):
     """Largest drive control [N] at v that the powertrain gives and both axles carry."""
@@ -1087,7 +1090,7 @@ def max_accel_control(v, kappa, grade, bank, p, gears, trpm, tnm, mx, my, mt, ou
                            0.005 * m * G, 0.02 * m * G)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _max_accel_feng(v, kappa, grade, bank, feng, p, mx, my, mt, out, ftol, hint, back, step):
     """:func:`max_accel_control` with the engine force ``feng`` [N] already known and the
     search steps [N] of :func:`_search_kind`."""
@@ -1104,7 +1107,7 @@ def _max_accel_feng(v, kappa, grade, bank, feng, p, mx, my, mt, out, ftol, hint,
                         mx, my, mt, out, ftol)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def max_decel_control(v, kappa, grade, bank, p, mx, my, mt, out, ftol, hint=math.nan):
     """Smallest control [N] at v that both axles carry (most braking; positive when even
     coasting would saturate an axle and a little throttle is needed)."""
@@ -1117,7 +1120,7 @@ def max_decel_control(v, kappa, grade, bank, p, mx, my, mt, out, ftol, hint=math
                              out, ftol)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, tnm, mx, my,
                  mt, ftol):
     """Forward (acceleration) and backward (braking) passes; returns the speed trace [m/s].
@@ -1254,7 +1257,7 @@ def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, t
     return v
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _brakes_from(v, vnext, ds, kappa, grade, bank, p, mx, my, mt, out):
     """True when the step from speed v [m/s] to ``vnext`` over ``ds`` [m] is feasible with
     the usage margin of the braking search (the force the final pass will apply)."""
@@ -1270,7 +1273,7 @@ NCH = 40  # channels written by final_pass per step
 USAGE_SLACK = 1e-9
 
 
-@njit(cache=True, parallel=True)
+@njit(cache=True, parallel=True, error_model="numpy")
 def final_pass(v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm, tnm, mx, my, mt,
                ftol, ay_liftoff):
     """Per-step force balance consistent with the speed trace, all load parts, usages,
@@ -1292,26 +1295,7 @@ def final_pass(v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm, tnm
     return res
 
 
-@njit(cache=True)
-def final_pass_serial(v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm, tnm, mx,
-                      my, mt, ftol, ay_liftoff):
-    """:func:`final_pass` in one thread (same result)."""
-    n = v.shape[0]
-    res = np.zeros((n, NOUT + NCH))
-    out = np.full(NOUT, np.nan)
-    tmp = np.full(NOUT, np.nan)
-    nchunks = 8 if n > 400 else 1
-    size = (n + nchunks - 1) // nchunks
-    for ch in range(nchunks):
-        out[:] = math.nan
-        tmp[:] = math.nan
-        for i in range(ch * size, min(n, (ch + 1) * size)):
-            _final_step(i, v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm, tnm,
-                        mx, my, mt, ftol, ay_liftoff, res, out, tmp)
-    return res
-
-
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _final_step(i, v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm, tnm, mx, my,
                 mt, ftol, ay_liftoff, res, out, tmp):
     """One step of :func:`final_pass` (fills row ``i`` of ``res``)."""

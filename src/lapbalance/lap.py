@@ -9,6 +9,7 @@ lap closes on itself. Each step's a_x comes from the force balance applied there
 
 from __future__ import annotations
 
+import contextlib
 import math
 import os
 import warnings
@@ -41,9 +42,8 @@ LIMIT_NAMES = {
 LIFTOFF_AY_THRESHOLD = 4.0
 
 #: Fewest steps [-] and cores [-] for which a single lap runs its parallel kernels on several
-#: numba threads; below either, one thread (and the serial kernels, which also compile much
-#: faster) is quicker: a lap of a few thousand steps takes milliseconds, less than waking
-#: and joining threads costs on a busy machine.
+#: numba threads; below either, one thread is quicker: a lap of a few thousand steps takes
+#: milliseconds, less than waking and joining threads costs on a busy machine.
 PARALLEL_MIN_STEPS = 50_000
 PARALLEL_MIN_CORES = 4
 
@@ -258,19 +258,27 @@ def solver_threads(n_steps: int) -> int:
     """Numba threads a lap of ``n_steps`` steps uses: 1 unless it is long
     (:data:`PARALLEL_MIN_STEPS`) and the machine has :data:`PARALLEL_MIN_CORES` cores; then the
     numba thread count, which sweep workers set to 1 (so N workers use N cores)."""
+    import numba
+
     cores = os.cpu_count() or 1
     if n_steps < PARALLEL_MIN_STEPS or cores < PARALLEL_MIN_CORES:
         return 1
-    import numba
-
     return min(numba.get_num_threads(), cores)
 
 
-def _kernels(n_steps: int):
-    """(corner limits, final pass) kernels for a lap of ``n_steps``: serial or parallel."""
-    if solver_threads(n_steps) == 1:
-        return _k.corner_limits_serial, _k.final_pass_serial
-    return _corner_limits_kernel, _final_pass_kernel
+@contextlib.contextmanager
+def _threads(n: int):
+    """Run the parallel kernels on ``n`` numba threads (this thread's setting, restored)."""
+    import numba
+
+    before = numba.get_num_threads()
+    if n != before:
+        numba.set_num_threads(n)
+    try:
+        yield
+    finally:
+        if n != before:
+            numba.set_num_threads(before)
 
 
 def speed_cap(car: Car) -> float:
@@ -325,8 +333,10 @@ def simulate_lap(car: Car, track, *, start_speed_kph: float | None = None,
             raise InputError(f"track {name} has non-finite values", track.source)
     vcap = speed_cap(car)
     nchunks = 8 if n > 400 else 1
-    corner_limits_kernel, final_pass_kernel = _kernels(n)
-    vlim = corner_limits_kernel(kappa, grade, bank, vcap, p, mx, my, mt, SPEED_TOL, nchunks)
+    threads = solver_threads(n)
+    with _threads(threads):
+        vlim = _corner_limits_kernel(kappa, grade, bank, vcap, p, mx, my, mt, SPEED_TOL,
+                                     nchunks)
     bad = np.flatnonzero(vlim <= 0.0)
     if bad.size:
         i = int(bad[0])
@@ -354,8 +364,9 @@ def simulate_lap(car: Car, track, *, start_speed_kph: float | None = None,
         tail = float(v[0])
     else:
         tail = closed_tail_speed
-    res = final_pass_kernel(v, kappa, grade, bank, ds, tail, vcap, p, gears, trpm, tnm, mx,
-                            my, mt, FORCE_TOL, liftoff_ay_threshold)
+    with _threads(threads):
+        res = _final_pass_kernel(v, kappa, grade, bank, ds, tail, vcap, p, gears, trpm, tnm,
+                                 mx, my, mt, FORCE_TOL, liftoff_ay_threshold)
     vnext = np.append(v[1:], v[0] if track.closed else v[-1])
     vsum = v + vnext
     if np.any(vsum[: n if track.closed else n - 1] <= 0.0):

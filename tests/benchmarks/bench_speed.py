@@ -73,9 +73,8 @@ def _kernels_only(car, track):
     ds = float(track.step_m)
     vcap = L.speed_cap(car)
     n = len(kappa)
-    # the kernels simulate_lap picks (serial ones where threads do not pay), if it picks
-    corner, final = L._kernels(n) if hasattr(L, "_kernels") else (K.corner_limits,
-                                                                  K.final_pass)
+    # the kernels simulate_lap runs (on one numba thread here, as the lap row sets)
+    corner, final = K.corner_limits, K.final_pass
 
     def run():
         vlim = corner(kappa, grade, bank, vcap, p, mx, my, mt, L.SPEED_TOL,
@@ -142,10 +141,9 @@ def phase(mod, name, tag):
         return r
     setattr(mod, name, g)
 for mod, name, tag in ((L, "_corner_limits_kernel", "corner_limits"),
-                       (K, "corner_limits_serial", "corner_limits"),
                        (L, "_speed_passes_kernel", "speed_passes"),
                        (L, "_final_pass_kernel", "final_pass"),
-                       (K, "final_pass_serial", "final_pass")):
+                       ):
     if hasattr(mod, name):
         phase(mod, name, tag)
 out = {}
