@@ -246,59 +246,12 @@ def _worst_steps(result: LapResult) -> str:
                      text_cols=(0, 2), cell_classes=classes))
 
 
-def _figures(result: LapResult, dpi: int, pngs: dict | None = None) -> str:
+def _figures(result: LapResult, dpi: int) -> str:
     out = []
     for name, (fn, caption) in plots.LAP_FIGURES.items():
-        png = pngs[name] if pngs is not None else plots.figure_png(fn(result), dpi)
+        png = plots.figure_png(fn(result), dpi)
         out.append(_img(png, f"{name.replace('_', ' ')}: {result.car.name}", caption))
     return "\n".join(out)
-
-
-#: Results the figure-drawing child processes read (set just before they fork).
-_DRAW: list = []
-
-
-def _draw_one(job: tuple[int, str, int]) -> bytes:
-    j, name, dpi = job
-    return plots.figure_png(plots.LAP_FIGURES[name][0](_DRAW[j]), dpi)
-
-
-def _lap_figure_pngs(results: Sequence[LapResult], dpi: int) -> list[dict[str, bytes]]:
-    """Every lap figure of every result as PNG bytes, drawn in parallel where it pays.
-
-    Drawing is most of a report's time and one process draws on one core, so with several
-    cores and several figures the figures are drawn by forked child processes (they inherit
-    the results and the loaded plotting modules; nothing is pickled but the PNG bytes).
-    Where ``fork`` is not available, or with one core, they are drawn here, one by one.
-    """
-    import multiprocessing as mp
-    import os
-
-    jobs = [(j, name, dpi) for j in range(len(results)) for name in plots.LAP_FIGURES]
-    cores = os.cpu_count() or 1
-    pngs: list[bytes] | None = None
-    if cores > 1 and len(jobs) > 2 and "fork" in mp.get_all_start_methods():
-        from concurrent.futures import ProcessPoolExecutor
-
-        _DRAW[:] = list(results)
-        try:
-            with ProcessPoolExecutor(max_workers=min(cores, len(jobs)),
-                                     mp_context=mp.get_context("fork")) as ex:
-                pngs = list(ex.map(_draw_one, jobs))
-        except (OSError, RuntimeError):  # no processes to be had: draw them here
-            pngs = None
-        finally:
-            _DRAW.clear()
-    if pngs is None:
-        _DRAW[:] = list(results)
-        try:
-            pngs = [_draw_one(job) for job in jobs]
-        finally:
-            _DRAW.clear()
-    out: list[dict[str, bytes]] = [{} for _ in results]
-    for (j, name, _), png in zip(jobs, pngs, strict=True):
-        out[j][name] = png
-    return out
 
 
 def _comparison_section(results: Sequence[LapResult], labels: Sequence[str], dpi: int) -> str:
@@ -408,11 +361,10 @@ def build_report(results: Sequence[LapResult] | LapResult, labels: Sequence[str]
             f'<div class="caution" role="note">{_e(CAUTION)}</div>', "\n".join(nav)]
     if len(results) > 1:
         body.append(_comparison_section(results, labels, dpi))
-    pngs = _lap_figure_pngs(results, dpi)
     for j, (r, lab) in enumerate(zip(results, labels, strict=True)):
         body += [f'<h2 id="lap-{j + 1}">{_e(lab)}</h2>', "<h3>Summary</h3>",
                  _summary_section(r), "<h3>Corners and lift-off check</h3>",
-                 _corner_section(r), "<h3>Figures</h3>", _figures(r, dpi, pngs[j])]
+                 _corner_section(r), "<h3>Figures</h3>", _figures(r, dpi)]
     body.append('<h2 id="assumptions">Assumptions and limits</h2>')
     body.append('<ul class="assumptions">' + "".join(f"<li>{_e(a)}</li>" for a in ASSUMPTIONS)
                 + "</ul>")
