@@ -40,7 +40,6 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
-from scipy.interpolate import RectBivariateSpline
 
 from lapbalance import aero as _aero
 from lapbalance.errors import InputError, PhysicsWarning, clip, closest, did_you_mean
@@ -394,6 +393,8 @@ def load_aero_map(path: str | Path, cg_height: float, wheelbase: float) -> AeroM
     front_cg, rear_cg = _aero.to_cg_convention(front, rear, drag, cg_height, wheelbase, conv, z)
     rhf, rhr = fa * MM, ra * MM
     kx, ky = min(3, nf - 1), min(3, nr - 1)
+    from scipy.interpolate import RectBivariateSpline  # a slow import: only mapped cars
+
     splines = tuple(RectBivariateSpline(rhf, rhr, t, kx=kx, ky=ky, s=0)
                     for t in (front_cg, rear_cg, drag))
     ffine, rfine = _refine(rhf), _refine(rhr)

@@ -124,7 +124,7 @@ BIG = 1e9
 V_MIN = 0.5  # lowest speed searched for a corner limit [m/s]
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _bracket_index(grid, x):
     n = grid.shape[0]
     if x <= grid[0]:
@@ -142,12 +142,12 @@ def _bracket_index(grid, x):
     return lo, (x - grid[lo]) / (grid[lo + 1] - grid[lo])
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def map_lookup(mx, my, mt, k, x, y):
     """Clamped bilinear lookup of table ``mt[k]`` (0 front, 1 rear, 2 drag area) at (x, y)."""
     return map_eval(mx, my, mt, x, y)[k]
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def map_eval(mx, my, mt, x, y):
     """All three map tables at (x, y) with one cell search: (front area, rear area, drag area,
     d front/dx, d front/dy, d rear/dx, d rear/dy); gradients zero outside the grid."""
@@ -178,7 +178,7 @@ def map_eval(mx, my, mt, x, y):
     return fv, rv, dv, fx, fy, rx, ry
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _state_once(v, kappa, grade, bank, f_drive, f_brake, p, claf, clar, cda, out):
     m = p[P_MASS]
     L = p[P_L]
@@ -272,7 +272,7 @@ def _state_once(v, kappa, grade, bank, f_drive, f_brake, p, claf, clar, cda, out
     return 0
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def state(v, kappa, grade, bank, f_drive, f_brake, p, mx, my, mt, out):
     """Evaluate the car at speed v [m/s] on a step (curvature [1/m], grade, bank [rad]) with
     drive force f_drive [N] (negative = engine overrun) and brake force f_brake >= 0 [N].
@@ -287,32 +287,47 @@ def state(v, kappa, grade, bank, f_drive, f_brake, p, mx, my, mt, out):
         out[O_RHR] = p[P_RHR0]
         out[O_MAPOUT] = 0.0
         return st
+    return _state_map(v, kappa, grade, bank, f_drive, f_brake, p, mx, my, mt, out,
+                      p[P_RHF0], p[P_RHR0], 1e-6)
+
+
+@njit(cache=True, error_model="numpy")
+def _ride_heights(g_n, q, xs, ax_mode, p, mx, my, mt, rhf, rhr, tol):
+    """Ride heights [m] and map areas [m2] at dynamic pressure q [Pa] from a start (rhf, rhr).
+
+    Ride heights from the heave equations rh = rh0 - (Fz - Fz_rest)/k with the axle loads
+    depending on the map: two equations solved by Newton's method (bilinear-map gradients),
+    the loads written out in closed form inside the loop. ``ax_mode`` False: ``xs`` is the
+    control force (drive minus brake) [N]; True: ``xs`` is m a_x + grade force [N] (the
+    control then follows from the areas, so a target a_x needs one fixed point, not nested
+    ones). Stops when the heave residuals sum below ``tol`` [m].
+    Returns (rhf, rhr, front area, rear area, drag area).
+    """
     m = p[P_MASS]
     fz_ref_f = m * G * p[P_B] / p[P_L]
     fz_ref_r = m * G * p[P_A] / p[P_L]
-    # ride heights from the heave equations rh = rh0 - (Fz - Fz_rest)/k with the axle loads
-    # depending on the map: two equations solved by Newton's method (bilinear-map gradients),
-    # the loads written out in closed form inside the loop, the full state once at the end
     L = p[P_L]
     h = p[P_H]
     crr = p[P_CRR]
-    q = 0.5 * p[P_RHO] * v * v
-    a_c, a_y, g_n = road_accelerations(v, kappa, grade, bank)
     sf = m * g_n * p[P_B] / L
     sr = m * g_n * p[P_A] / L
     kf = p[P_HEAVEF]
     kr = p[P_HEAVER]
-    c = h / L * crr * q
-    rhf = p[P_RHF0]
-    rhr = p[P_RHR0]
+    c = 0.0 if ax_mode else h / L * crr * q
+    claf = 0.0
+    clar = 0.0
+    cda = 0.0
     for _ in range(30):
         claf, clar, cda, af_f, af_r, ar_f, ar_r = map_eval(mx, my, mt, rhf, rhr)
-        x = f_drive - f_brake - crr * (m * g_n + q * (claf + clar))
+        if ax_mode:
+            x = xs + q * cda
+        else:
+            x = xs - crr * (m * g_n + q * (claf + clar))
         fzf = sf + q * claf - x * h / L
         fzr = sr + q * clar + x * h / L
         rf = rhf - p[P_RHF0] + (fzf - fz_ref_f) / kf
         rr = rhr - p[P_RHR0] + (fzr - fz_ref_r) / kr
-        if abs(rf) + abs(rr) < 1e-6:  # one micrometre
+        if abs(rf) + abs(rr) < tol:
             break
         j00 = 1.0 + (q * af_f + c * (af_f + ar_f)) / kf
         j01 = (q * af_r + c * (af_r + ar_r)) / kf
@@ -332,25 +347,171 @@ def state(v, kappa, grade, bank, f_drive, f_brake, p, mx, my, mt, out):
             dxr *= lim / big
         rhf += dxf
         rhr += dxr
+    return rhf, rhr, claf, clar, cda
+
+
+@njit(cache=True, inline="always", error_model="numpy")
+def _map_outside(rhf, rhr, mx, my):
+    if rhf < mx[0] or rhf > mx[mx.shape[0] - 1] or rhr < my[0] or rhr > my[my.shape[0] - 1]:
+        return 1.0
+    return 0.0
+
+
+@njit(cache=True, error_model="numpy")
+def _state_map(v, kappa, grade, bank, f_drive, f_brake, p, mx, my, mt, out, rhf, rhr, tol):
+    """:func:`state` for a mapped car with the ride-height fixed point started at (rhf, rhr)
+    [m] and stopped at residual ``tol`` [m]."""
+    q = 0.5 * p[P_RHO] * v * v
+    a_c, a_y, g_n = road_accelerations(v, kappa, grade, bank)
+    rhf, rhr, claf, clar, cda = _ride_heights(g_n, q, f_drive - f_brake, False, p, mx, my, mt,
+                                              rhf, rhr, tol)
     st = _state_once(v, kappa, grade, bank, f_drive, f_brake, p, claf, clar, cda, out)
     out[O_RHF] = rhf
     out[O_RHR] = rhr
-    outside = 0.0
-    if rhf < mx[0] or rhf > mx[mx.shape[0] - 1] or rhr < my[0] or rhr > my[my.shape[0] - 1]:
-        outside = 1.0
-    out[O_MAPOUT] = outside
+    out[O_MAPOUT] = _map_outside(rhf, rhr, mx, my)
     return st
 
 
-@njit(cache=True, inline="always")
+#: Ride-height residual [m] of the warm-started evaluations the lap solver uses (the
+#: fixed point starts from the last evaluation's ride heights, so a tight stop costs little).
+RH_TOL_WARM = 1e-9
+
+
+@njit(cache=True, inline="always", error_model="numpy")
+def _warm_rh(out, p, mx, my):
+    """Start of the ride-height fixed point: the ride heights ``out`` holds from the last
+    evaluation when they lie inside the map, else the static ones."""
+    rhf = out[O_RHF]
+    rhr = out[O_RHR]
+    if mx[0] <= rhf <= mx[mx.shape[0] - 1] and my[0] <= rhr <= my[my.shape[0] - 1]:
+        return rhf, rhr
+    return p[P_RHF0], p[P_RHR0]
+
+
+@njit(cache=True, error_model="numpy")
+def _usage_once(v, kappa, grade, bank, f_drive, f_brake, p, claf, clar, cda, out):
+    """Lean :func:`_state_once` for the searches: the same arithmetic, but only a_x,
+    downforce, the two usages and the status are written to ``out``."""
+    m = p[P_MASS]
+    L = p[P_L]
+    a = p[P_A]
+    b = p[P_B]
+    h = p[P_H]
+    q = 0.5 * p[P_RHO] * v * v
+    drag = q * cda
+    aero_f = q * claf
+    aero_r = q * clar
+    a_c, a_y, g_n = road_accelerations(v, kappa, grade, bank)
+    rr = p[P_CRR] * (m * g_n + aero_f + aero_r)
+    x = f_drive - f_brake - rr
+    res = axle_loads(m, g_n, a, b, L, h, p[P_TF], p[P_TR], p[P_ZF], p[P_ZR], p[P_KF], a_y,
+                     aero_f, aero_r, x)
+    out[O_AX] = (x - drag - (m * G * math.sin(grade) if grade != 0.0 else 0.0)) / m
+    out[O_DOWNF] = aero_f + aero_r
+    status = res[15]
+    if status != 0:
+        out[O_UF] = BIG
+        out[O_UR] = BIG
+        out[O_STATUS] = status
+        return status
+    fzf = res[7]
+    fzr = res[8]
+    sf = p[P_DRIVEF]
+    bf = p[P_BIASF]
+    crr = p[P_CRR]
+    fxf = sf * f_drive - bf * f_brake - crr * fzf
+    fxr = (1.0 - sf) * f_drive - (1.0 - bf) * f_brake - crr * fzr
+    fyf = m * a_y * b / L
+    fyr = m * a_y * a / L
+    t = P_TYF
+    gyf = (load_factor(res[9], p[t], p[t + 1], p[t + 2])
+           + load_factor(res[10], p[t], p[t + 1], p[t + 2]))
+    if p[P_KXF] == p[P_KYF]:
+        gxf = gyf
+    else:
+        gxf = (load_factor(res[9], p[t + 3], p[t + 4], p[t + 5])
+               + load_factor(res[10], p[t + 3], p[t + 4], p[t + 5]))
+    t = P_TYR
+    gyr = (load_factor(res[11], p[t], p[t + 1], p[t + 2])
+           + load_factor(res[12], p[t], p[t + 1], p[t + 2]))
+    if p[P_KXR] == p[P_KYR]:
+        gxr = gyr
+    else:
+        gxr = (load_factor(res[11], p[t + 3], p[t + 4], p[t + 5])
+               + load_factor(res[12], p[t + 3], p[t + 4], p[t + 5]))
+    out[O_UF] = usage(fxf, fyf, p[P_MUXF] * gxf, p[P_MUYF] * gyf)
+    out[O_UR] = usage(fxr, fyr, p[P_MUXR] * gxr, p[P_MUYR] * gyr)
+    out[O_STATUS] = 0.0
+    return 0
+
+
+@njit(cache=True, error_model="numpy")
+def state_usage(v, kappa, grade, bank, f_drive, f_brake, p, mx, my, mt, out):
+    """Lean :func:`state` for the searches: writes only a_x, downforce, the usages, the
+    status and (mapped cars) the ride heights to ``out``; returns the status. A mapped car's
+    ride heights start from those ``out`` holds (the last evaluation), when inside the map.
+    """
+    if p[P_USEMAP] == 0.0:
+        return _usage_once(v, kappa, grade, bank, f_drive, f_brake, p, p[P_CLAF], p[P_CLAR],
+                           p[P_CDA], out)
+    rhf, rhr = _warm_rh(out, p, mx, my)
+    q = 0.5 * p[P_RHO] * v * v
+    a_c, a_y, g_n = road_accelerations(v, kappa, grade, bank)
+    rhf, rhr, claf, clar, cda = _ride_heights(g_n, q, f_drive - f_brake, False, p, mx, my, mt,
+                                              rhf, rhr, RH_TOL_WARM)
+    st = _usage_once(v, kappa, grade, bank, f_drive, f_brake, p, claf, clar, cda, out)
+    out[O_RHF] = rhf
+    out[O_RHR] = rhr
+    return st
+
+
+@njit(cache=True, error_model="numpy")
+def _control_for_ax_map(v, kappa, grade, bank, ax, p, mx, my, mt, out, full):
+    """Control [N] giving a_x = ``ax`` [m/s²] for a mapped car: one ride-height fixed point
+    with the ground force m a_x + drag + grade force (warm-started); ``out`` holds the full
+    state when ``full`` else the lean one."""
+    m = p[P_MASS]
+    rhf, rhr = _warm_rh(out, p, mx, my)
+    q = 0.5 * p[P_RHO] * v * v
+    a_c, a_y, g_n = road_accelerations(v, kappa, grade, bank)
+    xs = m * ax + (m * G * math.sin(grade) if grade != 0.0 else 0.0)
+    rhf, rhr, claf, clar, cda = _ride_heights(g_n, q, xs, True, p, mx, my, mt, rhf, rhr,
+                                              RH_TOL_WARM)
+    F = xs + q * cda + p[P_CRR] * (m * g_n + q * (claf + clar))
+    fd = F if F >= 0.0 else 0.0
+    fb = -F if F < 0.0 else 0.0
+    if full:
+        _state_once(v, kappa, grade, bank, fd, fb, p, claf, clar, cda, out)
+        out[O_MAPOUT] = _map_outside(rhf, rhr, mx, my)
+    else:
+        _usage_once(v, kappa, grade, bank, fd, fb, p, claf, clar, cda, out)
+    out[O_RHF] = rhf
+    out[O_RHR] = rhr
+    return F
+
+
+@njit(cache=True, error_model="numpy")
 def state_control(v, kappa, grade, bank, F, p, mx, my, mt, out):
-    """:func:`state` with one signed control force F [N] (>= 0 drive, < 0 brake)."""
+    """:func:`state` with one signed control force F [N] (>= 0 drive, < 0 brake); a mapped
+    car's ride heights start from those ``out`` holds (see :func:`state_usage`)."""
+    fd = F if F >= 0.0 else 0.0
+    fb = -F if F < 0.0 else 0.0
+    if p[P_USEMAP] == 0.0:
+        return state(v, kappa, grade, bank, fd, fb, p, mx, my, mt, out)
+    rhf, rhr = _warm_rh(out, p, mx, my)
+    return _state_map(v, kappa, grade, bank, fd, fb, p, mx, my, mt, out, rhf, rhr,
+                      RH_TOL_WARM)
+
+
+@njit(cache=True, error_model="numpy")
+def usage_control(v, kappa, grade, bank, F, p, mx, my, mt, out):
+    """:func:`state_usage` with one signed control force F [N]."""
     if F >= 0.0:
-        return state(v, kappa, grade, bank, F, 0.0, p, mx, my, mt, out)
-    return state(v, kappa, grade, bank, 0.0, -F, p, mx, my, mt, out)
+        return state_usage(v, kappa, grade, bank, F, 0.0, p, mx, my, mt, out)
+    return state_usage(v, kappa, grade, bank, 0.0, -F, p, mx, my, mt, out)
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True, inline="always", error_model="numpy")
 def max_usage(out):
     u = out[O_UF]
     if out[O_UR] > u:
@@ -358,31 +519,31 @@ def max_usage(out):
     return u
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def control_for_ax(v, kappa, grade, bank, ax, p, mx, my, mt, out):
     """Signed control force [N] that gives longitudinal acceleration ``ax`` [m/s²].
 
     Leaves ``out`` holding the state at that force.
     """
-    m = p[P_MASS]
     if p[P_USEMAP] == 0.0:
-        F = m * ax + _resistance_nomap(v, kappa, grade, bank, p)
+        F = p[P_MASS] * ax + _resistance_nomap(v, kappa, grade, bank, p)
         state_control(v, kappa, grade, bank, F, p, mx, my, mt, out)
         return F
-    # with a map: start from the static-ride-height resistance, then correct (drag and
-    # rolling resistance move only slightly with the ride heights the force itself changes)
-    F = m * ax + _resistance_nomap(v, kappa, grade, bank, p)
-    state_control(v, kappa, grade, bank, F, p, mx, my, mt, out)
-    for _ in range(6):
-        err = ax - out[O_AX]
-        if abs(err) < 1e-10:
-            break
-        F += m * err
-        state_control(v, kappa, grade, bank, F, p, mx, my, mt, out)
-    return F
+    # with a map: one ride-height fixed point with the ground force the target a_x needs
+    return _control_for_ax_map(v, kappa, grade, bank, ax, p, mx, my, mt, out, True)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
+def control_for_ax_lean(v, kappa, grade, bank, ax, p, mx, my, mt, out):
+    """:func:`control_for_ax` leaving the lean state (:func:`state_usage`) in ``out``."""
+    if p[P_USEMAP] == 0.0:
+        F = p[P_MASS] * ax + _resistance_nomap(v, kappa, grade, bank, p)
+        usage_control(v, kappa, grade, bank, F, p, mx, my, mt, out)
+        return F
+    return _control_for_ax_map(v, kappa, grade, bank, ax, p, mx, my, mt, out, False)
+
+
+@njit(cache=True, error_model="numpy")
 def gear_and_rpm(v, p, gears):
     """Gear index (0 = first) and engine speed [rpm] at speed v [m/s]: the lowest gear whose
     engine speed does not exceed the shift point, else top gear."""
@@ -395,7 +556,7 @@ def gear_and_rpm(v, p, gears):
     return n - 1, w * gears[n - 1]
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def engine_force(v, p, gears, trpm, tnm):
     """Largest drive force the powertrain gives at v [m/s], at the wheels [N]."""
     g, rpm = gear_and_rpm(v, p, gears)
@@ -409,18 +570,34 @@ def engine_force(v, p, gears, trpm, tnm):
     r = rpm
     if r < trpm[0]:
         r = trpm[0]
-    torque = np.interp(r, trpm, tnm)
+    torque = _interp(r, trpm, tnm)
     return torque * gears[g] * p[P_FINAL] * p[P_ETA] / p[P_RW]
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
+def _interp(x, xp, fp):
+    """np.interp(x, xp, fp) for increasing xp, held at the ends (the same arithmetic as
+    numpy's, without compiling its general implementation)."""
+    n = xp.shape[0]
+    if x <= xp[0]:
+        return fp[0]
+    if x >= xp[n - 1]:
+        return fp[n - 1]
+    j = 0
+    while xp[j + 1] <= x:
+        j += 1
+    slope = (fp[j + 1] - fp[j]) / (xp[j + 1] - xp[j])
+    return slope * (x - xp[j]) + fp[j]
+
+
+@njit(cache=True, error_model="numpy")
 def overrun_force(v, p, gears):
     """Engine-braking force at the wheels [N] (positive, retarding) in the current gear."""
     g, rpm = gear_and_rpm(v, p, gears)
     return p[P_OVERRUN] * gears[g] * p[P_FINAL] / p[P_RW]
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True, inline="always", error_model="numpy")
 def _resistance_nomap(v, kappa, grade, bank, p):
     """Drag + rolling resistance + grade force [N] without an aero map (independent of the
     control force, since the total normal load does not depend on it)."""
@@ -433,36 +610,36 @@ def _resistance_nomap(v, kappa, grade, bank, p):
     return f
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True, error_model="numpy")
 def ax_of_control(v, kappa, grade, bank, F, p, mx, my, mt, out):
     """Longitudinal acceleration [m/s²] at control F [N] (a closed form without a map)."""
     if p[P_USEMAP] == 0.0:
         return (F - _resistance_nomap(v, kappa, grade, bank, p)) / p[P_MASS]
-    state_control(v, kappa, grade, bank, F, p, mx, my, mt, out)
+    usage_control(v, kappa, grade, bank, F, p, mx, my, mt, out)
     return out[O_AX]
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True, error_model="numpy")
 def steady_control(v, kappa, grade, bank, p, mx, my, mt, out):
-    """Control force [N] holding speed (a_x = 0); ``out`` holds that state."""
+    """Control force [N] holding speed (a_x = 0); ``out`` holds that (lean) state."""
     if p[P_USEMAP] != 0.0:
-        return control_for_ax(v, kappa, grade, bank, 0.0, p, mx, my, mt, out)
+        return _control_for_ax_map(v, kappa, grade, bank, 0.0, p, mx, my, mt, out, False)
     # without a map drag and rolling resistance do not depend on the control: one evaluation
     F = _resistance_nomap(v, kappa, grade, bank, p)
-    state_control(v, kappa, grade, bank, F, p, mx, my, mt, out)
+    usage_control(v, kappa, grade, bank, F, p, mx, my, mt, out)
     return F
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True, error_model="numpy")
 def _g_control(v, kappa, grade, bank, F, p, mx, my, mt, out):
     """Usage excess max(u_f, u_r) - 1 at control F [N]; BIG when an axle unloads."""
-    st = state_control(v, kappa, grade, bank, F, p, mx, my, mt, out)
+    st = usage_control(v, kappa, grade, bank, F, p, mx, my, mt, out)
     if st != 0:
         return BIG
     return max_usage(out) - 1.0
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True, error_model="numpy")
 def _g_speed(v, kappa, grade, bank, p, mx, my, mt, out):
     """Usage excess at steady speed v [m/s]; BIG when an axle unloads or the car rolls."""
     steady_control(v, kappa, grade, bank, p, mx, my, mt, out)
@@ -471,7 +648,7 @@ def _g_speed(v, kappa, grade, bank, p, mx, my, mt, out):
     return max_usage(out) - 1.0
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _refine(kind, x_ok, g_ok, x_bad, g_bad, v, kappa, grade, bank, p, mx, my, mt, out, xtol):
     """Illinois (modified regula falsi) search for the feasibility boundary.
 
@@ -480,6 +657,72 @@ def _refine(kind, x_ok, g_ok, x_bad, g_bad, v, kappa, grade, bank, p, mx, my, mt
     boundary (or whose usage is within 2e-5 of 1). Falls back to bisection while g(x_bad) is
     not finite (an unloaded axle).
     """
+    return _illinois(kind, x_ok, g_ok, x_bad, g_bad, v, 0.0, kappa, grade, bank, p, mx, my,
+                     mt, out, xtol)
+
+
+#: Usage margin [-] a braking step keeps below 1 so that the force the final pass
+#: recomputes from the speed change (rounding apart) is feasible too.
+BRAKE_MARGIN = 1e-7
+
+
+@njit(cache=True, error_model="numpy")
+def _brake_speed(vnext, ds, kappa, grade, bank, F, p, mx, my, mt, out, evaluate):
+    """Speed [m/s] at a step of length ``ds`` [m] from which the control F [N], applied at
+    that speed, reaches ``vnext`` [m/s] at the next step (the implicit braking step).
+
+    Without a map drag, rolling resistance and grade force are R0 + R2 v² exactly, so the
+    speed is closed-form; with one, the closed form is iterated with the resistance of the
+    last evaluation (the ride heights move it). With ``evaluate`` (always with a map) ``out``
+    holds the lean state at the returned speed and the status is returned, else 0.
+    """
+    m = p[P_MASS]
+    r0 = _resistance_nomap(0.0, kappa, grade, bank, p)
+    vr = vnext if vnext > 1.0 else 1.0
+    r2 = (_resistance_nomap(vr, kappa, grade, bank, p) - r0) / (vr * vr)
+    top = vnext * vnext - 2.0 * ds * (F - r0) / m
+    v2 = top / (1.0 - 2.0 * ds * r2 / m)
+    v = math.sqrt(v2) if v2 > 0.0 else 0.0
+    if p[P_USEMAP] == 0.0:
+        if evaluate:
+            return v, usage_control(v, kappa, grade, bank, F, p, mx, my, mt, out)
+        return v, 0
+    st = 0
+    for _ in range(8):
+        st = usage_control(v, kappa, grade, bank, F, p, mx, my, mt, out)
+        r = F - m * out[O_AX]
+        r2 = (r - r0) / (v * v) if v > 1.0 else r2
+        v2 = top / (1.0 - 2.0 * ds * r2 / m)
+        vn = math.sqrt(v2) if v2 > 0.0 else 0.0
+        if abs(vn - v) <= 1e-10 * (1.0 + v):
+            break
+        v = vn
+    return v, st
+
+
+@njit(cache=True, error_model="numpy")
+def _g_brake(vnext, ds, kappa, grade, bank, F, p, mx, my, mt, out):
+    """Usage excess (plus :data:`BRAKE_MARGIN`) of the implicit braking step with control F."""
+    v, st = _brake_speed(vnext, ds, kappa, grade, bank, F, p, mx, my, mt, out, True)
+    if st != 0:
+        return BIG
+    return max_usage(out) - 1.0 + BRAKE_MARGIN
+
+
+@njit(cache=True, error_model="numpy")
+def _g_kind(kind, x, v, ds, kappa, grade, bank, p, mx, my, mt, out):
+    if kind == 0:
+        return _g_speed(x, kappa, grade, bank, p, mx, my, mt, out)
+    if kind == 1:
+        return _g_control(v, kappa, grade, bank, x, p, mx, my, mt, out)
+    return _g_brake(v, ds, kappa, grade, bank, x, p, mx, my, mt, out)
+
+
+@njit(cache=True, error_model="numpy")
+def _illinois(kind, x_ok, g_ok, x_bad, g_bad, v, ds, kappa, grade, bank, p, mx, my, mt, out,
+              xtol):
+    """:func:`_refine` for every kind; kind 2: x is the control [N] of an implicit braking
+    step reaching speed ``v`` [m/s] at the end of a step of ``ds`` [m]."""
     lo = x_ok
     hi = x_bad
     glo = g_ok
@@ -500,10 +743,7 @@ def _refine(kind, x_ok, g_ok, x_bad, g_bad, v, kappa, grade, bank, p, mx, my, mt
             b = hi - 0.02 * w
             if (x - a) * (x - b) > 0.0:  # outside the inner 96 % of the bracket
                 x = lo + 0.5 * w
-        if kind == 0:
-            gx = _g_speed(x, kappa, grade, bank, p, mx, my, mt, out)
-        else:
-            gx = _g_control(v, kappa, grade, bank, x, p, mx, my, mt, out)
+        gx = _g_kind(kind, x, v, ds, kappa, grade, bank, p, mx, my, mt, out)
         if gx <= 0.0:
             lo = x
             glo = gx
@@ -521,7 +761,7 @@ def _refine(kind, x_ok, g_ok, x_bad, g_bad, v, kappa, grade, bank, p, mx, my, mt
     return lo
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def largest_feasible_control(v, kappa, grade, bank, f_ok, f_bad, p, mx, my, mt, out, tol):
     """Feasible control [N] nearest the boundary between a feasible ``f_ok`` and an
     infeasible ``f_bad`` (either side)."""
@@ -532,7 +772,7 @@ def largest_feasible_control(v, kappa, grade, bank, f_ok, f_bad, p, mx, my, mt, 
     return _refine(1, f_ok, g_ok, f_bad, g_bad, v, kappa, grade, bank, p, mx, my, mt, out, tol)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _bracket_up(lo, glo, step, vcap, kappa, grade, bank, p, mx, my, mt, out):
     """From a feasible ``lo`` step up (step doubling) to the first infeasible speed or vcap.
 
@@ -549,7 +789,63 @@ def _bracket_up(lo, glo, step, vcap, kappa, grade, bank, p, mx, my, mt, out):
         step *= 2.0
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
+def _window_search(kind, x0, slope, v, ds, kappa, grade, bank, p, mx, my, mt, out, xtol,
+                   x_lo, x_hi, x_stop):
+    """Secant search from a neighbour's prediction ``x0`` for a feasible point on the
+    boundary: one whose usage excess g lies in (-2e-5, 0] (the acceptance of
+    :func:`_illinois`), aiming at -1e-5 with the slope dg/dx ``slope`` known from the
+    neighbouring step and corrected by each probe. x stays within [x_lo, x_hi]; at
+    ``x_stop`` (kind 1: the engine force) a feasible g is accepted. Kinds as
+    :func:`_illinois`.
+
+    Returns (x, slope, ok); ok False after 4 probes without success or on an unloaded axle
+    (the caller then runs its bracketing search).
+    """
+    x = x0
+    have_ok = False
+    have_bad = False
+    xo = 0.0
+    xb = 0.0
+    xp = math.nan
+    gp = math.nan
+    for _ in range(4):
+        g = _g_kind(kind, x, v, ds, kappa, grade, bank, p, mx, my, mt, out)
+        if g >= 0.5 * BIG:
+            return x, slope, False
+        if g <= 0.0:
+            if g > -2e-5 or x == x_stop:
+                return x, slope, True
+            have_ok = True
+            xo = x
+        else:
+            have_bad = True
+            xb = x
+        if have_ok and have_bad and abs(xb - xo) <= xtol:
+            return xo, slope, True
+        if not math.isnan(xp) and x != xp:
+            s = (g - gp) / (x - xp)
+            if s * slope > 0.0:
+                slope = s
+        xp = x
+        gp = g
+        if kind == 0 and x > 0.0:
+            # usage grows about as a power of speed (v² without aero): step in that model
+            e = slope * x / (1.0 + g)
+            xn = x * ((1.0 - 1e-5) / (1.0 + g)) ** (1.0 / e) if e > 0.1 else \
+                x - (g + 1e-5) / slope
+        else:
+            xn = x - (g + 1e-5) / slope
+        if have_ok and have_bad and (xn - xo) * (xn - xb) >= 0.0:
+            xn = 0.5 * (xo + xb)
+        xn = x_lo if xn < x_lo else (x_hi if xn > x_hi else xn)
+        if xn == x:
+            return x, slope, False
+        x = xn
+    return x, slope, False
+
+
+@njit(cache=True, error_model="numpy")
 def corner_limit(kappa, grade, bank, guess, lo_known, vcap, p, mx, my, mt, out, tol):
     """Highest steady speed [m/s] below the first infeasible one (both axles u <= 1).
 
@@ -631,7 +927,7 @@ def corner_limit(kappa, grade, bank, guess, lo_known, vcap, p, mx, my, mt, out, 
     return _refine(0, lo, glo, hi, ghi, 0.0, kappa, grade, bank, p, mx, my, mt, out, tol)
 
 
-@njit(cache=True, parallel=True)
+@njit(cache=True, parallel=True, error_model="numpy")
 def corner_limits(kappa, grade, bank, vcap, p, mx, my, mt, tol, nchunks):
     """Corner-speed limit [m/s] at every step; chunks run in parallel, each warm-started.
 
@@ -644,77 +940,131 @@ def corner_limits(kappa, grade, bank, vcap, p, mx, my, mt, tol, nchunks):
     vlim = np.empty(n)
     size = (n + nchunks - 1) // nchunks
     for c in prange(nchunks):
-        out = np.empty(NOUT)
-        prev_v = 0.0
-        prev_k = 0.0
-        prev_g = math.nan
-        prev_b = math.nan
-        start = c * size
-        stop = min(n, start + size)
-        for i in range(start, stop):
-            k = kappa[i]
-            same = grade[i] == prev_g and bank[i] == prev_b and prev_v > 0.0
-            lo_known = 0.0
-            guess = prev_v
-            if same:
-                if abs(k) <= abs(prev_k):
-                    if prev_v >= vcap:
-                        vlim[i] = vcap
-                        prev_k = k
-                        continue
-                    lo_known = prev_v
-                if k != 0.0 and prev_k != 0.0:
-                    r = math.sqrt(abs(prev_k) / abs(k))
-                    r = 0.8 if r < 0.8 else (1.25 if r > 1.25 else r)
-                    guess = prev_v * r
-            vl = corner_limit(k, grade[i], bank[i], guess, lo_known, vcap, p, mx, my, mt, out,
-                              tol)
-            vlim[i] = vl
-            prev_v = vl
-            prev_k = k
-            prev_g = grade[i]
-            prev_b = bank[i]
+        _corner_limits_chunk(kappa, grade, bank, vcap, p, mx, my, mt, tol, c * size,
+                             min(n, (c + 1) * size), vlim)
     return vlim
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
+def _corner_limits_chunk(kappa, grade, bank, vcap, p, mx, my, mt, tol, start, stop, vlim):
+    """Corner limits of steps start..stop-1 into ``vlim``, each warm-started from the last."""
+    out = np.full(NOUT, np.nan)
+    prev_v = 0.0
+    prev_k = 0.0
+    prev_g = math.nan
+    prev_b = math.nan
+    slope = math.nan  # d(usage)/dv at the neighbour's limit [s/m]
+    k_band = 0.0  # curvature of the last check for an infeasible band below the limit
+    since = 0
+    v2 = math.nan  # the limits two and three steps back (smooth curvature: extrapolate)
+    v3 = math.nan
+    for i in range(start, stop):
+        k = kappa[i]
+        same = grade[i] == prev_g and bank[i] == prev_b and prev_v > 0.0
+        lo_known = 0.0
+        guess = prev_v
+        if same:
+            if abs(k) <= abs(prev_k):
+                if prev_v >= vcap:
+                    vlim[i] = vcap
+                    prev_k = k
+                    continue
+                lo_known = prev_v
+            if k != 0.0 and prev_k != 0.0:
+                r = math.sqrt(abs(prev_k) / abs(k))
+                r = 0.8 if r < 0.8 else (1.25 if r > 1.25 else r)
+                guess = prev_v * r
+        vl = -1.0
+        since += 1
+        if same and prev_v < vcap and k != 0.0 and (k * prev_k > 0.0 or bank[i] == 0.0) \
+                and prev_k != 0.0 and \
+                not math.isnan(slope):
+            # the neighbour's limit, scaled, with its slope: a secant step or two; below
+            # a rising curvature, look for an infeasible band now and then
+            band_ok = True
+            if lo_known == 0.0 and (abs(k) > 1.05 * k_band or since > 32):
+                band_ok = _g_speed(0.5 * guess, kappa[i], grade[i], bank[i], p, mx, my,
+                                   mt, out) <= 0.0
+                k_band = abs(k)
+                since = 0
+            if band_ok:
+                if not math.isnan(v3):
+                    ge = 3.0 * prev_v - 3.0 * v2 + v3
+                    if abs(ge - guess) < 0.05 * guess:
+                        guess = ge
+                x, s2, ok = _window_search(0, guess, slope, 0.0, 0.0, k, grade[i], bank[i],
+                                           p, mx, my, mt, out, tol, V_MIN, vcap, -1.0)
+                if ok and x < vcap and x >= lo_known:
+                    vl = x
+                    slope = s2
+        if vl < 0.0:
+            vl = corner_limit(k, grade[i], bank[i], guess, lo_known, vcap, p, mx, my, mt,
+                              out, tol)
+            slope = 1.5 / vl if vl > V_MIN else math.nan
+            k_band = abs(k)
+            since = 0
+            v2 = math.nan
+            prev_v = math.nan
+        v3 = v2
+        v2 = prev_v
+        vlim[i] = vl
+        prev_v = vl
+        prev_k = k
+        prev_g = grade[i]
+        prev_b = bank[i]
+
+
+@njit(cache=True, error_model="numpy")
 def _search_from_hint(v, kappa, grade, bank, f_ok, g_ok, hint, direction, f_stop, p, mx, my,
                       mt, out, ftol):
     """Boundary of the feasible control interval beyond a feasible ``f_ok`` [N] in
     ``direction`` (+1 more drive, -1 more braking), starting near ``hint`` and not past
     ``f_stop`` (returned when everything up to it is feasible)."""
     m = p[P_MASS]
+    return _search_kind(1, v, 0.0, kappa, grade, bank, f_ok, g_ok, hint, 0.005 * m * G,
+                        0.02 * m * G, direction, f_stop, p, mx, my, mt, out, ftol)
+
+
+@njit(cache=True, error_model="numpy")
+def _search_kind(kind, v, ds, kappa, grade, bank, f_ok, g_ok, hint, back, step, direction,
+                 f_stop, p, mx, my, mt, out, ftol):
+    """:func:`_search_from_hint` for control kinds 1 and 2 (see :func:`_illinois`), with the
+    first step back from an infeasible hint ``back`` [N] and the first step on ``step`` [N]
+    (both doubling). ``g_ok`` NaN: not evaluated yet (it is, if needed; NaN is returned when
+    ``f_ok`` then proves infeasible)."""
     if not math.isnan(hint) and (hint - f_ok) * direction > 0.0 and \
             (f_stop - hint) * direction > 0.0:
-        g_h = _g_control(v, kappa, grade, bank, hint, p, mx, my, mt, out)
+        g_h = _g_kind(kind, hint, v, ds, kappa, grade, bank, p, mx, my, mt, out)
         if g_h > 0.0:
             # the boundary is just short of the hint: step back from it (doubling) to a
             # feasible point, so the bracket is narrow
             f_bad = hint
             g_bad = g_h
-            step = 0.005 * m * G
             while True:
-                f_try = f_bad - direction * step
+                f_try = f_bad - direction * back
                 if (f_try - f_ok) * direction <= 0.0:
                     break  # back at f_ok: use the wide bracket
-                g_try = _g_control(v, kappa, grade, bank, f_try, p, mx, my, mt, out)
+                g_try = _g_kind(kind, f_try, v, ds, kappa, grade, bank, p, mx, my, mt, out)
                 if g_try <= 0.0:
                     f_ok = f_try
                     g_ok = g_try
                     break
                 f_bad = f_try
                 g_bad = g_try
-                step *= 2.0
-            return _refine(1, f_ok, g_ok, f_bad, g_bad, v, kappa, grade, bank, p, mx, my, mt,
-                           out, ftol)
+                back *= 2.0
+            if math.isnan(g_ok):
+                g_ok = _g_kind(kind, f_ok, v, ds, kappa, grade, bank, p, mx, my, mt, out)
+                if g_ok > 0.0:
+                    return math.nan
+            return _illinois(kind, f_ok, g_ok, f_bad, g_bad, v, ds, kappa, grade, bank, p, mx,
+                             my, mt, out, ftol)
         f_ok = hint
         g_ok = g_h
-    step = 0.02 * m * G
     while True:
         f_bad = f_ok + direction * step
         if (f_bad - f_stop) * direction >= 0.0:
             f_bad = f_stop
-        g_bad = _g_control(v, kappa, grade, bank, f_bad, p, mx, my, mt, out)
+        g_bad = _g_kind(kind, f_bad, v, ds, kappa, grade, bank, p, mx, my, mt, out)
         if g_bad > 0.0:
             break
         if f_bad == f_stop:
@@ -722,15 +1072,28 @@ def _search_from_hint(v, kappa, grade, bank, f_ok, g_ok, hint, direction, f_stop
         f_ok = f_bad
         g_ok = g_bad
         step *= 2.0
-    return _refine(1, f_ok, g_ok, f_bad, g_bad, v, kappa, grade, bank, p, mx, my, mt, out,
-                   ftol)
+    if math.isnan(g_ok):
+        g_ok = _g_kind(kind, f_ok, v, ds, kappa, grade, bank, p, mx, my, mt, out)
+        if g_ok > 0.0:
+            return math.nan
+    return _illinois(kind, f_ok, g_ok, f_bad, g_bad, v, ds, kappa, grade, bank, p, mx, my, mt,
+                     out, ftol)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def max_accel_control(v, kappa, grade, bank, p, gears, trpm, tnm, mx, my, mt, out, ftol,
                       hint=math.nan):
     """Largest drive control [N] at v that the powertrain gives and both axles carry."""
     feng = engine_force(v, p, gears, trpm, tnm)
+    m = p[P_MASS]
+    return _max_accel_feng(v, kappa, grade, bank, feng, p, mx, my, mt, out, ftol, hint,
+                           0.005 * m * G, 0.02 * m * G)
+
+
+@njit(cache=True, error_model="numpy")
+def _max_accel_feng(v, kappa, grade, bank, feng, p, mx, my, mt, out, ftol, hint, back, step):
+    """:func:`max_accel_control` with the engine force ``feng`` [N] already known and the
+    search steps [N] of :func:`_search_kind`."""
     if _g_control(v, kappa, grade, bank, feng, p, mx, my, mt, out) <= 0.0:
         return feng
     fs = steady_control(v, kappa, grade, bank, p, mx, my, mt, out)
@@ -740,11 +1103,11 @@ def max_accel_control(v, kappa, grade, bank, p, gears, trpm, tnm, mx, my, mt, ou
     if feng <= fs:
         # the engine cannot hold speed and less drive is infeasible: least extra drive
         return _refine(1, fs, gs, feng, 1.0, v, kappa, grade, bank, p, mx, my, mt, out, ftol)
-    return _search_from_hint(v, kappa, grade, bank, fs, gs, hint, 1.0, feng, p, mx, my, mt,
-                             out, ftol)
+    return _search_kind(1, v, 0.0, kappa, grade, bank, fs, gs, hint, back, step, 1.0, feng, p,
+                        mx, my, mt, out, ftol)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def max_decel_control(v, kappa, grade, bank, p, mx, my, mt, out, ftol, hint=math.nan):
     """Smallest control [N] at v that both axles carry (most braking; positive when even
     coasting would saturate an axle and a little throttle is needed)."""
@@ -757,7 +1120,7 @@ def max_decel_control(v, kappa, grade, bank, p, mx, my, mt, out, ftol, hint=math
                              out, ftol)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, tnm, mx, my,
                  mt, ftol):
     """Forward (acceleration) and backward (braking) passes; returns the speed trace [m/s].
@@ -766,24 +1129,53 @@ def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, t
     the last step (NaN = free).
     """
     n = kappa.shape[0]
-    out = np.empty(NOUT)
+    out = np.full(NOUT, np.nan)
+    m = p[P_MASS]
     vf = np.empty(n)
     vf[0] = vlim[0] if math.isnan(v_start) else min(v_start, vlim[0])
-    hint = math.nan
+    hint = math.nan  # the last drive search's result [N] and the one before it
+    hint2 = math.nan
+    last = -10  # step of the last search
+    slope = math.nan  # d(usage)/dF at the last search's result [1/N]
     for i in range(n - 1):
         vi = vf[i]
         vt = vlim[i + 1]
+        feng = engine_force(vi, p, gears, trpm, tnm)  # once per step
         # can the car reach the next step's limit? one evaluation settles most steps
         need = (vt * vt - vi * vi) / (2.0 * ds)
         if need < 50.0:
-            fn = control_for_ax(vi, kappa[i], grade[i], bank[i], need, p, mx, my, mt, out)
-            if out[O_STATUS] == 0.0 and max_usage(out) <= 1.0 and \
-                    fn <= engine_force(vi, p, gears, trpm, tnm):
+            fn = control_for_ax_lean(vi, kappa[i], grade[i], bank[i], need, p, mx, my, mt, out)
+            if out[O_STATUS] == 0.0 and max_usage(out) <= 1.0 and fn <= feng:
                 vf[i + 1] = vt
                 continue
-        F = max_accel_control(vi, kappa[i], grade[i], bank[i], p, gears, trpm, tnm, mx, my,
-                              mt, out, ftol, hint)
+        if last == i - 1 and not math.isnan(hint):
+            # warm start: extrapolate the neighbouring searches, with small search steps
+            guess = hint if math.isnan(hint2) else 2.0 * hint - hint2
+            d = 0.5 * abs(hint - hint2) if not math.isnan(hint2) else 0.005 * m * G
+            d = d if d > 4.0 * ftol else 4.0 * ftol
+            fs = _resistance_nomap(vi, kappa[i], grade[i], bank[i], p)
+            F = math.nan
+            if guess < feng and fs < feng and not math.isnan(slope):
+                x, s2, ok = _window_search(1, guess, slope, vi, 0.0, kappa[i], grade[i],
+                                           bank[i], p, mx, my, mt, out, ftol, fs, feng, feng)
+                if ok:
+                    F = x
+                    slope = s2
+            if math.isnan(F) and guess < feng and fs < feng:
+                F = _search_kind(1, vi, 0.0, kappa[i], grade[i], bank[i], fs, math.nan, guess,
+                                 d, d, 1.0, feng, p, mx, my, mt, out, ftol)
+            if math.isnan(F):
+                F = _max_accel_feng(vi, kappa[i], grade[i], bank[i], feng, p, mx, my, mt, out,
+                                    ftol, guess, d, d)
+            hint2 = hint
+        else:
+            F = _max_accel_feng(vi, kappa[i], grade[i], bank[i], feng, p, mx, my, mt, out,
+                                ftol, math.nan, 0.005 * m * G, 0.02 * m * G)
+            hint2 = math.nan
+        if math.isnan(slope):
+            slope = 1.0 / (p[P_MUXR] * (m * G + abs(out[O_DOWNF])))  # about 1 / grip
         hint = F
+        last = i
         ax = ax_of_control(vi, kappa[i], grade[i], bank[i], F, p, mx, my, mt, out)
         v2 = vi * vi + 2.0 * ax * ds
         vn = math.sqrt(v2) if v2 > 0.0 else 0.0
@@ -791,80 +1183,97 @@ def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, t
     vb = np.empty(n)
     vb[n - 1] = vlim[n - 1] if math.isnan(v_end) else min(v_end, vlim[n - 1])
     hint = math.nan
-    a_prev = math.nan
+    hint2 = math.nan
+    last = n + 10
+    slope = math.nan
     for i in range(n - 2, -1, -1):
         # braking into the speed the car has at the next step (the slower of the traces)
         vnext = vb[i + 1] if vb[i + 1] < vf[i + 1] else vf[i + 1]
         if vnext >= vlim[i] or vnext >= vf[i]:
             # not braking into step i+1 from here: the limit (or the forward trace) rules
             vb[i] = vlim[i]
-            hint = math.nan
-            a_prev = math.nan
             continue
-        # implicit step: the deceleration is evaluated at this step's own speed, so the
-        # force the final pass reports here is the one that produced the trace
-        vp = vnext
-        if not math.isnan(a_prev):
-            v2 = vnext * vnext - 2.0 * a_prev * ds
-            vp = math.sqrt(v2) if v2 > 0.0 else vnext
-        if vlim[i] < vnext * 1.02:
-            # can the car brake from its limit here to the next step's speed?
-            need = (vnext * vnext - vlim[i] * vlim[i]) / (2.0 * ds)
-            control_for_ax(vlim[i], kappa[i], grade[i], bank[i], need, p, mx, my, mt, out)
-            if out[O_STATUS] == 0.0 and max_usage(out) <= 1.0:
-                vb[i] = vlim[i]
-                hint = math.nan
-                a_prev = math.nan
-                continue
-        for _ in range(4):
-            ve = vp if vp < vlim[i] else vlim[i]
-            F = max_decel_control(ve, kappa[i], grade[i], bank[i], p, mx, my, mt, out, ftol,
-                                  hint)
+        cap = vf[i]  # the forward trace: no braking speed above it matters
+        if last != i + 1 and _brakes_from(cap, vnext, ds, kappa[i], grade[i], bank[i], p, mx,
+                                          my, mt, out):
+            vb[i] = cap  # the start of a braking zone: the forward trace brakes in time
+            continue
+        # implicit step: the force is applied at this step's own speed v, which follows from
+        # v² = vnext² - 2 a_x(v, F) ds; a bracketed search over F on the grip boundary, warm-
+        # started from the neighbouring steps' forces
+        if last == i + 1 and not math.isnan(hint):
+            guess = hint if math.isnan(hint2) else 2.0 * hint - hint2
+            d = 0.5 * abs(hint - hint2) if not math.isnan(hint2) else 0.005 * m * G
+            d = d if d > 4.0 * ftol else 4.0 * ftol
+            back = d
+            step = d
+        else:
+            guess = math.nan
+            back = 0.005 * m * G
+            step = 0.02 * m * G
+        f_ok = _resistance_nomap(vnext, kappa[i], grade[i], bank[i], p)  # about steady
+        qc = p[P_RHO] * cap * cap
+        f_stop = -5.0 * m * G - 5.0 * qc * (abs(p[P_CLAF]) + abs(p[P_CLAR]) + 1.0)
+        F = math.nan
+        if not math.isnan(guess) and not math.isnan(slope) and f_stop < guess < f_ok:
+            x, s2, ok = _window_search(2, guess, slope, vnext, ds, kappa[i], grade[i], bank[i],
+                                       p, mx, my, mt, out, ftol, f_stop, f_ok, f_stop)
+            if ok:
+                F = x
+                slope = s2
+        if math.isnan(F):
+            F = _search_kind(2, vnext, ds, kappa[i], grade[i], bank[i], f_ok, math.nan, guess,
+                             back, step, -1.0, f_stop, p, mx, my, mt, out, ftol)
+            slope = -1.0 / (p[P_MUXF] * (m * G + abs(out[O_DOWNF])))
+        if not math.isnan(F):
+            hint2 = hint if last == i + 1 else math.nan
             hint = F
-            ax = ax_of_control(ve, kappa[i], grade[i], bank[i], F, p, mx, my, mt, out)
-            a_prev = ax
-            v2 = vnext * vnext - 2.0 * ax * ds
-            vnew = math.sqrt(v2) if v2 > 0.0 else 0.0
-            done = abs(vnew - vp) < 1e-5
-            vp = vnew
-            if done or vp >= vlim[i]:
-                break
-        vc = vp if vp < vlim[i] else vlim[i]
-        # the speed must be one the car can brake from to vnext with the force applied at
-        # that speed (the final pass applies it): else the fastest such speed (bisection)
-        if not _brakes_from_full(vc, vnext, ds, kappa[i], grade[i], bank[i], p, mx, my, mt,
-                                 out):
-            lo = vnext
-            hi = vc
-            for _ in range(40):
-                mid = 0.5 * (lo + hi)
-                if _brakes_from_full(mid, vnext, ds, kappa[i], grade[i], bank[i], p, mx, my,
-                                     mt, out):
-                    lo = mid
-                else:
-                    hi = mid
-            vc = lo
-            a_prev = math.nan
+            last = i
+            vi, st = _brake_speed(vnext, ds, kappa[i], grade[i], bank[i], F, p, mx, my, mt,
+                                  out, False)
+            if vi < cap and vi >= vnext:
+                vb[i] = vi
+                continue
+        else:
             hint = math.nan
-        vb[i] = vc
+            last = n + 10
+        # the braking curve lies above the forward trace: brake from the forward trace if
+        # the car can, else from the fastest speed below it it can brake from (bisection)
+        if _brakes_from(cap, vnext, ds, kappa[i], grade[i], bank[i], p, mx, my, mt, out):
+            vb[i] = cap
+            continue
+        lo = vnext
+        hi = cap
+        for _ in range(40):
+            mid = 0.5 * (lo + hi)
+            if _brakes_from(mid, vnext, ds, kappa[i], grade[i], bank[i], p, mx, my, mt, out):
+                lo = mid
+            else:
+                hi = mid
+        vb[i] = lo
     v = np.empty(n)
     for i in range(n):
         v[i] = vf[i] if vf[i] < vb[i] else vb[i]
     return v
 
 
-@njit(cache=True)
-def _brakes_from_full(v, vnext, ds, kappa, grade, bank, p, mx, my, mt, out):
-    """True when the step from v [m/s] to vnext over ds [m] is feasible."""
+@njit(cache=True, error_model="numpy")
+def _brakes_from(v, vnext, ds, kappa, grade, bank, p, mx, my, mt, out):
+    """True when the step from speed v [m/s] to ``vnext`` over ``ds`` [m] is feasible with
+    the usage margin of the braking search (the force the final pass will apply)."""
     a_req = (vnext * vnext - v * v) / (2.0 * ds)
-    control_for_ax(v, kappa, grade, bank, a_req, p, mx, my, mt, out)
-    return out[O_STATUS] == 0.0 and max_usage(out) <= 1.0
+    control_for_ax_lean(v, kappa, grade, bank, a_req, p, mx, my, mt, out)
+    return out[O_STATUS] == 0.0 and max_usage(out) <= 1.0 - BRAKE_MARGIN
 
 
 NCH = 40  # channels written by final_pass per step
+#: Usage [-] above 1 the final pass still takes as the force the passes found feasible: the
+#: passes searched at the same speed and force, so only rounding (and the warm-started ride
+#: heights, to 1e-9 m) can move the recomputed usage, by far less than this.
+USAGE_SLACK = 1e-9
 
 
-@njit(cache=True, parallel=True)
+@njit(cache=True, parallel=True, error_model="numpy")
 def final_pass(v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm, tnm, mx, my, mt,
                ftol, ay_liftoff):
     """Per-step force balance consistent with the speed trace, all load parts, usages,
@@ -878,15 +1287,15 @@ def final_pass(v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm, tnm
     nchunks = 8 if n > 400 else 1
     size = (n + nchunks - 1) // nchunks
     for ch in prange(nchunks):
-        out = np.empty(NOUT)
-        tmp = np.empty(NOUT)
+        out = np.full(NOUT, np.nan)
+        tmp = np.full(NOUT, np.nan)
         for i in range(ch * size, min(n, (ch + 1) * size)):
             _final_step(i, v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm, tnm,
                         mx, my, mt, ftol, ay_liftoff, res, out, tmp)
     return res
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _final_step(i, v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm, tnm, mx, my,
                 mt, ftol, ay_liftoff, res, out, tmp):
     """One step of :func:`final_pass` (fills row ``i`` of ``res``)."""
@@ -903,7 +1312,7 @@ def _final_step(i, v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm,
     if F > feng:
         F = feng
         state_control(vi, kappa[i], grade[i], bank[i], F, p, mx, my, mt, out)
-    if out[O_STATUS] != 0.0 or max_usage(out) > 1.0:
+    if out[O_STATUS] != 0.0 or max_usage(out) > 1.0 + USAGE_SLACK:
         fs = steady_control(vi, kappa[i], grade[i], bank[i], p, mx, my, mt, tmp)
         if tmp[O_STATUS] == 0.0 and max_usage(tmp) <= 1.0:
             F = largest_feasible_control(vi, kappa[i], grade[i], bank[i], fs, F, p, mx, my,
@@ -1120,7 +1529,7 @@ def liftoff_margins(kappa, grade, bank, vlim, checked, p, gears, mx, my, mt, tol
     res = np.full((n, NMARGIN), np.nan)
     size = (n + nchunks - 1) // nchunks
     for c in prange(nchunks):
-        out = np.empty(NOUT)
+        out = np.full(NOUT, np.nan)
         prev = -10
         r_on = 1.0
         r_co = 1.0
@@ -1158,10 +1567,12 @@ def liftoff_response(kappa, grade, bank, speeds, p, gears, mx, my, mt):
     """
     n = speeds.shape[0]
     res = np.empty((n, 3, NOUT))
-    out = np.empty(NOUT)
+    out = np.full(NOUT, np.nan)
     for i in range(n):
         v = speeds[i]
-        steady_control(v, kappa, grade, bank, p, mx, my, mt, out)
+        # steady_control leaves a lean state (usages only): evaluate the full one at its force
+        F = steady_control(v, kappa, grade, bank, p, mx, my, mt, out)
+        state_control(v, kappa, grade, bank, F, p, mx, my, mt, out)
         for k in range(NOUT):
             res[i, 0, k] = out[k]
         for mode in range(2):

@@ -9,7 +9,9 @@ lap closes on itself. Each step's a_x comes from the force balance applied there
 
 from __future__ import annotations
 
+import contextlib
 import math
+import os
 import warnings
 from dataclasses import dataclass, field
 from typing import Any
@@ -47,6 +49,12 @@ LIMIT_NAMES = {
 #: Default lateral-acceleration threshold for the lift-off check [m/s²]: ISO 9816 starts its
 #: power-off-in-a-turn runs from a steady turn at about 4 m/s² (ISO 9816:2018).
 LIFTOFF_AY_THRESHOLD = 4.0
+
+#: Fewest steps [-] and cores [-] for which a single lap runs its parallel kernels on several
+#: numba threads; below either, one thread is quicker: a lap of a few thousand steps takes
+#: milliseconds, less than waking and joining threads costs on a busy machine.
+PARALLEL_MIN_STEPS = 50_000
+PARALLEL_MIN_CORES = 4
 
 
 # Unit and meaning of every channel (name -> (unit, description)); DEVELOPERS.md glossary.
@@ -352,7 +360,10 @@ def simulate_lap(car: Car, track, *, start_speed_kph: float | None = None,
             raise InputError(f"track {name} has non-finite values", track.source)
     vcap = speed_cap(car)
     nchunks = 8 if n > 400 else 1
-    vlim = _corner_limits_kernel(kappa, grade, bank, vcap, p, mx, my, mt, SPEED_TOL, nchunks)
+    threads = solver_threads(n)
+    with _threads(threads):
+        vlim = _corner_limits_kernel(kappa, grade, bank, vcap, p, mx, my, mt, SPEED_TOL,
+                                     nchunks)
     bad = np.flatnonzero(vlim <= 0.0)
     if bad.size:
         i = int(bad[0])
@@ -380,8 +391,9 @@ def simulate_lap(car: Car, track, *, start_speed_kph: float | None = None,
         tail = float(v[0])
     else:
         tail = closed_tail_speed
-    res = _final_pass_kernel(v, kappa, grade, bank, ds, tail, vcap, p, gears, trpm, tnm, mx,
-                             my, mt, FORCE_TOL, liftoff_ay_threshold)
+    with _threads(threads):
+        res = _final_pass_kernel(v, kappa, grade, bank, ds, tail, vcap, p, gears, trpm, tnm,
+                                 mx, my, mt, FORCE_TOL, liftoff_ay_threshold)
     vnext = np.append(v[1:], v[0] if track.closed else v[-1])
     vsum = v + vnext
     if np.any(vsum[: n if track.closed else n - 1] <= 0.0):
@@ -393,9 +405,10 @@ def simulate_lap(car: Car, track, *, start_speed_kph: float | None = None,
         dt[-1] = 0.0
     time = np.concatenate([[0.0], np.cumsum(dt)[:-1]])
     lap_time = float(dt.sum())
-    mres = _liftoff_margins_kernel(kappa, grade, bank, vlim,
-                                   np.ascontiguousarray(res[:, _k.NOUT + 6]), p, gears, mx,
-                                   my, mt, MARGIN_TOL, nchunks)
+    with _threads(threads):
+        mres = _liftoff_margins_kernel(kappa, grade, bank, vlim,
+                                       np.ascontiguousarray(res[:, _k.NOUT + 6]), p, gears,
+                                       mx, my, mt, MARGIN_TOL, nchunks)
     ch = _channels(car, track, v, vlim, res, time)
     _margin_channels(ch, vlim, mres)
     if np.any(ch["floor_contact"] > 0):
@@ -597,7 +610,7 @@ def steady_state(car: Car, speed: float, curvature: float = 0.0, grade: float = 
         control force [N] and every state quantity (keys as the ``O_*`` names, lower case).
     """
     p, gears, trpm, tnm, mx, my, mt = car_parameters(car)
-    out = np.empty(_k.NOUT)
+    out = np.full(_k.NOUT, np.nan)
     F = _k.control_for_ax(speed, curvature, grade, bank, ax, p, mx, my, mt, out)
     d = _state_dict(out)
     d["control_n"] = float(F)
@@ -628,7 +641,7 @@ def limits_at(car: Car, speed: float, curvature: float = 0.0, grade: float = 0.0
         (steady corner-speed limit at this curvature) [m/s].
     """
     p, gears, trpm, tnm, mx, my, mt = car_parameters(car)
-    out = np.empty(_k.NOUT)
+    out = np.full(_k.NOUT, np.nan)
     fa = _k.max_accel_control(speed, curvature, grade, bank, p, gears, trpm, tnm, mx, my, mt,
                               out, FORCE_TOL)
     _k.state_control(speed, curvature, grade, bank, fa, p, mx, my, mt, out)
@@ -661,7 +674,7 @@ def evaluate_forces(car: Car, speed: float, curvature: float = 0.0, grade: float
         Every state quantity (keys as the ``O_*`` names in lower case, SI units).
     """
     p, gears, trpm, tnm, mx, my, mt = car_parameters(car)
-    out = np.empty(_k.NOUT)
+    out = np.full(_k.NOUT, np.nan)
     _k.state(speed, curvature, grade, bank, drive_n, brake_n, p, mx, my, mt, out)
     return _state_dict(out)
 

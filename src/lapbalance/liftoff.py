@@ -312,7 +312,7 @@ def margin_at(car, curvature: float, grade: float = 0.0, bank: float = 0.0,
         the limit).
     """
     p, gears, trpm, tnm, mx, my, mt = car_parameters(car)
-    out = np.empty(_k.NOUT)
+    out = np.full(_k.NOUT, np.nan)
     vl = _k.corner_limit(curvature, grade, bank, 0.0, 0.0, speed_cap(car), p, mx, my, mt,
                          out, 1e-4)
     vs, ut = _k.liftoff_safe_speed(curvature, grade, bank, vl, 0.0, 1 if coast else 0, p,

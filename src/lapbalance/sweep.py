@@ -16,7 +16,8 @@ Where the points run:
   runs in this process first, so the on-disk numba cache is warm before the workers start.
 * ``cluster="tcp://host:8786"``: the points are submitted to an existing Dask distributed
   scheduler (optional extra ``lapbalance[cluster]``); lapbalance must be importable on the
-  workers.
+  workers. Points travel in small batches (a lap takes milliseconds, about a task's round
+  trip), each run with one numba thread, so a worker's threads do not oversubscribe it.
 
 Resuming: with ``out``, every finished point is appended to ``OUT/sweep.csv`` at once (one
 line, flushed to disk), keyed by a ``point`` column. Rerunning the same sweep into the same
@@ -693,6 +694,23 @@ def _run_pool(workers, raw, source, track, todo, options, record) -> None:
         ex.shutdown(wait=True, cancel_futures=True)
 
 
+#: Most sweep points one Dask task runs.
+_DASK_BATCH_MAX = 16
+
+
+def _dask_batch(raw, source, track, points, options) -> list[dict]:
+    """Run a few sweep points on a Dask worker, numba single-threaded: a worker process
+    runs one task per thread it has, so more numba threads would oversubscribe its cores."""
+    try:
+        import numba
+
+        if numba.get_num_threads() != 1:
+            numba.set_num_threads(1)
+    except (ImportError, ValueError):  # pragma: no cover - numba always present
+        pass
+    return [run_point(raw, source, track, p, options) for p in points]
+
+
 def _run_dask(cluster, raw, source, track, todo, options, record) -> None:
     try:
         from dask.distributed import Client, as_completed
@@ -713,10 +731,16 @@ def _run_dask(cluster, raw, source, track, todo, options, record) -> None:
         if not todo:
             return
         track_f = client.scatter(track, broadcast=True)
-        futures = [client.submit(run_point, raw, source, track_f, p, options, pure=False)
-                   for p in todo]
+        # a few points per task: a lap takes milliseconds, a task round trip about as long;
+        # four batches per worker thread keep the workers evenly busy to the end
+        slots = max(1, sum(client.nthreads().values()))
+        size = max(1, min(_DASK_BATCH_MAX, len(todo) // (4 * slots)))
+        batches = [todo[i:i + size] for i in range(0, len(todo), size)]
+        futures = [client.submit(_dask_batch, raw, source, track_f, b, options, pure=False)
+                   for b in batches]
         for f in as_completed(futures):
-            record(f.result())
+            for row in f.result():
+                record(row)
     finally:
         if futures:
             client.cancel(futures)

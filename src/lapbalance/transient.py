@@ -303,7 +303,7 @@ def _guess(model: Model, speed: float, radius: float) -> np.ndarray:
     car, p = model.car, model.p
     ch = car.chassis
     tr = car.transient
-    out = np.empty(_k.NOUT)
+    out = np.full(_k.NOUT, np.nan)
     F = _k.steady_control(speed, 1.0 / radius, 0.0, 0.0, p, model.mx, model.my, model.mt, out)
     ay = speed * speed / radius
     fyf = ch.mass * ay * ch.b / ch.wheelbase
@@ -337,7 +337,7 @@ def _steady(model: Model, speed: float, radius: float, guess=None,
                                  x)
     # loads and usages at the solution
     y = _initial_state(x, speed, radius)
-    out = np.empty(_k.NOUT)
+    out = np.full(_k.NOUT, np.nan)
     aux = np.empty(_tk.NA)
     dy = np.empty(_tk.NY)
     q[_tk.Q_DELTA], q[_tk.Q_F0] = x[0], x[2]
@@ -406,7 +406,7 @@ def steady_limit(car: Car, radius: float, model: Model | None = None,
     """
     radius = _check_radius(radius)
     model = model or model_parameters(car)
-    out = np.empty(_k.NOUT)
+    out = np.full(_k.NOUT, np.nan)
     vcap = speed_cap(car)
     vlap = _k.corner_limit(1.0 / radius, 0.0, 0.0, 0.0, 0.0, vcap, model.p, model.mx, model.my,
                            model.mt, out, SPEED_TOL)
@@ -691,7 +691,7 @@ def sweep(car: Car, radius: float, *, ay_start: float = AY_START, ay_step: float
         raise InputError(f"= {ay_start:g} m/s² must be between 0 and 50 m/s²", "--ay-start")
     model = model_parameters(car, ramp_s)
     lim = steady_limit(car, radius, model)
-    out = np.empty(_k.NOUT)
+    out = np.full(_k.NOUT, np.nan)
     vlap = _k.corner_limit(1.0 / radius, 0.0, 0.0, 0.0, 0.0, speed_cap(car), model.p,
                            model.mx, model.my, model.mt, out, SPEED_TOL)
     runs = []

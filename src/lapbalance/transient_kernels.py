@@ -276,7 +276,7 @@ def integrate(y0, q, p, mx, my, mt, dt, n_steps, stop_beta, v_stop, hist):
     the state at ``t = i dt``. The run stops (rows after it NaN) when |sideslip| exceeds
     ``stop_beta`` [rad] or the speed falls below ``v_stop`` [m/s]. Returns (status, rows).
     """
-    out = np.empty(NOUT)
+    out = np.full(NOUT, np.nan)
     aux = np.empty(NA)
     k1 = np.empty(NY)
     k2 = np.empty(NY)
@@ -348,7 +348,7 @@ def steady_turn(speed, radius, x0, q, p, mx, my, mt, x):
     scratch for the steer and drive entries (left at the solution). Returns a status
     (``SS_*``) and leaves the solution in ``x``.
     """
-    out = np.empty(NOUT)
+    out = np.full(NOUT, np.nan)
     aux = np.empty(NA)
     dy = np.empty(NY)
     y = np.empty(NY)

@@ -117,10 +117,20 @@ def available_longitudinal(fy, cap_x, cap_y):
     return cap_x * math.sqrt(r) if r > 0.0 else 0.0
 
 
-@vectorize(["float64(float64, float64, float64, float64)"], cache=True)
-def tyre_capacity_array(fz, mu0, k, fz0):
-    """Vectorised :func:`tyre_capacity` [N]."""
+def _capacity_scalar(fz, mu0, k, fz0):
     return tyre_capacity(fz, mu0, k, fz0)
+
+
+_CAPACITY_UFUNC = []
+
+
+def tyre_capacity_array(fz, mu0, k, fz0):
+    """Vectorised :func:`tyre_capacity` [N] (a numpy ufunc, built on first use so that
+    importing this module does not load it)."""
+    if not _CAPACITY_UFUNC:
+        _CAPACITY_UFUNC.append(vectorize(["float64(float64, float64, float64, float64)"],
+                                         cache=True)(_capacity_scalar))
+    return _CAPACITY_UFUNC[0](fz, mu0, k, fz0)
 
 
 def peak_load(k: float, fz0: float) -> float:

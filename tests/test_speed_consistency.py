@@ -1,0 +1,55 @@
+"""Every step's reported a_x is the one its speed change needs, wherever a force acts.
+
+The quasi-static solver reports, per step, the force balance it applied; the speed trace must
+follow from it by the constant-acceleration step v[i+1]² = v[i]² + 2 a_x ds (the
+kinematics of the discretisation, docs/method.md "The solver"). The backward pass solves
+its braking step implicitly (the force applied at the step's own speed), so this must hold
+at every step, including where the acceleration and braking traces meet.
+"""
+
+import warnings
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from lapbalance.car import load_car
+from lapbalance.lap import simulate_lap
+from lapbalance.track import load_track
+from tests.helpers import wavy_circuit
+
+ROOT = Path(__file__).resolve().parents[1]
+CARS = [p.name for p in sorted((ROOT / "examples").glob("*.toml"))
+        if not p.name.startswith("targets")]
+
+
+def _tracks():
+    return {"veldmoor_ring": load_track(ROOT / "tracks" / "veldmoor_ring.csv"),
+            "skarhelm_climb": load_track(ROOT / "tracks" / "skarhelm_climb.csv"),
+            "wavy": wavy_circuit(3000.0, 1.0, seed=5)}
+
+
+TRACKS = _tracks()
+
+
+@pytest.mark.parametrize("track", list(TRACKS))
+@pytest.mark.parametrize("car", CARS)
+def test_reported_ax_matches_the_speed_change(car, track):
+    tr = TRACKS[track]
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        r = simulate_lap(load_car(ROOT / "examples" / car), tr, assess_liftoff=False)
+    ch = r.channels
+    v = ch["speed_mps"]
+    vnext = np.append(v[1:], v[0]) if tr.closed else v[1:]
+    ax = ch["ax_mps2"][: len(vnext)]
+    ds = float(tr.step_m)
+    need = (vnext ** 2 - v[: len(vnext)] ** 2) / (2.0 * ds)
+    force = (ch["drive_force_n"] + ch["brake_force_n"])[: len(vnext)]
+    acting = np.ones(len(vnext), bool)  # every step applies a force balance (coasting too)
+    err = np.abs(ax - need)[acting]
+    worst = int(np.argmax(err))
+    assert err.max() <= 1e-6, (f"step {worst}: a_x {ax[worst]:.6f} vs speed change "
+                               f"{need[worst]:.6f} m/s², force {force[worst]:.1f} N")
+    # the check is not empty: the lap brakes hard and accelerates
+    assert need.min() < -5.0 and need.max() > 1.0
