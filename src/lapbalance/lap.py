@@ -313,6 +313,33 @@ def _jsonable(v):
     return v
 
 
+def solver_threads(n_steps: int) -> int:
+    """Numba threads a lap of ``n_steps`` steps uses: 1 unless it is long
+    (:data:`PARALLEL_MIN_STEPS`) and the machine has :data:`PARALLEL_MIN_CORES` cores; then the
+    numba thread count, which sweep workers set to 1 (so N workers use N cores)."""
+    import numba
+
+    cores = os.cpu_count() or 1
+    if n_steps < PARALLEL_MIN_STEPS or cores < PARALLEL_MIN_CORES:
+        return 1
+    return min(numba.get_num_threads(), cores)
+
+
+@contextlib.contextmanager
+def _threads(n: int):
+    """Run the parallel kernels on ``n`` numba threads (this thread's setting, restored)."""
+    import numba
+
+    before = numba.get_num_threads()
+    if n != before:
+        numba.set_num_threads(n)
+    try:
+        yield
+    finally:
+        if n != before:
+            numba.set_num_threads(before)
+
+
 def simulate_lap(car: Car, track, *, start_speed_kph: float | None = None,
                  liftoff_ay_threshold: float = LIFTOFF_AY_THRESHOLD,
                  assess_liftoff: bool = True) -> LapResult:

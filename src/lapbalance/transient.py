@@ -305,6 +305,8 @@ def _guess(model: Model, speed: float, radius: float) -> np.ndarray:
     tr = car.transient
     out = np.full(_k.NOUT, np.nan)
     F = _k.steady_control(speed, 1.0 / radius, 0.0, 0.0, p, model.mx, model.my, model.mt, out)
+    # steady_control leaves a lean state (usages only): the loads and capacities at that force
+    _k.state_control(speed, 1.0 / radius, 0.0, 0.0, F, p, model.mx, model.my, model.mt, out)
     ay = speed * speed / radius
     fyf = ch.mass * ay * ch.b / ch.wheelbase
     fyr = ch.mass * ay * ch.a / ch.wheelbase
