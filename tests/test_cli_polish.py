@@ -249,7 +249,8 @@ def test_auto_workers():
     from lapbalance.sweep import auto_workers
 
     assert auto_workers(10, cpus=2) == 1
-    assert auto_workers(480, cpus=2) == 2
+    assert auto_workers(480, cpus=2) == 1
+    assert auto_workers(600, cpus=2) == 2
     assert auto_workers(10_000, cpus=64) == 8
     h = run("sweep", "--help").output
     assert "one per CPU core" in h

@@ -195,9 +195,10 @@ def auto_workers(n_points: int, cpus: int | None = None) -> int:
     return max(1, min(int(cpus), 8, int(n_points) // POINTS_PER_WORKER))
 
 
-#: Points per worker below which a pool costs more to start than it saves (measured, see
-#: DEVELOPERS.md "Sweep workers").
-POINTS_PER_WORKER = 50
+#: Points per worker below which a pool costs more to start than it saves (measured on a
+#: 5 km circuit, 2 cores, after the solver speed work: 200 points ran 0.57x as fast on 2
+#: workers as on 1, 1000 points 1.48x; see DEVELOPERS.md "Sweep workers").
+POINTS_PER_WORKER = 250
 
 
 def point_key(point: Mapping[str, float]) -> str:
