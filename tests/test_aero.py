@@ -7,8 +7,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from lapbalance import aero
-from tests.reference_cases import (A, CASES, CD, HD, WB, drag_free_split, ids,
-                                   three_bookkeepings)
+from tests.reference_cases import CASES, CD, HD, WB, A, drag_free_split, ids, three_bookkeepings
 
 # --------------------------------------------------------------------------------------------
 # SAE J1594 round trip

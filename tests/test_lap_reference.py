@@ -11,9 +11,17 @@ import numpy as np
 import pytest
 
 from lapbalance.units import G0
-from tests.reference_cases import (BRAKE_BIAS, CASES, DOWNFORCE_CIRCLES, brake_zone,
-                                   circle_lap, downforce_circle_lap, ids, power_straight,
-                                   top_speed_lap)
+from tests.reference_cases import (
+    BRAKE_BIAS,
+    CASES,
+    DOWNFORCE_CIRCLES,
+    brake_zone,
+    circle_lap,
+    downforce_circle_lap,
+    ids,
+    power_straight,
+    top_speed_lap,
+)
 
 
 @pytest.mark.parametrize("mu, radius", [(1.0, 50.0), (1.4, 120.0)])

@@ -13,11 +13,11 @@ import pytest
 from click.testing import CliRunner
 
 from lapbalance import provenance
-from lapbalance.rerun import rerun
 from lapbalance.car import load_car
 from lapbalance.cli import main
 from lapbalance.errors import InputError
 from lapbalance.lap import simulate_lap
+from lapbalance.rerun import rerun
 from lapbalance.track import load_track
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -155,7 +155,8 @@ def test_json_outputs_carry_provenance(tmp_path):
                                   "--step-m", "2", "--json"])
     doc = json.loads(r.output)
     assert doc["provenance"]["inputs"][0]["role"] == "car"
-    assert set(doc["liftoff_verdicts"]) >= {"lift-critical", "lift-marginal", "lift-close", "lift-safe"}
+    assert set(doc["liftoff_verdicts"]) >= {"lift-critical", "lift-marginal", "lift-close",
+                                            "lift-safe"}
     r = CliRunner().invoke(main, ["track", str(TR / "veldmoor_ring.csv"), "--json"])
     assert json.loads(r.output)["provenance"]["inputs"][0]["role"] == "track"
     r = CliRunner().invoke(main, ["check", str(EX / "gt_coupe.toml"),

@@ -7,10 +7,9 @@ SI units throughout (m, s, kg, N, rad, W, Pa).
 
 from __future__ import annotations
 
-from lapbalance.version import __version__  # noqa: E402
-
 from lapbalance.car import Car, load_car  # noqa: E402
 from lapbalance.errors import InputError, PhysicsWarning  # noqa: E402
+from lapbalance.version import __version__  # noqa: E402
 
 __all__ = [
     "Car",

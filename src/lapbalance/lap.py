@@ -198,7 +198,8 @@ class LapResult:
         bal = s["aero_balance_front_cg"]
         low = s.get("liftoff_margin_min")
         rows = [(self.time_label, f"{s['lap_time_s']:.3f} s"),
-                ("length", f"{s['length_m']:.0f} m ({'closed lap' if s['closed'] else 'open run'})"),
+                ("length", f"{s['length_m']:.0f} m "
+                           f"({'closed lap' if s['closed'] else 'open run'})"),
                 ("top / min / mean speed", f"{s['top_speed_kph']:.1f} / {s['min_speed_kph']:.1f}"
                  f" / {s['mean_speed_kph']:.1f} km/h"),
                 ("aero balance, front share (CG convention)",

@@ -15,7 +15,6 @@ import numpy as np
 from lapbalance import kernels as _k
 from lapbalance.car import Car
 
-
 #: Speed tolerance of the corner-limit search [m/s] and force tolerance of the
 #: longitudinal searches [N] (docs/method.md, the solver: stop at a tolerance that matters).
 SPEED_TOL = 1e-3

@@ -50,10 +50,9 @@ from typing import Any
 import numpy as np
 
 from lapbalance.version import __version__
-from lapbalance.errors import InputError
 
 __all__ = ["SIDECAR", "build", "car_differences", "car_files", "car_record", "file_record",
-           "for_lap", "overrides", "rerun", "setup_rows", "sha256", "sidecar_for",
+           "for_lap", "overrides", "setup_rows", "sha256", "sidecar_for",
            "track_record", "with_outputs"]
 
 #: File name of the provenance sidecar in an output folder.
@@ -207,9 +206,9 @@ def solver_parameters(car) -> dict[str, float]:
     from lapbalance.params import car_parameters
 
     p = car_parameters(car)[0]
-    names = sorted(((getattr(_k, n), n[2:].lower()) for n in dir(_k)
+    names = sorted((getattr(_k, n), n[2:].lower()) for n in dir(_k)
                     if n.startswith("P_") and n != "P_NPARAM" and isinstance(getattr(_k, n),
-                                                                                  int)))
+                                                                                  int))
     out = {}
     for i, name in names:
         if name in ("tyf", "tyr"):  # six precomputed tyre constants per axle

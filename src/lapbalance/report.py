@@ -21,8 +21,14 @@ from matplotlib.colors import to_rgb
 from lapbalance import plots
 from lapbalance.errors import InputError
 from lapbalance.lap import CAUTION, LapResult
-from lapbalance.liftoff import (FLAG_VERDICTS, VERDICTS, corner_response, ranked,
-                                smallest_margin, verdict_counts)
+from lapbalance.liftoff import (
+    FLAG_VERDICTS,
+    VERDICTS,
+    corner_response,
+    ranked,
+    smallest_margin,
+    verdict_counts,
+)
 from lapbalance.outputs import write_text_atomic
 from lapbalance.version import __version__
 

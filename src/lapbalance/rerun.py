@@ -9,12 +9,11 @@ itself.
 
 from __future__ import annotations
 
+import dataclasses
+import json
 from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import Any
-
-import dataclasses
-import json
 
 from lapbalance.errors import InputError
 from lapbalance.provenance import _jsonable, car_record, sha256

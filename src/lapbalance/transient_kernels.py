@@ -48,8 +48,24 @@ import math
 import numpy as np
 from numba import njit
 
-from lapbalance.kernels import (NOUT, O_CAPXF, O_CAPXR, O_CAPYF, O_CAPYR, O_DRAG, O_FXF, O_FXR,
-                                O_FZF, O_FZR, O_X, P_A, P_B, P_DRIVEF, P_MASS, state)
+from lapbalance.kernels import (
+    NOUT,
+    O_CAPXF,
+    O_CAPXR,
+    O_CAPYF,
+    O_CAPYR,
+    O_DRAG,
+    O_FXF,
+    O_FXR,
+    O_FZF,
+    O_FZR,
+    O_X,
+    P_A,
+    P_B,
+    P_DRIVEF,
+    P_MASS,
+    state,
+)
 
 # ---- transient parameter vector --------------------------------------------------------------
 Q_IZ = 0  # yaw inertia [kg m2]

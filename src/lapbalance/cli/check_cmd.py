@@ -7,8 +7,14 @@ import sys
 import click
 
 from lapbalance.cli import main
-from lapbalance.cli.common import (apply_line, echo_json, json_option, line_options,
-                                   set_option, table)
+from lapbalance.cli.common import (
+    apply_line,
+    echo_json,
+    json_option,
+    line_options,
+    set_option,
+    table,
+)
 from lapbalance.cli.lap_cmd import load_inputs, track_options
 
 

@@ -10,9 +10,18 @@ import click
 
 from lapbalance.car import load_car
 from lapbalance.cli import main
-from lapbalance.cli.common import (apply_line, echo_json, force_option, json_option,
-                                   line_options, plot_format_option, prepare_solver,
-                                   set_option, table, units_option)
+from lapbalance.cli.common import (
+    apply_line,
+    echo_json,
+    force_option,
+    json_option,
+    line_options,
+    plot_format_option,
+    prepare_solver,
+    set_option,
+    table,
+    units_option,
+)
 from lapbalance.cli.lap_cmd import track_options
 from lapbalance.errors import InputError
 

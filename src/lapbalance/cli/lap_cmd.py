@@ -6,9 +6,17 @@ import click
 
 from lapbalance.car import load_car
 from lapbalance.cli import main
-from lapbalance.cli.common import (apply_line, echo_json, force_option, json_option,
-                                   line_options, plot_format_option, set_option, table,
-                                   units_option)
+from lapbalance.cli.common import (
+    apply_line,
+    echo_json,
+    force_option,
+    json_option,
+    line_options,
+    plot_format_option,
+    set_option,
+    table,
+    units_option,
+)
 from lapbalance.liftoff import flagged, ranked, smallest_margin, verdict_counts
 
 
@@ -26,8 +34,13 @@ def load_inputs(car_file, track_file, overrides, step_m, closed, start_speed_kph
                 more_cars=(), prepare: bool = True):
     """Check the numeric options, load the car and the track (InputError on bad input), and
     compile the solver with progress on a first run (``prepare``)."""
-    from lapbalance.cli.common import (check_car_track_order, check_start_speed, check_step,
-                                       check_track_size, prepare_solver)
+    from lapbalance.cli.common import (
+        check_car_track_order,
+        check_start_speed,
+        check_step,
+        check_track_size,
+        prepare_solver,
+    )
     from lapbalance.track import load_track
 
     check_step(step_m)

@@ -26,8 +26,8 @@ def rerun_command(summary_file, search, tolerance_s, as_json, units):
     """
     import sys
 
-    from lapbalance.rerun import rerun
     from lapbalance.cli.lap_cmd import format_lap
+    from lapbalance.rerun import rerun
 
     prepare_solver()
     result, check = rerun(summary_file, search)

@@ -210,7 +210,8 @@ def track_command(track_file, step_m, closed, noise_m, map_png, line, track_widt
     click.echo(f"{kind}, length {tr.length_m:.1f} m, {tr.n} points at {tr.step_m:.4f} m")
     if ref.smoothing_m is not None:
         how = "given" if ref.noise_given else "estimated"
-        click.echo(f"from {ref.input_points} input points {ref.input_spacing_m:.3g} m apart; position "
+        click.echo(f"from {ref.input_points} input points {ref.input_spacing_m:.3g} m apart; "
+                   "position "
                    f"noise {1000 * ref.noise_m:.0f} mm ({how}); smoothing "
                    f"{float(np.min(ref.smoothing_m)):.1f}-{float(np.max(ref.smoothing_m)):.1f} m")
     if "line" in info:
