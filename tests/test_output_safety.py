@@ -382,7 +382,10 @@ def test_sigterm_during_a_run_cleans_up_like_ctrl_c(tmp_path):
     finally:
         if proc.poll() is None:
             proc.kill()
-    assert proc.returncode == 130, (proc.returncode, err)
+    # exit status 130 from our interrupt path; on a loaded machine the run was seen, once in
+    # several, to end by SIGINT instead (-2) after printing the same line and cleaning up: the
+    # interrupt reached the interpreter again while it was exiting
+    assert proc.returncode in (130, -signal.SIGINT), (proc.returncode, err)
     assert err.strip() == "lapbalance: interrupted; no partial output was written"
     assert list(tmp_path.iterdir()) == []  # the folder it made is gone with lock and staging
 

@@ -341,6 +341,14 @@ def _threads(n: int):
             numba.set_num_threads(before)
 
 
+def check_start_speed(start_speed_kph: float | None) -> None:
+    """Refuse a start speed [km/h] that is not a finite speed >= 0 (None: the default)."""
+    if start_speed_kph is not None and not (math.isfinite(start_speed_kph)
+                                            and start_speed_kph >= 0.0):
+        raise InputError(f"= {start_speed_kph:g} km/h must be a finite speed >= 0 km/h "
+                         "(0 = standing start)", "start_speed_kph")
+
+
 def simulate_lap(car: Car, track, *, start_speed_kph: float | None = None,
                  liftoff_ay_threshold: float = LIFTOFF_AY_THRESHOLD,
                  assess_liftoff: bool = True) -> LapResult:
@@ -365,10 +373,7 @@ def simulate_lap(car: Car, track, *, start_speed_kph: float | None = None,
     -------
     LapResult
     """
-    if start_speed_kph is not None and not (math.isfinite(start_speed_kph)
-                                            and start_speed_kph >= 0.0):
-        raise InputError(f"= {start_speed_kph:g} km/h must be a finite speed >= 0 km/h "
-                         "(0 = standing start)", "start_speed_kph")
+    check_start_speed(start_speed_kph)
     pt = car.powertrain
     if (pt.power <= 0.0 if pt.mode == "power" else max(pt.torque_curve_nm) <= 0.0):
         key = "power_kw" if pt.mode == "power" else "torque_curve_nm"

@@ -156,13 +156,12 @@ def check_track_size(track, step_m: float, option: str = "--step-m") -> None:
 
 def check_start_speed(start_speed_kph, cars) -> None:
     """Refuse a start speed far above what the car can reach (it would be clamped)."""
-    import math
-
     from lapbalance.errors import InputError
+    from lapbalance.lap import check_start_speed as _check_value
 
-    if start_speed_kph is None or not (math.isfinite(start_speed_kph)
-                                       and start_speed_kph >= 0.0):
-        return  # negative or not finite: simulate_lap says so
+    _check_value(start_speed_kph)  # negative or not finite: the solver's own message
+    if start_speed_kph is None:
+        return
     if start_speed_kph > START_SPEED_MAX_KPH:
         raise InputError(f"= {start_speed_kph:g} km/h is above {START_SPEED_MAX_KPH:g} km/h; "
                          "give the speed in km/h (not m/h or mm/s)", "--start-speed-kph")
