@@ -1288,6 +1288,19 @@ NOT_TABULATED = (
     "wheel-lift threshold `a_y = g t/(2h)` (Gillespie 1992, ch. 9) and the force balance of "
     "every step of random laps.",
     "* `test_kernels.py`: compiled kernels against the same code run by Python.",
+    "* `test_track_geometry.py`: circles at every spacing and rounding, noisy hairpins and "
+    "sweepers against their drawn radius, the noise estimate against the noise drawn, fitted "
+    "points on the input circle (analytic geometry); lat/lon rings at the poles and across "
+    "the antimeridian against geographiclib.",
+    "* `test_transient.py`: the integrator against `scipy.integrate.solve_ivp` (Radau) on a "
+    "nonlinear lift-off, the small-step response against `A⁻¹(e^{At} − I) B δ` "
+    "(`scipy.linalg.expm`), the steady turns against the lap model's axle usages.",
+    "* `test_line.py`: the box solver against `scipy.optimize.lsq_linear` (bounded-variable "
+    "least squares, Stark & Parker 1995); the line never leaves the band (hypothesis).",
+    "* `test_liftoff_margin.py`: the margin's monotonic properties where the front limits "
+    "(hypothesis) and the rear-limited counterexample in closed form.",
+    "* `test_speed_consistency.py`: every step's reported a_x equals (v_{i+1}² − v_i²)/(2 ds) "
+    "(the solver's kinematics) for every demo car on the demo circuits.",
 )
 
 
