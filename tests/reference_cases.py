@@ -1244,10 +1244,13 @@ for _th in (10.0, 20.0):
           f"apex radius 1/max κ of the min ∫κ² ds line ({_x})", _SLB,
           corner_apex_radius(200.0, _th, 5.0), "m", _T,
           (lambda th=_th: 1.0 / float(solve_corner(200.0, th, 5.0)[1].max())), rel=0.02)
-_case("line.corner.sharp.arc_radius", T_LINE,
-      "largest constant-radius arc, R = 50 m, 90°, e = 5 m", _SLA, 79.142, "m",
+_RA90 = corner_arc_radius(50.0, 90.0, 5.0)  # 79.142 m
+_case("line.corner.sharp.apex_radius", T_LINE,
+      "apex radius 1/max κ of the min ∫κ² ds line, R = 50 m, 90°, e = 5 m: between the "
+      f"centreline radius and the largest arc ρ_arc = {_RA90:.3f} m (expected = the band's "
+      "centre, tolerance = its half-width)", _SLA, 0.5 * (50.0 + _RA90), "m",
       "test_line.py::test_sharp_corner_apex_below_largest_arc",
-      lambda: corner_arc_radius(50.0, 90.0, 5.0), abs=1e-3)
+      lambda: 1.0 / float(solve_corner(50.0, 90.0, 5.0)[1].max()), abs=0.5 * (_RA90 - 50.0))
 
 _SAN = ("∫κ² ds = 2π/r on a ring falls as r grows, so the line is the outermost circle the band "
         "allows (closed form)")

@@ -87,8 +87,11 @@ def test_sharp_corner_apex_below_largest_arc():
     e = 5.0
     alpha, k, _ = solve_corner(50.0, 90.0, e)
     rho_arc = 50.0 + e * (1 + math.cos(math.pi / 4)) / (1 - math.cos(math.pi / 4))
-    c_arc = CASES["line.corner.sharp.arc_radius"]
-    assert rho_arc == c_arc.approx() and c_arc.value() == c_arc.approx()
+    assert rho_arc == pytest.approx(79.142, abs=1e-3)
+    c = CASES["line.corner.sharp.apex_radius"]  # the band (50 m, rho_arc) as centre ± half
+    assert c.expected - c.abs == pytest.approx(50.0) and c.expected + c.abs == pytest.approx(
+        rho_arc)
+    assert c.value() == c.approx()
     i = int(np.argmax(k)) + 1
     assert 50.0 < 1.0 / k.max() < rho_arc
     assert alpha[i] == pytest.approx(e, abs=0.01)
