@@ -820,7 +820,449 @@ _case("liftoff.rwd.balance_shift", T_LIFTOFF, "balance index change (u_r − u_f
       lambda: ((rwd_liftoff_states()[1]["ur"] - rwd_liftoff_states()[1]["uf"])
                - (rwd_liftoff_states()[0]["ur"] - rwd_liftoff_states()[0]["uf"])), rel=1e-4)
 
-TOPICS = (T_LOADS, T_TYRE, T_AIR, T_AERO, T_HANDLING, T_LAP, T_LIFTOFF)
+
+# ============================================================================================
+# Lift-off margin
+# ============================================================================================
+
+T_MARGIN = "Lift-off margin"
+RHO_STD = 1.225
+
+
+def closed_form_margin_car(balance_front=0.5, downforce=2.0, drag=1.0, mu=1.4):
+    """Test car of the margin closed form: constant friction, no overrun, no rolling
+    resistance, CG-convention split (front axle to CG 0.55 L, h = 0.55 m)."""
+    return make_car(chassis={"front_weight_fraction": 0.45, "cg_height_m": 0.55},
+                    aero={"downforce_area_m2": downforce, "drag_area_m2": drag,
+                          "balance_front": balance_front, "balance_convention": "cg"},
+                    tyres={"rolling_resistance": 0.0,
+                           "front": {"peak_friction": mu, "load_sensitivity": 0.0},
+                           "rear": {"peak_friction": mu, "load_sensitivity": 0.0}},
+                    powertrain={"overrun_torque_nm": 0.0})
+
+
+def closed_form_margin(m, L, wf, h, cla_f, cla_r, cda, mu, R):
+    """(lambda, v_limit², v_safe²) of the margin closed form (our derivation; the formulas and
+    their sources are in the docstring of test_liftoff_margin.test_margin_matches_closed_form
+    and in docs/method.md, the lift-off margin)."""
+    a = (1 - wf) * L  # front axle to CG
+    b = wf * L  # CG to rear axle
+    k = 0.5 * RHO_STD
+    den_s = 1.0 / R - mu * k * cla_r * L / (m * a)
+    vs2 = math.inf if den_s <= 0 else mu * G0 / den_s
+    den_f = 1.0 / R - mu * k * (cla_f - cda * h / L) * L / (m * b)
+    vf2 = math.inf if den_f <= 0 else mu * G0 / den_f
+    A = m * G0 * a / L
+    B = k * (cla_r + cda * h / L)
+    c = k * cda
+    e = m * a / (L * R)
+    den_r = math.hypot(c, e) - mu * B
+    vr2 = math.inf if den_r <= 0 else mu * A / den_r
+    vl2 = min(vf2, vr2)
+    return min(1.0, vs2 / vl2), vl2, vs2
+
+
+@cache
+def margin_circle_lap(balance_front):
+    """Lap of the margin closed-form car on a 150 m circle (lift-off assessment off)."""
+    return simulate_lap(closed_form_margin_car(balance_front), circle(150.0),
+                        assess_liftoff=False)
+
+
+_SMG = (f"{GILLESPIE}, ch. 1 axle loads with the friction ellipse per axle ({RCVD}, ch. 2), "
+        "coasting lift on a flat circle, constant μ (our derivation of the closed form)")
+_MX = ("R = 150 m, m = 1200 kg, L = 2.6 m, front axle to CG 0.55 L, h = 0.55 m, μ = 1.4, "
+       "ClA = 2.0 m², CdA = 1.0 m², rear drive, no overrun, no rolling resistance")
+_T = "test_liftoff_margin.py::test_margin_matches_closed_form"
+for _f, _lam, _vl, _vs, _res in ((0.62, 0.96292522, 50.105208, 49.167616, -0.03261355),
+                                 (0.5, 1.0, 50.354746, None, None)):
+    _p = f"margin.closed_form.f{_f:g}"
+    _x = f"{_MX}, CG-convention front share {_f:g}"
+    _case(f"{_p}.limit_speed", T_MARGIN, f"steady limit speed ({_x})", _SMG, _vl, "m/s", _T,
+          (lambda f=_f: margin_circle_lap(f).channels["speed_limit_mps"][0]), rel=5e-5)
+    _case(f"{_p}.margin", T_MARGIN, f"margin λ = a_y,safe/a_y,limit, worst step ({_x})", _SMG,
+          _lam, "-", _T, (lambda f=_f, e=_lam: _worst(
+              margin_circle_lap(f).channels["liftoff_step_margin"], e)), abs=1e-4)
+    _case(f"{_p}.coast_margin", T_MARGIN, f"coasting margin, worst step ({_x})", _SMG, _lam,
+          "-", _T, (lambda f=_f, e=_lam: _worst(
+              margin_circle_lap(f).channels["coast_step_margin"], e)), abs=1e-4)
+    if _vs is not None:
+        _case(f"{_p}.safe_speed", T_MARGIN, f"safe speed, worst step ({_x})", _SMG, _vs,
+              "m/s", _T, (lambda f=_f, e=_vs: _worst(
+                  margin_circle_lap(f).channels["liftoff_safe_speed_mps"], e)), rel=5e-5)
+        _case(f"{_p}.rear_reserve", T_MARGIN,
+              f"rear reserve 1 − u_r after a lift at the limit, worst step ({_x})", _SMG,
+              _res, "-", _T, (lambda f=_f, e=_res: _worst(
+                  margin_circle_lap(f).channels["liftoff_step_rear_reserve"], e)), abs=1e-4)
+
+
+# ============================================================================================
+# Transient single-track model
+# ============================================================================================
+
+T_TRANSIENT = "Transient single-track model"
+
+#: The linear check car (textbook-style numbers): m = 1200 kg, I_z = 1800 kg m², front axle
+#: to CG a = 1.1 m, b = 1.5 m, C_f = 80 kN/rad, C_r = 90 kN/rad, no tyre lag.
+TR_LIN = {"yaw_inertia_kgm2": 1800.0, "cornering_stiffness_front_n_per_rad": 80000.0,
+          "cornering_stiffness_rear_n_per_rad": 90000.0, "relaxation_length_m": 0.0,
+          "steering_ratio": 15.0}
+
+
+def lin_car(**tr):
+    """The linear check car (``tr`` overrides its [transient] keys)."""
+    return make_car(chassis={"front_weight_fraction": 1.5 / 2.6}, transient={**TR_LIN, **tr})
+
+
+def straight_step(car, speed, delta, t_end, dt=0.002, y0=None):
+    """Integrate from straight running at ``speed`` [m/s] with the road wheels steered by
+    ``delta`` [rad], no drive force; returns the history array."""
+    from lapbalance import transient as _tr
+    from lapbalance import transient_kernels as tk
+
+    mdl = _tr.model_parameters(car)
+    q = mdl.q.copy()
+    q[tk.Q_DELTA] = delta
+    q[tk.Q_F0] = q[tk.Q_F1] = 0.0
+    q[tk.Q_R0] = 1e9
+    if y0 is None:
+        y0 = np.zeros(tk.NY)
+        y0[tk.Y_VX] = speed
+    n = int(round(t_end / dt))
+    hist = np.empty((n + 1, tk.NH))
+    status, rows = tk.integrate(y0, q, mdl.p, mdl.mx, mdl.my, mdl.mt, dt, n, 1.0, 0.1, hist)
+    assert status == tk.RUN_OK and rows == n + 1
+    return hist
+
+
+@cache
+def linear_figures(speed, deg_stiffness=False):
+    from lapbalance import transient as _tr
+
+    if deg_stiffness:
+        car = make_car(transient={**TR_LIN, "cornering_stiffness_front_n_per_rad": None,
+                                  "cornering_stiffness_rear_n_per_rad": None,
+                                  "cornering_stiffness_front_n_per_deg": 2400.0,
+                                  "cornering_stiffness_rear_n_per_deg": 2800.0})
+    else:
+        car = lin_car()
+    return _tr.linear_model(car, speed)
+
+
+@cache
+def step_yaw_gain(speed, relaxation_length=0.0, t_end=6.0):
+    """Settled yaw rate / steer of the linear check car after a 1e-4 rad steer step [1/s]."""
+    from lapbalance import transient_kernels as tk
+
+    h = straight_step(lin_car(relaxation_length_m=relaxation_length), speed, 1e-4, t_end)
+    return float(h[-1, tk.H_Y + tk.Y_R] / 1e-4)
+
+
+@cache
+def yaw_mode_from_response(u=40.0):
+    """(natural frequency [Hz], damping ratio) identified from the integrated free response of
+    the linear check car at ``u`` [m/s]: r[k+2] = c1 r[k+1] + c2 r[k] (two-state linear
+    response sampled at Δ), roots → eigenvalues."""
+    from lapbalance import transient_kernels as tk
+
+    y0 = np.zeros(tk.NY)
+    y0[tk.Y_VX] = u
+    y0[tk.Y_R] = 1e-4
+    h = straight_step(lin_car(), u, 0.0, 1.0, dt=0.001, y0=y0)
+    step = 20
+    r = h[::step, tk.H_Y + tk.Y_R][:40]
+    M = np.column_stack([r[1:-1], r[:-2]])
+    c1, c2 = np.linalg.lstsq(M, r[2:], rcond=None)[0]
+    mu = np.roots([1.0, -c1, -c2])
+    lam = np.log(mu.astype(complex)) / (step * 0.001)
+    wn = abs(lam[0])
+    return float(wn / (2 * math.pi)), float(-lam[0].real / wn)
+
+
+_SG6 = f"{GILLESPIE}, ch. 6 (bicycle model)"
+_SLIN = (f"{_SG6}; {RCVD}, ch. 5; Pacejka, *Tire and Vehicle Dynamics*, ch. 1 (formula "
+         "evaluated)")
+_XG = ("m = 1200 kg, front axle to CG 1.2 m, L = 2.6 m, C_αf = 2400 N/deg, C_αr = 2800 N/deg")
+_T = "test_transient.py::test_gillespie_understeer_gradient_and_characteristic_speed"
+_case("transient.gillespie.understeer_gradient", T_TRANSIENT,
+      f"understeer gradient K = W_f/C_αf − W_r/C_αr ({_XG})", f"{_SG6}, formula evaluated",
+      0.700475, "deg/g", _T,
+      lambda: linear_figures(20.0, True)["understeer_gradient_deg_per_g"], rel=5e-6)
+_case("transient.gillespie.characteristic_speed", T_TRANSIENT,
+      f"characteristic speed √(57.3 L g/K) ({_XG})", f"{_SG6}, formula evaluated", 45.6680,
+      "m/s", _T, lambda: linear_figures(20.0, True)["characteristic_speed_mps"], rel=5e-6)
+
+_XL = ("m = 1200 kg, a = 1.1 m, b = 1.5 m, C_f = 80 kN/rad, C_r = 90 kN/rad, "
+       "I_z = 1800 kg m²")
+_T = "test_transient.py::test_linear_closed_forms_textbook_case"
+_case("transient.linear.understeer_gradient", T_TRANSIENT,
+      f"K = (m/L)(b/C_f − a/C_r) ({_XL})", _SLIN, 3.01282e-3, "rad/(m/s²)", _T,
+      lambda: linear_figures(25.0)["understeer_gradient_rad_per_mps2"], rel=5e-6)
+_case("transient.linear.yaw_gain_25", T_TRANSIENT,
+      f"steady yaw-rate gain u/(L + K u²) at u = 25 m/s ({_XL})", _SLIN, 5.57661, "1/s", _T,
+      lambda: linear_figures(25.0)["yaw_gain_per_s"], rel=5e-6)
+_case("transient.linear.characteristic_speed", T_TRANSIENT,
+      f"characteristic speed √(L/K) ({_XL})", _SLIN, 29.377, "m/s", _T,
+      lambda: linear_figures(25.0)["characteristic_speed_mps"], rel=5e-5)
+
+_T = "test_transient.py::test_yaw_rate_gain_from_a_small_steer_step"
+for _v, _e in ((10.0, 3.44675210), (20.0, 5.25606469), (35.0, 5.56376420)):
+    _case(f"transient.step_gain.{_v:g}", T_TRANSIENT,
+          f"settled yaw rate / steer after a 1e-4 rad step at {_v:g} m/s, no tyre lag ({_XL})",
+          f"{_SG6}, yaw-velocity gain u/(L + K u²) (formula evaluated)", _e, "1/s", _T,
+          (lambda v=_v: step_yaw_gain(v)), rel=1e-5)
+_case("transient.step_gain.characteristic", T_TRANSIENT,
+      f"settled yaw gain at the characteristic speed 29.3765 m/s, σ = 0.4 m ({_XL})",
+      f"{_SG6}: L + K v_ch² = 2L, gain v_ch/(2L)", 5.64932683, "1/s",
+      "test_transient.py::test_yaw_gain_at_the_characteristic_speed_is_half_the_neutral_gain",
+      lambda: step_yaw_gain(math.sqrt(2.6 / 3.01282051e-3), 0.4, 8.0), rel=1e-5)
+
+_SEV = (f"eigenvalues of the (v_y, r) state matrix, Pacejka, *Tire and Vehicle Dynamics*, "
+        f"ch. 1; {RCVD}, ch. 5 (evaluated by numpy.linalg.eigvals)")
+_T = "test_transient.py::test_yaw_mode_from_the_integrated_response_matches_the_eigenvalues"
+_case("transient.yaw_mode.frequency.closed_form", T_TRANSIENT,
+      f"yaw-mode natural frequency at 40 m/s, tool's linear model ({_XL})", _SEV,
+      1.00902783, "Hz", _T, lambda: linear_figures(40.0)["natural_frequency_hz"], rel=1e-7)
+_case("transient.yaw_mode.damping.closed_form", T_TRANSIENT,
+      f"yaw-mode damping ratio at 40 m/s, tool's linear model ({_XL})", _SEV, 0.60715471, "-",
+      _T, lambda: linear_figures(40.0)["damping_ratio"], rel=1e-7)
+_case("transient.yaw_mode.frequency.integrated", T_TRANSIENT,
+      f"yaw-mode natural frequency identified from the integrated free response ({_XL})",
+      _SEV, 1.00902783, "Hz", _T, lambda: yaw_mode_from_response()[0], rel=1e-5)
+_case("transient.yaw_mode.damping.integrated", T_TRANSIENT,
+      f"yaw-mode damping ratio identified from the integrated free response ({_XL})", _SEV,
+      0.60715471, "-", _T, lambda: yaw_mode_from_response()[1], rel=1e-5)
+
+
+# ============================================================================================
+# Track geometry
+# ============================================================================================
+
+T_TRACK = "Track geometry"
+
+
+def circle_points(radius, spacing, rounding, centre=(1234.567, -987.65)):
+    """Points every ``spacing`` [m] on a circle, coordinates rounded to ``rounding`` [m]."""
+    n = int(round(2.0 * math.pi * radius / spacing))
+    t = np.arange(n) * (2.0 * math.pi / n)
+    x = centre[0] + radius * np.cos(t)
+    y = centre[1] + radius * np.sin(t)
+    return np.round(x / rounding) * rounding, np.round(y / rounding) * rounding
+
+
+@cache
+def circle_track(radius, spacing, rounding):
+    from lapbalance.track import make_track
+
+    return make_track(*circle_points(radius, spacing, rounding))
+
+
+def circle_curvature_rms_error(radius, spacing, rounding):
+    """RMS over the steps of κ R − 1 of a fitted circle [-]."""
+    err = circle_track(radius, spacing, rounding).curvature_1pm * radius - 1.0
+    return math.sqrt(float(np.mean(err ** 2)))
+
+
+CLOTHOID = (80.0, 120.0, 150.0)  # end radius R, spiral length Lc, lead-in straight [m]
+
+
+@cache
+def clothoid_track(spacing, rounding):
+    """(track, distance from the spiral start, mask of its inner 70 %, exact curvature there)
+    of straight - clothoid (0 to 1/R over Lc) - quarter arc of R, spaced and rounded."""
+    from scipy.special import fresnel
+
+    from lapbalance.track import make_track
+
+    R, Lc, straight_m = CLOTHOID
+    arc = 0.5 * math.pi * R
+    a = math.sqrt(R * Lc)
+    scale = a * math.sqrt(math.pi)
+    s_c = np.arange(0.0, Lc, spacing)
+    S, C = fresnel(s_c / scale)
+    xc, yc = scale * C, scale * S
+    th_e = Lc / (2.0 * R)  # heading at the end of the spiral
+    ex, ey = scale * fresnel(Lc / scale)[1], scale * fresnel(Lc / scale)[0]
+    s_a = np.arange(spacing, arc, spacing)
+    cx, cy = ex - R * math.sin(th_e), ey + R * math.cos(th_e)  # centre of the arc
+    xa = cx + R * np.sin(th_e + s_a / R)
+    ya = cy - R * np.cos(th_e + s_a / R)
+    xs = np.arange(-straight_m, 0.0, spacing)
+    x = np.concatenate([xs, xc, xa])
+    y = np.concatenate([np.zeros_like(xs), yc, ya])
+    x, y = np.round(x / rounding) * rounding, np.round(y / rounding) * rounding
+    tr = make_track(x, y, closed=False, step_m=1.0)
+    d = tr.distance_m - straight_m
+    inner = (d > 0.15 * Lc) & (d < 0.85 * Lc)
+    return tr, d, inner, d[inner] / (R * Lc)
+
+
+def clothoid_curvature_error(spacing, rounding):
+    """Largest |κ − s/(R Lc)| over the inner 70 % of the spiral [1/m]."""
+    tr, _, inner, exact = clothoid_track(spacing, rounding)
+    return float(np.max(np.abs(tr.curvature_1pm[inner] - exact)))
+
+
+def geodesic_ring(lat0, lon0, radius, spacing):
+    """(lat, lon) [deg] of points at geodesic distance ``radius`` [m] from a centre on the
+    WGS-84 ellipsoid, about ``spacing`` [m] apart (geographiclib)."""
+    from geographiclib.geodesic import Geodesic
+
+    g = Geodesic.WGS84
+    n = int(round(2.0 * math.pi * radius / spacing))
+    pts = [g.Direct(lat0, lon0, 360.0 * i / n, radius) for i in range(n)]
+    return np.array([(p["lat2"], p["lon2"]) for p in pts])
+
+
+def write_latlon_ring(path, pts):
+    """Write a closed lat/lon track file of ``pts`` [deg]."""
+    path.write_text("# closed: true\nlat_deg,lon_deg\n"
+                    + "\n".join(f"{a:.9f},{b:.9f}" for a, b in pts) + "\n")
+
+
+@cache
+def latlon_ring_track(lat0, lon0):
+    """The 600 m geodesic ring about (lat0, lon0) read from a lat/lon file."""
+    import tempfile
+    from pathlib import Path
+
+    from lapbalance.track import load_track
+
+    with tempfile.TemporaryDirectory() as d:
+        p = Path(d) / "ring.csv"
+        write_latlon_ring(p, geodesic_ring(lat0, lon0, 600.0, 4.0))
+        return load_track(p)
+
+
+_SCI = ("analytic geometry: a circle of radius R has curvature 1/R and length 2πR (ISO 8855 "
+        "sign, left positive)")
+_T = "test_track_geometry.py::test_circle_curvature_independent_of_spacing_and_rounding"
+for _r in (15.0, 50.0, 300.0, 1000.0):
+    _x = f"R = {_r:g} m, points every 1 m rounded to 1 mm"
+    _case(f"track.circle.r{_r:g}.curvature", T_TRACK, f"RMS of κ R − 1 over the lap ({_x})",
+          _SCI, 0.0, "-", _T, (lambda r=_r: circle_curvature_rms_error(r, 1.0, 1e-3)),
+          abs=0.01)
+    _case(f"track.circle.r{_r:g}.length", T_TRACK, f"lap length ({_x})", _SCI,
+          2.0 * math.pi * _r, "m", _T, (lambda r=_r: circle_track(r, 1.0, 1e-3).length_m),
+          rel=1e-3)
+
+_SCL = ("Euler spiral κ(s) = s/(R Lc); positions from the Fresnel integrals, Abramowitz & "
+        "Stegun, *Handbook of Mathematical Functions*, 1964, 7.3.1-7.3.2 (scipy.special."
+        "fresnel)")
+_T = "test_track_geometry.py::test_clothoid_curvature_is_linear_in_arc_length"
+for _sp, _rd in ((0.5, 1e-3), (2.0, 1e-2)):
+    _x = (f"clothoid 0 → 1/80 m⁻¹ over 120 m after a 150 m straight, then a quarter arc; "
+          f"points every {_sp:g} m rounded to {_rd * 1000:g} mm")
+    _case(f"track.clothoid.s{_sp:g}.curvature", T_TRACK,
+          f"largest |κ − s/(R Lc)| over the inner 70 % of the spiral ({_x})", _SCL, 0.0, "1/m",
+          _T, (lambda sp=_sp, rd=_rd: clothoid_curvature_error(sp, rd)), abs=0.02 / 80.0)
+    _case(f"track.clothoid.s{_sp:g}.length", T_TRACK, f"track length ({_x})", _SCL,
+          150.0 + 120.0 + 0.5 * math.pi * 80.0 - _sp, "m", _T,
+          (lambda sp=_sp, rd=_rd: clothoid_track(sp, rd)[0].length_m), rel=2e-3)
+
+_SGL = ("geographiclib (Karney, \"Algorithms for geodesics\", *J. Geodesy* 87, 2013, 43-55): "
+        "geodesic length of the polygon of points 600 m from a centre on WGS-84")
+_T = "test_track_geometry.py::test_latlon_projection_anywhere"
+for _lat, _lon, _tag in ((78.0, 20.0, "high_latitude"), (10.0, 179.999, "antimeridian")):
+    _case(f"track.latlon.{_tag}.length", T_TRACK,
+          f"length of a lat/lon ring (600 m about {_lat:g}°, {_lon:g}°, points 4 m apart)",
+          _SGL, 3769.90419, "m", _T,
+          (lambda la=_lat, lo=_lon: latlon_ring_track(la, lo).length_m), rel=1e-4)
+
+
+# ============================================================================================
+# Driving line
+# ============================================================================================
+
+T_LINE = "Driving line"
+
+
+def corner_points(radius, theta_deg, straight_m=600.0, ds=1.0):
+    """Exact points of straight - left arc (radius, deflection) - straight, spaced ~ds [m]."""
+    th = math.radians(theta_deg)
+    n_s = int(round(straight_m / ds))
+    n_a = max(int(round(radius * th / ds)), 2)
+    pts = [(-straight_m + i * ds, 0.0) for i in range(n_s)]
+    for j in range(n_a + 1):
+        a = th * j / n_a
+        pts.append((radius * math.sin(a), radius * (1.0 - math.cos(a))))
+    ex, ey = pts[-1]
+    for i in range(1, n_s + 1):
+        pts.append((ex + i * ds * math.cos(th), ey + i * ds * math.sin(th)))
+    return np.array(pts)
+
+
+@cache
+def solve_corner(radius, theta_deg, e):
+    """(offsets [m], three-point curvature of the interior points [1/m], solver info) of the
+    minimum-curvature line through an isolated corner with ±e of room."""
+    from lapbalance import line as _line
+
+    p = corner_points(radius, theta_deg)
+    n = len(p)
+    alpha, info = _line.min_curvature_offsets(p[:, 0], p[:, 1], np.full(n, -e), np.full(n, e),
+                                              closed=False)
+    q = p + alpha[:, None] * _line.normals(p[:, 0], p[:, 1], False)
+    k = _line.menger_curvature(q, False)[1:-1]
+    return alpha, k, info
+
+
+def corner_arc_radius(radius, theta_deg, e):
+    """Largest constant-radius arc through the corner, R + e (1 + cos θ/2)/(1 − cos θ/2) [m]."""
+    c = math.cos(math.radians(theta_deg) / 2)
+    return radius + e * (1 + c) / (1 - c)
+
+
+def corner_apex_radius(radius, theta_deg, e):
+    """Small-slope apex radius of the min ∫κ² ds line, 3 D/(2 sin(θ/2) tan(θ/2)) [m]."""
+    c, s = math.cos(math.radians(theta_deg) / 2), math.sin(math.radians(theta_deg) / 2)
+    d = (radius + e) - (radius - e) * c
+    return 3.0 * d / (2.0 * s * (s / c))
+
+
+@cache
+def annulus_line(r0=120.0, w=12.0, car_w=2.0, margin=0.25):
+    from lapbalance import line as _line
+    from lapbalance.track import make_track
+
+    n = 754
+    phi = np.arange(n) * 2 * math.pi / n
+    tr = make_track(r0 * np.cos(phi), r0 * np.sin(phi), width=np.full(n, w), closed=True,
+                    step_m=1.0)
+    return _line.min_curvature_line(tr, car_w, margin)
+
+
+_SLA = ("plane geometry: the arc tangent to both outer bounds and touching the inner one, "
+        "ρ = R + e (1 + cos θ/2)/(1 − cos θ/2) (our derivation)")
+_SLB = ("small-slope bending energy: y'''' = 0 between contacts (Euler-Bernoulli beam, e.g. "
+        "Timoshenko & Gere, *Mechanics of Materials*), ρ_apex = 3 D/(2 sin(θ/2) tan(θ/2)), "
+        "D = (R + e) − (R − e) cos(θ/2) (our derivation; neglects terms of order tan²(θ/2))")
+_T = "test_line.py::test_isolated_corner_apex_radius_closed_forms"
+for _th in (10.0, 20.0):
+    _x = f"R = 200 m, deflection {_th:g}°, e = 5 m, between 600 m straights"
+    _case(f"line.corner.t{_th:g}.apex_radius", T_LINE,
+          f"apex radius 1/max κ of the min ∫κ² ds line ({_x})", _SLB,
+          corner_apex_radius(200.0, _th, 5.0), "m", _T,
+          (lambda th=_th: 1.0 / float(solve_corner(200.0, th, 5.0)[1].max())), rel=0.02)
+_RA90 = corner_arc_radius(50.0, 90.0, 5.0)  # 79.142 m
+_case("line.corner.sharp.apex_radius", T_LINE,
+      "apex radius 1/max κ of the min ∫κ² ds line, R = 50 m, 90°, e = 5 m: between the "
+      f"centreline radius and the largest arc ρ_arc = {_RA90:.3f} m (expected = the band's "
+      "centre, tolerance = its half-width)", _SLA, 0.5 * (50.0 + _RA90), "m",
+      "test_line.py::test_sharp_corner_apex_below_largest_arc",
+      lambda: 1.0 / float(solve_corner(50.0, 90.0, 5.0)[1].max()), abs=0.5 * (_RA90 - 50.0))
+
+_SAN = ("∫κ² ds = 2π/r on a ring falls as r grows, so the line is the outermost circle the band "
+        "allows (closed form)")
+_XA = "ring r = 120 m, width 12 m, car 2.0 m wide, margin 0.25 m"
+_T = "test_line.py::test_annulus_line_is_outer_edge_minus_margin"
+_case("line.annulus.radius", T_LINE, f"line radius, worst point ({_XA})", _SAN, 124.75, "m", _T,
+      lambda: _worst(np.hypot(annulus_line().x_m, annulus_line().y_m), 124.75), abs=0.01)
+_case("line.annulus.length", T_LINE, f"line length 2π · 124.75 m ({_XA})", _SAN,
+      2 * math.pi * 124.75, "m", _T, lambda: annulus_line().length_m, rel=1e-4)
+
+TOPICS = (T_LOADS, T_TYRE, T_AIR, T_AERO, T_HANDLING, T_LAP, T_LIFTOFF, T_MARGIN,
+          T_TRANSIENT, T_TRACK, T_LINE)
 
 
 # ============================================================================================
@@ -849,6 +1291,19 @@ NOT_TABULATED = (
     "wheel-lift threshold `a_y = g t/(2h)` (Gillespie 1992, ch. 9) and the force balance of "
     "every step of random laps.",
     "* `test_kernels.py`: compiled kernels against the same code run by Python.",
+    "* `test_track_geometry.py`: circles at every spacing and rounding, noisy hairpins and "
+    "sweepers against their drawn radius, the noise estimate against the noise drawn, fitted "
+    "points on the input circle (analytic geometry); lat/lon rings at the poles and across "
+    "the antimeridian against geographiclib.",
+    "* `test_transient.py`: the integrator against `scipy.integrate.solve_ivp` (Radau) on a "
+    "nonlinear lift-off, the small-step response against `A⁻¹(e^{At} − I) B δ` "
+    "(`scipy.linalg.expm`), the steady turns against the lap model's axle usages.",
+    "* `test_line.py`: the box solver against `scipy.optimize.lsq_linear` (bounded-variable "
+    "least squares, Stark & Parker 1995); the line never leaves the band (hypothesis).",
+    "* `test_liftoff_margin.py`: the margin's monotonic properties where the front limits "
+    "(hypothesis) and the rear-limited counterexample in closed form.",
+    "* `test_speed_consistency.py`: every step's reported a_x equals (v_{i+1}² − v_i²)/(2 ds) "
+    "(the solver's kinematics) for every demo car on the demo circuits.",
 )
 
 

@@ -11,41 +11,16 @@ from lapbalance import kernels as K
 from lapbalance import liftoff
 from lapbalance.lap import car_parameters, evaluate_forces, simulate_lap
 from lapbalance.units import G0
-from tests.helpers import analytic_track, circle, make_car
+from tests.helpers import analytic_track, make_car
+from tests.reference_cases import (CASES, closed_form_margin, closed_form_margin_car, ids,
+                                   margin_circle_lap)
 
 RHO = 1.225
 
-
-def _closed_form_car(balance_front=0.5, downforce=2.0, drag=1.0, mu=1.4):
-    return make_car(chassis={"front_weight_fraction": 0.45, "cg_height_m": 0.55},
-                    aero={"downforce_area_m2": downforce, "drag_area_m2": drag,
-                          "balance_front": balance_front, "balance_convention": "cg"},
-                    tyres={"rolling_resistance": 0.0,
-                           "front": {"peak_friction": mu, "load_sensitivity": 0.0},
-                           "rear": {"peak_friction": mu, "load_sensitivity": 0.0}},
-                    powertrain={"overrun_torque_nm": 0.0})
-
-
-def _closed_form_margin(m, L, wf, h, cla_f, cla_r, cda, mu, R):
-    """lambda from the formulas of test_margin_matches_closed_form (see its docstring)."""
-    a = (1 - wf) * L  # front axle to CG
-    b = wf * L  # CG to rear axle
-    k = 0.5 * RHO
-    # after the lift (coasting): u_r = 1 at v_s^2 = mu g / (1/R - mu k ClA_r L / (m a))
-    den_s = 1.0 / R - mu * k * cla_r * L / (m * a)
-    vs2 = math.inf if den_s <= 0 else mu * G0 / den_s
-    # on throttle, front: u_f = 1 at v^2 = mu g / (1/R - mu k (ClA_f - CdA h/L) L / (m b))
-    den_f = 1.0 / R - mu * k * (cla_f - cda * h / L) * L / (m * b)
-    vf2 = math.inf if den_f <= 0 else mu * G0 / den_f
-    # on throttle, rear: sqrt(Fx^2 + Fy^2) = mu Fz_r with Fx = k CdA v^2
-    A = m * G0 * a / L
-    B = k * (cla_r + cda * h / L)
-    c = k * cda
-    e = m * a / (L * R)
-    den_r = math.hypot(c, e) - mu * B
-    vr2 = math.inf if den_r <= 0 else mu * A / den_r
-    vl2 = min(vf2, vr2)
-    return min(1.0, vs2 / vl2), vl2, vs2
+# The closed form (our derivation, sources in the docstring of test_margin_matches_closed_form)
+# and its test car live in the reference-case registry, with the check values.
+_closed_form_car = closed_form_margin_car
+_closed_form_margin = closed_form_margin
 
 
 @pytest.mark.parametrize("balance_front", [0.62, 0.5])
@@ -81,7 +56,13 @@ def test_margin_matches_closed_form(balance_front):
     expected, vl2, vs2 = _closed_form_margin(
         ch.mass, ch.wheelbase, ch.front_weight_fraction, ch.cg_height,
         car.aero.front_area_cg, car.aero.rear_area_cg, car.aero.drag_area, 1.4, R)
-    r = simulate_lap(car, circle(R), assess_liftoff=False)
+    # the registry's check values are this closed form, evaluated
+    reg = f"margin.closed_form.f{balance_front:g}"
+    assert CASES[f"{reg}.margin"].expected == pytest.approx(expected, abs=1e-7)
+    assert CASES[f"{reg}.limit_speed"].expected == pytest.approx(math.sqrt(vl2), rel=1e-7)
+    for cid in ids(reg):
+        assert CASES[cid].value() == CASES[cid].approx(), cid
+    r = margin_circle_lap(balance_front)  # simulate_lap(car, circle(R), assess_liftoff=False)
     c = r.channels
     checked = c["liftoff_checked"] > 0
     assert checked.all()

@@ -19,33 +19,9 @@ from lapbalance.cli import main
 from lapbalance.errors import InputError
 from lapbalance.track import load_track, make_track
 from tests.helpers import make_car
+from tests.reference_cases import CASES, annulus_line, corner_points, solve_corner
 
 ROOT = Path(__file__).resolve().parents[1]
-
-
-def corner_points(radius, theta_deg, straight_m=600.0, ds=1.0):
-    """Exact points of straight - left arc (radius, deflection) - straight, spaced ~ds [m]."""
-    th = math.radians(theta_deg)
-    n_s = int(round(straight_m / ds))
-    n_a = max(int(round(radius * th / ds)), 2)
-    pts = [(-straight_m + i * ds, 0.0) for i in range(n_s)]
-    for j in range(n_a + 1):
-        a = th * j / n_a
-        pts.append((radius * math.sin(a), radius * (1.0 - math.cos(a))))
-    ex, ey = pts[-1]
-    for i in range(1, n_s + 1):
-        pts.append((ex + i * ds * math.cos(th), ey + i * ds * math.sin(th)))
-    return np.array(pts)
-
-
-def solve_corner(radius, theta_deg, e):
-    p = corner_points(radius, theta_deg)
-    n = len(p)
-    alpha, info = L.min_curvature_offsets(p[:, 0], p[:, 1], np.full(n, -e), np.full(n, e),
-                                          closed=False)
-    q = p + alpha[:, None] * L.normals(p[:, 0], p[:, 1], False)
-    k = L.menger_curvature(q, False)[1:-1]
-    return alpha, k, info
 
 
 @pytest.mark.parametrize("radius, theta_deg", [(200.0, 10.0), (200.0, 20.0)])
@@ -93,7 +69,10 @@ def test_isolated_corner_apex_radius_closed_forms(radius, theta_deg):
     rho_apex = 3.0 * d / (2.0 * s * (s / c))
     i = int(np.argmax(k)) + 1
     r_qp = 1.0 / float(k.max())
-    assert r_qp == pytest.approx(rho_apex, rel=0.02)
+    c_apex = CASES[f"line.corner.t{theta_deg:g}.apex_radius"]
+    assert (radius, e) == (200.0, 5.0) and c_apex.expected == pytest.approx(rho_apex, rel=1e-12)
+    assert r_qp == c_apex.approx() and c_apex.rel == 0.02
+    assert c_apex.value() == c_apex.approx()
     assert r_qp < rho_arc
     assert alpha[i] == pytest.approx(e, abs=0.01)  # inside at the apex (left turn)
     assert np.min(alpha[:i]) == pytest.approx(-e, abs=0.01)  # outside before
@@ -109,6 +88,10 @@ def test_sharp_corner_apex_below_largest_arc():
     alpha, k, _ = solve_corner(50.0, 90.0, e)
     rho_arc = 50.0 + e * (1 + math.cos(math.pi / 4)) / (1 - math.cos(math.pi / 4))
     assert rho_arc == pytest.approx(79.142, abs=1e-3)
+    c = CASES["line.corner.sharp.apex_radius"]  # the band (50 m, rho_arc) as centre ± half
+    assert c.expected - c.abs == pytest.approx(50.0) and c.expected + c.abs == pytest.approx(
+        rho_arc)
+    assert c.value() == c.approx()
     i = int(np.argmax(k)) + 1
     assert 50.0 < 1.0 / k.max() < rho_arc
     assert alpha[i] == pytest.approx(e, abs=0.01)
@@ -120,14 +103,14 @@ def test_annulus_line_is_outer_edge_minus_margin():
     """A ring of constant width: ∫κ² ds = 2π/r falls as the radius r grows, so the line is the
     outermost circle the band allows: outer edge radius - (car width/2 + margin), to 1 cm."""
     r0, w, car_w, margin = 120.0, 12.0, 2.0, 0.25
-    n = 754
-    phi = np.arange(n) * 2 * math.pi / n
-    tr = make_track(r0 * np.cos(phi), r0 * np.sin(phi), width=np.full(n, w), closed=True,
-                    step_m=1.0)
-    lt = L.min_curvature_line(tr, car_w, margin)
+    # the registry's ring: n = 754 points, make_track(..., width=w, closed=True, step_m=1.0)
+    lt = annulus_line(r0, w, car_w, margin)  # = L.min_curvature_line(tr, car_w, margin)
     radius = np.hypot(lt.x_m, lt.y_m)
     target = r0 + w / 2 - (car_w / 2 + margin)
     assert np.max(np.abs(radius - target)) < 0.01
+    for cid in ("line.annulus.radius", "line.annulus.length"):
+        assert CASES[cid].value() == CASES[cid].approx(), cid
+    assert CASES["line.annulus.radius"].expected == pytest.approx(target)
     assert np.max(np.abs(lt.line_offset_m + (w / 2 - car_w / 2 - margin))) < 0.01
     assert lt.length_m == pytest.approx(2 * math.pi * target, rel=1e-4)
     # the edges move with the line: 1.25 m to the right edge, the rest to the left

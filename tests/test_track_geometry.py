@@ -13,7 +13,6 @@ from pathlib import Path
 import numpy as np
 import pytest
 from click.testing import CliRunner
-from scipy.special import fresnel
 
 from lapbalance.cli import main
 from lapbalance.errors import InputError
@@ -21,17 +20,10 @@ from lapbalance.lap import simulate_lap
 from lapbalance.track import load_track, make_track
 from lapbalance.units import G0
 from tests.helpers import make_car
+from tests.reference_cases import (CASES, circle_points, clothoid_track, geodesic_ring, ids,
+                                   latlon_ring_track, write_latlon_ring)
 
 ROOT = Path(__file__).resolve().parents[1]
-
-
-def circle_points(radius, spacing, rounding, centre=(1234.567, -987.65)):
-    """Points every ``spacing`` on a circle, coordinates rounded to ``rounding``."""
-    n = int(round(2.0 * math.pi * radius / spacing))
-    t = np.arange(n) * (2.0 * math.pi / n)
-    x = centre[0] + radius * np.cos(t)
-    y = centre[1] + radius * np.sin(t)
-    return np.round(x / rounding) * rounding, np.round(y / rounding) * rounding
 
 
 def path_points(parts, spacing, fine=0.01):
@@ -68,6 +60,12 @@ def test_circle_curvature_independent_of_spacing_and_rounding(radius, spacing, r
     assert math.sqrt(float(np.mean(err**2))) <= 0.01
     assert len(tr.corners) == 1 and tr.corners[0].direction == "left"
     assert tr.length_m == pytest.approx(2.0 * math.pi * radius, rel=1e-3)
+    if (spacing, rounding) == (1.0, 1e-3):  # the registry's rows: same checks, same limits
+        reg = f"track.circle.r{radius:g}"
+        assert CASES[f"{reg}.length"].expected == pytest.approx(2.0 * math.pi * radius)
+        assert CASES[f"{reg}.curvature"].abs == 0.01
+        for cid in ids(reg):
+            assert CASES[cid].value() == CASES[cid].approx(), cid
 
 
 # Source: point-mass steady cornering without downforce, m v² / R = mu m g, so
@@ -105,27 +103,15 @@ def test_output_step_does_not_change_the_curve():
 @pytest.mark.parametrize(("spacing", "rounding"), [(0.5, 1e-3), (2.0, 1e-2)])
 def test_clothoid_curvature_is_linear_in_arc_length(spacing, rounding):
     R, Lc, straight, arc = 80.0, 120.0, 150.0, 0.5 * math.pi * 80.0
-    a = math.sqrt(R * Lc)
-    scale = a * math.sqrt(math.pi)
-    s_c = np.arange(0.0, Lc, spacing)
-    S, C = fresnel(s_c / scale)
-    xc, yc = scale * C, scale * S
-    th_e = Lc / (2.0 * R)  # heading at the end of the spiral
-    ex, ey = scale * fresnel(Lc / scale)[1], scale * fresnel(Lc / scale)[0]
-    s_a = np.arange(spacing, arc, spacing)
-    cx, cy = ex - R * math.sin(th_e), ey + R * math.cos(th_e)  # centre of the arc
-    xa = cx + R * np.sin(th_e + s_a / R)
-    ya = cy - R * np.cos(th_e + s_a / R)
-    xs = np.arange(-straight, 0.0, spacing)
-    x = np.concatenate([xs, xc, xa])
-    y = np.concatenate([np.zeros_like(xs), yc, ya])
-    x, y = np.round(x / rounding) * rounding, np.round(y / rounding) * rounding
-    tr = make_track(x, y, closed=False, step_m=1.0)
-    d = tr.distance_m - straight  # arc length from the start of the spiral
-    inner = (d > 0.15 * Lc) & (d < 0.85 * Lc)
-    exact = d[inner] / (R * Lc)
+    # the registry builds the points: straight, then the spiral from scipy.special.fresnel,
+    # then the arc, rounded to ``rounding``
+    tr, d, inner, exact = clothoid_track(spacing, rounding)
     assert np.max(np.abs(tr.curvature_1pm[inner] - exact)) <= 0.02 / R
     assert tr.length_m == pytest.approx(straight + Lc + arc - spacing, rel=2e-3)
+    reg = f"track.clothoid.s{spacing:g}"
+    assert CASES[f"{reg}.curvature"].abs == 0.02 / R
+    for cid in ids(reg):
+        assert CASES[cid].value() == CASES[cid].approx(), cid
 
 
 def _noisy_turn(radius, angle_deg, spacing, noise_m, seed):
@@ -216,13 +202,7 @@ def test_out_and_back_trace_is_refused():
         make_track(x, np.zeros_like(x), closed=True)
 
 
-def _geodesic_ring(lat0, lon0, radius, spacing):
-    from geographiclib.geodesic import Geodesic
-
-    g = Geodesic.WGS84
-    n = int(round(2.0 * math.pi * radius / spacing))
-    pts = [g.Direct(lat0, lon0, 360.0 * i / n, radius) for i in range(n)]
-    return np.array([(p["lat2"], p["lon2"]) for p in pts])
+_geodesic_ring = geodesic_ring
 
 
 # Source: geographiclib (Karney, "Algorithms for geodesics", J. Geodesy 87, 2013, 43-55):
@@ -236,11 +216,16 @@ def test_latlon_projection_anywhere(tmp_path, lat0, lon0):
     g = Geodesic.WGS84
     pts = _geodesic_ring(lat0, lon0, 600.0, 4.0)
     p = tmp_path / "ring.csv"
-    p.write_text("# closed: true\nlat_deg,lon_deg\n"
-                 + "\n".join(f"{a:.9f},{b:.9f}" for a, b in pts) + "\n")
+    write_latlon_ring(p, pts)
     tr = load_track(p)
     geo = sum(g.Inverse(*pts[i], *pts[(i + 1) % len(pts)])["s12"] for i in range(len(pts)))
     assert tr.length_m == pytest.approx(geo, rel=1e-4)
+    tag = {(78.0, 20.0): "high_latitude", (10.0, 179.999): "antimeridian"}.get((lat0, lon0))
+    if tag is not None:  # the registry's rows: the same ring, its geodesic length tabulated
+        c = CASES[f"track.latlon.{tag}.length"]
+        assert c.expected == pytest.approx(geo, rel=1e-8)
+        assert latlon_ring_track(lat0, lon0).length_m == pytest.approx(tr.length_m, rel=1e-12)
+        assert c.value() == c.approx()
     assert 1.0 / np.max(np.abs(tr.curvature_1pm)) == pytest.approx(600.0, rel=1e-3)
     assert len(tr.corners) == 1
 

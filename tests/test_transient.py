@@ -15,12 +15,10 @@ from lapbalance.errors import InputError
 from lapbalance.lap import evaluate_forces, steady_state
 from lapbalance.units import G0
 from tests.helpers import make_car
+from tests.reference_cases import (CASES, TR_LIN, ids, lin_car, step_yaw_gain, straight_step,
+                                   yaw_mode_from_response)
 
-# The linear check car (textbook-style numbers, a = front axle to CG):
-# m = 1200 kg, I_z = 1800 kg m², a = 1.1 m, b = 1.5 m, C_f = 80 kN/rad, C_r = 90 kN/rad.
-TR_LIN = {"yaw_inertia_kgm2": 1800.0, "cornering_stiffness_front_n_per_rad": 80000.0,
-          "cornering_stiffness_rear_n_per_rad": 90000.0, "relaxation_length_m": 0.0,
-          "steering_ratio": 15.0}
+# The linear check car (TR_LIN, lin_car) and the steer-step integrator live in the registry.
 # An invented GT-like car for the nonlinear runs (drag, downforce, engine overrun).
 TR_GT = {"yaw_inertia_kgm2": 2000.0, "cornering_stiffness_front_n_per_rad": 110000.0,
          "cornering_stiffness_rear_n_per_rad": 130000.0, "relaxation_length_m": 0.45,
@@ -31,34 +29,11 @@ GT = dict(aero={"downforce_area_m2": 1.2, "balance_front": 0.42, "drag_area_m2":
           powertrain={"overrun_torque_nm": 300.0}, transient=TR_GT)
 
 
-def lin_car(**tr):
-    return make_car(chassis={"front_weight_fraction": 1.5 / 2.6},
-                    transient={**TR_LIN, **tr})
-
-
 def gt_car(**sections):
     secs = copy.deepcopy(GT)
     for k, v in sections.items():
         secs.setdefault(k, {}).update(v)
     return make_car(**secs)
-
-
-def straight_step(car, speed, delta, t_end, dt=0.002, y0=None):
-    """Integrate from straight running at ``speed`` with the road wheels steered by
-    ``delta`` [rad], no drive force; returns the history array."""
-    m = T.model_parameters(car)
-    q = m.q.copy()
-    q[tk.Q_DELTA] = delta
-    q[tk.Q_F0] = q[tk.Q_F1] = 0.0
-    q[tk.Q_R0] = 1e9
-    if y0 is None:
-        y0 = np.zeros(tk.NY)
-        y0[tk.Y_VX] = speed
-    n = int(round(t_end / dt))
-    hist = np.empty((n + 1, tk.NH))
-    status, rows = tk.integrate(y0, q, m.p, m.mx, m.my, m.mt, dt, n, 1.0, 0.1, hist)
-    assert status == tk.RUN_OK and rows == n + 1
-    return hist
 
 
 # ---------------------------------------------------------------------------------------------
@@ -77,8 +52,11 @@ def test_gillespie_understeer_gradient_and_characteristic_speed():
                               "cornering_stiffness_front_n_per_deg": 2400.0,
                               "cornering_stiffness_rear_n_per_deg": 2800.0})
     lm = T.linear_model(car, 20.0)
-    assert lm["understeer_gradient_deg_per_g"] == pytest.approx(0.700475, rel=5e-6)
-    assert lm["characteristic_speed_mps"] == pytest.approx(45.6680, rel=5e-6)
+    for key, cid in (("understeer_gradient_deg_per_g", "understeer_gradient"),
+                     ("characteristic_speed_mps", "characteristic_speed")):
+        c = CASES[f"transient.gillespie.{cid}"]
+        assert lm[key] == c.approx()
+        assert c.value() == c.approx()
 
 
 def test_linear_closed_forms_textbook_case():
@@ -88,9 +66,12 @@ def test_linear_closed_forms_textbook_case():
     # K = 3.01282e-3 rad/(m/s²), r/delta = 5.57661 1/s, v_ch = 29.377 m/s (derived by hand
     # from those formulas, 6 and 5 figures).
     lm = T.linear_model(lin_car(), 25.0)
-    assert lm["understeer_gradient_rad_per_mps2"] == pytest.approx(3.01282e-3, rel=5e-6)
-    assert lm["yaw_gain_per_s"] == pytest.approx(5.57661, rel=5e-6)
-    assert lm["characteristic_speed_mps"] == pytest.approx(29.377, rel=5e-5)
+    for key, cid in (("understeer_gradient_rad_per_mps2", "understeer_gradient"),
+                     ("yaw_gain_per_s", "yaw_gain_25"),
+                     ("characteristic_speed_mps", "characteristic_speed")):
+        assert lm[key] == CASES[f"transient.linear.{cid}"].approx()
+    for cid in ids("transient.linear"):
+        assert CASES[cid].value() == CASES[cid].approx(), cid
 
 
 def test_understeer_gradient_from_the_nonlinear_steady_turns():
@@ -114,20 +95,21 @@ def test_yaw_rate_gain_from_a_small_steer_step(speed):
     # K (Pacejka ch. 1 gives the same steady-state gain). A 1e-4 rad step, no tyre lag,
     # integrated 6 s: the response settles to the closed form to 1e-5 (the cornering drag of
     # such a small steer slows the car by ~1e-7 m/s).
-    car = lin_car()
     K = 3.01282051e-3
-    h = straight_step(car, speed, 1e-4, 6.0)
-    gain = h[-1, tk.H_Y + tk.Y_R] / 1e-4
-    assert gain == pytest.approx(speed / (2.6 + K * speed * speed), rel=1e-5)
+    c = CASES[f"transient.step_gain.{speed:g}"]
+    assert c.expected == pytest.approx(speed / (2.6 + K * speed * speed), rel=1e-8)
+    gain = step_yaw_gain(speed)  # straight_step(lin_car(), speed, 1e-4, 6.0), settled r/δ
+    assert gain == c.approx()
 
 
 def test_yaw_gain_at_the_characteristic_speed_is_half_the_neutral_gain():
     # Source: Gillespie ch. 6: at the characteristic speed L + K v_ch² = 2L, so the yaw gain
     # is v_ch/(2L), half that of a neutral-steer car; v_ch = sqrt(L/K) = 29.37650 m/s here.
-    car = lin_car(relaxation_length_m=0.4)  # the lag does not change the steady gain
     v = math.sqrt(2.6 / 3.01282051e-3)
-    h = straight_step(car, v, 1e-4, 8.0)
-    assert h[-1, tk.H_Y + tk.Y_R] / 1e-4 == pytest.approx(v / (2 * 2.6), rel=1e-5)
+    c = CASES["transient.step_gain.characteristic"]
+    assert c.expected == pytest.approx(v / (2 * 2.6), rel=1e-8)
+    # relaxation length 0.4 m: the lag does not change the steady gain
+    assert step_yaw_gain(v, 0.4, 8.0) == c.approx()
 
 
 def test_yaw_mode_from_the_integrated_response_matches_the_eigenvalues():
@@ -144,19 +126,19 @@ def test_yaw_mode_from_the_integrated_response_matches_the_eigenvalues():
     m, Iz, a, b, Cf, Cr = 1200.0, 1800.0, 1.1, 1.5, 80e3, 90e3
     assert A[0, 0] == pytest.approx(-(Cf + Cr) / (m * u))
     assert A[1, 1] == pytest.approx(-(a * a * Cf + b * b * Cr) / (Iz * u))
-    y0 = np.zeros(tk.NY)
-    y0[tk.Y_VX] = u
-    y0[tk.Y_R] = 1e-4
-    h = straight_step(car, u, 0.0, 1.0, dt=0.001, y0=y0)
-    step = 20
-    r = h[::step, tk.H_Y + tk.Y_R][:40]
-    M = np.column_stack([r[1:-1], r[:-2]])
-    c1, c2 = np.linalg.lstsq(M, r[2:], rcond=None)[0]
-    mu = np.roots([1.0, -c1, -c2])
-    lam = np.log(mu.astype(complex)) / (step * 0.001)
-    wn = abs(lam[0])
-    zeta = -lam[0].real / wn
-    assert wn / (2 * math.pi) == pytest.approx(lm["natural_frequency_hz"], rel=1e-5)
+    # closed-form eigenvalues (registry values from numpy.linalg.eigvals of this matrix)
+    ev = np.linalg.eigvals(np.array(
+        [[-(Cf + Cr) / (m * u), (b * Cr - a * Cf) / (m * u) - u],
+         [(b * Cr - a * Cf) / (Iz * u), -(a * a * Cf + b * b * Cr) / (Iz * u)]]))
+    c_fn = CASES["transient.yaw_mode.frequency.closed_form"]
+    c_z = CASES["transient.yaw_mode.damping.closed_form"]
+    assert abs(ev[0]) / (2 * math.pi) == c_fn.approx()
+    assert -ev[0].real / abs(ev[0]) == c_z.approx()
+    for cid in ids("transient.yaw_mode"):
+        assert CASES[cid].value() == CASES[cid].approx(), cid
+    # the integrator's free response identifies the same mode as the tool's linear model
+    fn, zeta = yaw_mode_from_response(u)
+    assert fn == pytest.approx(lm["natural_frequency_hz"], rel=1e-5)
     assert zeta == pytest.approx(lm["damping_ratio"], rel=1e-5)
     assert 0 < lm["damping_ratio"] < 1  # an oscillatory yaw mode at 40 m/s for this car
 
