@@ -417,13 +417,10 @@ def _read_columns(path: Path) -> tuple[dict[str, np.ndarray], list[int], tuple, 
         raise InputError("is a folder, not a log file (CSV)", src) from None
     except OSError as e:
         raise InputError(f"cannot read the file ({e.strerror}); check the path", src) from None
-    if b"\x00" in raw[:4096]:
-        raise InputError("this is a binary file, not CSV text; export the log as CSV", src)
-    try:
-        text = raw.decode("utf-8-sig")
-    except UnicodeDecodeError:
-        raise InputError("the file is not UTF-8 text; export the log as CSV (UTF-8)",
-                         src) from None
+    from lapbalance.textio import decode_text
+
+    text = decode_text(raw, src, "a logged run (CSV text); export the log as CSV",
+                       "export the log as CSV (UTF-8)")
     lines = text.splitlines()
     i = 0
     while i < len(lines) and (not lines[i].strip() or lines[i].lstrip().startswith("#")):
