@@ -68,10 +68,9 @@ from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
-from scipy.interpolate import CubicSpline
-from scipy.ndimage import gaussian_filter1d
 
 from lapbalance.errors import InputError, clip
+from lapbalance.spline import cubic_spline
 
 # --------------------------------------------------------------------------------------------
 # Thresholds (engineering judgement unless a source is named)
@@ -1394,6 +1393,7 @@ def _build(x, y, z, bank_deg, width, *, closed, step_m, name, source, sector_sta
     if z is not None:
         sig_z = _elevation_sigma(z, u, closed, (period - u[-1]) if closed else gap, med)
         if closed:
+            from scipy.ndimage import gaussian_filter1d
             zs = gaussian_filter1d(zi, sig_z / ds, mode="wrap", truncate=4.0)
             dz = (np.roll(zs, -1) - np.roll(zs, 1)) / (2.0 * ds)
         else:
@@ -1427,18 +1427,15 @@ def _resample(fit: _Fit, dist: np.ndarray, closed: bool, period):
         def per(a):
             return np.append(a, a[0])
 
-        sx = CubicSpline(s, per(fit.x), bc_type="periodic")
-        sy = CubicSpline(s, per(fit.y), bc_type="periodic")
-        sk = CubicSpline(s, per(fit.kappa), bc_type="periodic")
+        xyk = cubic_spline(s, np.column_stack([per(fit.x), per(fit.y), per(fit.kappa)]),
+                           dist, periodic=True)
         u_at = np.interp(dist, s, np.append(fit.v, period))
         sm = np.interp(dist, s, per(fit.smooth))
     else:
-        sx = CubicSpline(fit.s, fit.x)
-        sy = CubicSpline(fit.s, fit.y)
-        sk = CubicSpline(fit.s, fit.kappa)
+        xyk = cubic_spline(fit.s, np.column_stack([fit.x, fit.y, fit.kappa]), dist)
         u_at = np.interp(dist, fit.s, fit.v)
         sm = np.interp(dist, fit.s, fit.smooth)
-    return sx(dist), sy(dist), sk(dist), u_at, sm
+    return xyk[:, 0], xyk[:, 1], xyk[:, 2], u_at, sm
 
 
 def _smooth_open(a: np.ndarray, sigma: float) -> np.ndarray:
@@ -1454,6 +1451,7 @@ def _smooth_open(a: np.ndarray, sigma: float) -> np.ndarray:
     left = 2.0 * c0[1] - a[pad:0:-1]
     right = 2.0 * c1[1] - a[-2:-pad - 2:-1]
     ext = np.concatenate([left, a, right])
+    from scipy.ndimage import gaussian_filter1d
     return gaussian_filter1d(ext, sigma, mode="nearest", truncate=4.0)[pad:pad + a.size]
 
 
