@@ -949,7 +949,7 @@ def speed_noise_kph(speed_mps) -> float:
 def aligned_distance(lap: LoggedLap, al: Alignment) -> np.ndarray:
     """Track distance of every sample of ``lap`` under ``al`` (unwrapped, monotone). [m]"""
     if al.method == "positions":
-        from scipy.ndimage import gaussian_filter1d
+        from lapbalance.filters import gaussian_filter1d
 
         d = lap.logger_distance_m
         line = al.scale * d + al.offset_m
@@ -1018,7 +1018,7 @@ def _delta(grid, model) -> np.ndarray:
 
 
 def _smooth(a: np.ndarray, sigma_steps: float, closed: bool) -> np.ndarray:
-    from scipy.ndimage import gaussian_filter1d
+    from lapbalance.filters import gaussian_filter1d
 
     ok = np.isfinite(a)
     if not ok.any():

@@ -758,7 +758,7 @@ class _PSpline:
 
 
 def _moving_average(a: np.ndarray, m: int, closed: bool) -> np.ndarray:
-    from scipy.ndimage import uniform_filter1d
+    from lapbalance.filters import uniform_filter1d
 
     return uniform_filter1d(a, m, mode="wrap" if closed else "nearest")
 
@@ -860,7 +860,7 @@ def _fit_centreline(x, y, u, closed, period, noise_m=None, grid_m=0.0) -> _Fit:
     .. [3] V. Katkovnik, "A new method for varying adaptive bandwidth selection", IEEE
        Transactions on Signal Processing 47(9), 1999, 2567-2571.
     """
-    from scipy.ndimage import gaussian_filter1d, median_filter, uniform_filter1d
+    from lapbalance.filters import gaussian_filter1d, median_filter, uniform_filter1d
 
     n = x.size
     total = period if closed else float(u[-1])
@@ -879,7 +879,7 @@ def _fit_centreline(x, y, u, closed, period, noise_m=None, grid_m=0.0) -> _Fit:
     # knots
     g_target = FIT_BIN_M if bin_m > 0 else min(max(0.5 * h_fit, FIT_BIN_M), FIT_KNOT_MAX_M)
     if closed:
-        from scipy.fft import next_fast_len
+        from lapbalance.filters import next_fast_len
 
         # a grid length with small prime factors keeps the periodic FFTs fast
         k_per = next_fast_len(max(int(round(total / g_target)), 8))
@@ -949,7 +949,9 @@ def _fit_centreline(x, y, u, closed, period, noise_m=None, grid_m=0.0) -> _Fit:
         left = 2.0 * base[0] - base[lead:0:-1]
         right = 2.0 * base[-1] - base[-2:-lead - 2:-1]
         ext = np.concatenate([left, base, right])
-    from scipy.fft import irfft, next_fast_len, rfft
+    from numpy.fft import irfft, rfft
+
+    from lapbalance.filters import next_fast_len
 
     nfft = ext.shape[0] if closed else next_fast_len(ext.shape[0] + 8)
     if not closed:
@@ -1393,7 +1395,7 @@ def _build(x, y, z, bank_deg, width, *, closed, step_m, name, source, sector_sta
     if z is not None:
         sig_z = _elevation_sigma(z, u, closed, (period - u[-1]) if closed else gap, med)
         if closed:
-            from scipy.ndimage import gaussian_filter1d
+            from lapbalance.filters import gaussian_filter1d
             zs = gaussian_filter1d(zi, sig_z / ds, mode="wrap", truncate=4.0)
             dz = (np.roll(zs, -1) - np.roll(zs, 1)) / (2.0 * ds)
         else:
@@ -1451,7 +1453,7 @@ def _smooth_open(a: np.ndarray, sigma: float) -> np.ndarray:
     left = 2.0 * c0[1] - a[pad:0:-1]
     right = 2.0 * c1[1] - a[-2:-pad - 2:-1]
     ext = np.concatenate([left, a, right])
-    from scipy.ndimage import gaussian_filter1d
+    from lapbalance.filters import gaussian_filter1d
     return gaussian_filter1d(ext, sigma, mode="nearest", truncate=4.0)[pad:pad + a.size]
 
 
