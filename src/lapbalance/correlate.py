@@ -105,6 +105,7 @@ import numpy as np
 
 from lapbalance.car import Car
 from lapbalance.errors import InputError, did_you_mean
+from lapbalance.filters import gaussian_filter1d
 
 # --------------------------------------------------------------------------------------------
 # Thresholds (engineering judgement unless a source is named)
@@ -949,8 +950,6 @@ def speed_noise_kph(speed_mps) -> float:
 def aligned_distance(lap: LoggedLap, al: Alignment) -> np.ndarray:
     """Track distance of every sample of ``lap`` under ``al`` (unwrapped, monotone). [m]"""
     if al.method == "positions":
-        from lapbalance.filters import gaussian_filter1d
-
         d = lap.logger_distance_m
         line = al.scale * d + al.offset_m
         spacing = max(float(np.median(np.diff(d))), 1e-3) if d.size > 1 else 1.0
@@ -1018,8 +1017,6 @@ def _delta(grid, model) -> np.ndarray:
 
 
 def _smooth(a: np.ndarray, sigma_steps: float, closed: bool) -> np.ndarray:
-    from lapbalance.filters import gaussian_filter1d
-
     ok = np.isfinite(a)
     if not ok.any():
         return a

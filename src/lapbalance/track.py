@@ -70,6 +70,7 @@ from pathlib import Path
 import numpy as np
 
 from lapbalance.errors import InputError, clip
+from lapbalance.filters import gaussian_filter1d, median_filter, next_fast_len, uniform_filter1d
 from lapbalance.spline import cubic_spline
 
 # --------------------------------------------------------------------------------------------
@@ -758,8 +759,6 @@ class _PSpline:
 
 
 def _moving_average(a: np.ndarray, m: int, closed: bool) -> np.ndarray:
-    from lapbalance.filters import uniform_filter1d
-
     return uniform_filter1d(a, m, mode="wrap" if closed else "nearest")
 
 
@@ -860,8 +859,6 @@ def _fit_centreline(x, y, u, closed, period, noise_m=None, grid_m=0.0) -> _Fit:
     .. [3] V. Katkovnik, "A new method for varying adaptive bandwidth selection", IEEE
        Transactions on Signal Processing 47(9), 1999, 2567-2571.
     """
-    from lapbalance.filters import gaussian_filter1d, median_filter, uniform_filter1d
-
     n = x.size
     total = period if closed else float(u[-1])
     h_in = total / (n if closed else max(n - 1, 1))
@@ -879,8 +876,6 @@ def _fit_centreline(x, y, u, closed, period, noise_m=None, grid_m=0.0) -> _Fit:
     # knots
     g_target = FIT_BIN_M if bin_m > 0 else min(max(0.5 * h_fit, FIT_BIN_M), FIT_KNOT_MAX_M)
     if closed:
-        from lapbalance.filters import next_fast_len
-
         # a grid length with small prime factors keeps the periodic FFTs fast
         k_per = next_fast_len(max(int(round(total / g_target)), 8))
         g = total / k_per
@@ -949,22 +944,18 @@ def _fit_centreline(x, y, u, closed, period, noise_m=None, grid_m=0.0) -> _Fit:
         left = 2.0 * base[0] - base[lead:0:-1]
         right = 2.0 * base[-1] - base[-2:-lead - 2:-1]
         ext = np.concatenate([left, base, right])
-    from numpy.fft import irfft, rfft
-
-    from lapbalance.filters import next_fast_len
-
     nfft = ext.shape[0] if closed else next_fast_len(ext.shape[0] + 8)
     if not closed:
         ext = np.concatenate([ext, np.repeat(ext[-1:], nfft - ext.shape[0], axis=0)])
-    spec = rfft(ext, n=nfft, axis=0)
+    spec = np.fft.rfft(ext, n=nfft, axis=0)
     om = 2.0 * math.pi * np.fft.rfftfreq(nfft, g)[:, None]
     mode = "wrap" if closed else "nearest"
     ks, xs, ys, sp, sd, sds = [], [], [], [], [], []
     for L in lens:
         gk = np.exp(-0.5 * (om * L) ** 2)
-        f = irfft(spec[:, :2] * gk, n=nfft, axis=0)[lead:lead + count]
-        d1 = irfft(spec * (1j * om * gk), n=nfft, axis=0)[lead:lead + count]
-        d2 = irfft(spec * (-(om**2) * gk), n=nfft, axis=0)[lead:lead + count]
+        f = np.fft.irfft(spec[:, :2] * gk, n=nfft, axis=0)[lead:lead + count]
+        d1 = np.fft.irfft(spec * (1j * om * gk), n=nfft, axis=0)[lead:lead + count]
+        d2 = np.fft.irfft(spec * (-(om**2) * gk), n=nfft, axis=0)[lead:lead + count]
         x1, y1, x2, y2 = d1[:, 0], d1[:, 1], d2[:, 0], d2[:, 1]
         sp2 = np.maximum(x1 * x1 + y1 * y1, 1e-24)
         speed = np.sqrt(sp2)
@@ -1395,7 +1386,6 @@ def _build(x, y, z, bank_deg, width, *, closed, step_m, name, source, sector_sta
     if z is not None:
         sig_z = _elevation_sigma(z, u, closed, (period - u[-1]) if closed else gap, med)
         if closed:
-            from lapbalance.filters import gaussian_filter1d
             zs = gaussian_filter1d(zi, sig_z / ds, mode="wrap", truncate=4.0)
             dz = (np.roll(zs, -1) - np.roll(zs, 1)) / (2.0 * ds)
         else:
@@ -1453,7 +1443,6 @@ def _smooth_open(a: np.ndarray, sigma: float) -> np.ndarray:
     left = 2.0 * c0[1] - a[pad:0:-1]
     right = 2.0 * c1[1] - a[-2:-pad - 2:-1]
     ext = np.concatenate([left, a, right])
-    from lapbalance.filters import gaussian_filter1d
     return gaussian_filter1d(ext, sigma, mode="nearest", truncate=4.0)[pad:pad + a.size]
 
 
