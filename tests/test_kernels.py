@@ -13,11 +13,12 @@ from tests.helpers import make_car
 
 SRC = Path(__file__).resolve().parents[1] / "src" / "lapbalance"
 ALLOWED = {"math", "numpy", "numba", "__future__", "lapbalance.loads", "lapbalance.tyre",
-           "lapbalance.units", "lapbalance.kernels"}
+           "lapbalance.units", "lapbalance.kernels", "lapbalance.views", "numba.core",
+           "numba.extending"}
 
 
 @pytest.mark.parametrize("module", ["kernels.py", "loads.py", "tyre.py",
-                                    "transient_kernels.py"])
+                                    "transient_kernels.py", "views.py"])
 def test_kernel_modules_import_only_numeric_libraries(module):
     # Common practice (DEVELOPERS.md, layers): kernels import only math, numpy, numba (and each
     # other).

@@ -19,9 +19,13 @@ from collections.abc import Callable
 
 #: Entry-point kernels called from Python (name in :mod:`lapbalance.kernels`). Their callees
 #: are compiled with them.
-ENTRY_KERNELS = ("corner_limits", "speed_passes", "final_pass", "control_for_ax",
-                 "max_accel_control", "max_decel_control", "state_control", "corner_limit",
-                 "engine_force", "state", "liftoff_margins", "liftoff_response")
+#: The lap runs the serial twins of the parallel loops (``corner_limits_serial``...); the
+#: parallel ones compile on first use, only for long laps on many cores
+#: (:func:`lapbalance.lap.solver_threads`).
+ENTRY_KERNELS = ("corner_limits_serial", "speed_passes", "final_pass_serial",
+                 "control_for_ax", "max_accel_control", "max_decel_control", "state_control",
+                 "corner_limit", "engine_force", "state", "liftoff_margins_serial",
+                 "liftoff_response")
 #: Entry-point kernels of the single-track lift-off runs (in
 #: :mod:`lapbalance.transient_kernels`); compiled in the same first run, since every command
 #: that runs a lap also runs lift-off in time for a car with a ``[transient]`` section.

@@ -21,6 +21,7 @@ from numba import njit, prange
 
 from lapbalance.loads import axle_loads, road_accelerations
 from lapbalance.tyre import load_factor, usage
+from lapbalance.views import borrowed, keep_alive
 
 G = 9.80665
 
@@ -653,8 +654,10 @@ def _refine(kind, x_ok, g_ok, x_bad, g_bad, v, kappa, grade, bank, p, mx, my, mt
     """Illinois (modified regula falsi) search for the feasibility boundary.
 
     ``kind`` 0: x is the speed [m/s] (steady state); 1: x is the control force [N] at speed
-    ``v``. Requires g(x_ok) <= 0 < g(x_bad); returns a feasible x within ``xtol`` of the
-    boundary (or whose usage is within 2e-5 of 1). Falls back to bisection while g(x_bad) is
+    ``v``. Kinds are floats (0.0, 1.0, 2.0): an integer constant would make numba compile
+    one version per kind (a literal type each), tripling these searches' compile time.
+    Requires g(x_ok) <= 0 < g(x_bad); returns a feasible x within ``xtol`` of the boundary
+    (or whose usage is within 2e-5 of 1). Falls back to bisection while g(x_bad) is
     not finite (an unloaded axle).
     """
     return _illinois(kind, x_ok, g_ok, x_bad, g_bad, v, 0.0, kappa, grade, bank, p, mx, my,
@@ -711,9 +714,9 @@ def _g_brake(vnext, ds, kappa, grade, bank, F, p, mx, my, mt, out):
 
 @njit(cache=True, error_model="numpy")
 def _g_kind(kind, x, v, ds, kappa, grade, bank, p, mx, my, mt, out):
-    if kind == 0:
+    if kind == 0.0:
         return _g_speed(x, kappa, grade, bank, p, mx, my, mt, out)
-    if kind == 1:
+    if kind == 1.0:
         return _g_control(v, kappa, grade, bank, x, p, mx, my, mt, out)
     return _g_brake(v, ds, kappa, grade, bank, x, p, mx, my, mt, out)
 
@@ -769,7 +772,7 @@ def largest_feasible_control(v, kappa, grade, bank, f_ok, f_bad, p, mx, my, mt, 
     g_bad = _g_control(v, kappa, grade, bank, f_bad, p, mx, my, mt, out)
     if g_bad <= 0.0:
         return f_bad
-    return _refine(1, f_ok, g_ok, f_bad, g_bad, v, kappa, grade, bank, p, mx, my, mt, out, tol)
+    return _refine(1.0, f_ok, g_ok, f_bad, g_bad, v, kappa, grade, bank, p, mx, my, mt, out, tol)
 
 
 @njit(cache=True, error_model="numpy")
@@ -829,7 +832,7 @@ def _window_search(kind, x0, slope, v, ds, kappa, grade, bank, p, mx, my, mt, ou
                 slope = s
         xp = x
         gp = g
-        if kind == 0 and x > 0.0:
+        if kind == 0.0 and x > 0.0:
             # usage grows about as a power of speed (v² without aero): step in that model
             e = slope * x / (1.0 + g)
             xn = x * ((1.0 - 1e-5) / (1.0 + g)) ** (1.0 / e) if e > 0.1 else \
@@ -867,7 +870,7 @@ def corner_limit(kappa, grade, bank, guess, lo_known, vcap, p, mx, my, mt, out, 
                                            mt, out)
             if ghi <= 0.0:
                 return vcap
-            return _refine(0, lo, glo, hi, ghi, 0.0, kappa, grade, bank, p, mx, my, mt, out,
+            return _refine(0.0, lo, glo, hi, ghi, 0.0, kappa, grade, bank, p, mx, my, mt, out,
                            tol)
     found = False
     lo = 0.0
@@ -924,7 +927,7 @@ def corner_limit(kappa, grade, bank, guess, lo_known, vcap, p, mx, my, mt, out, 
                 return vcap
             lo = hi
             glo = ghi
-    return _refine(0, lo, glo, hi, ghi, 0.0, kappa, grade, bank, p, mx, my, mt, out, tol)
+    return _refine(0.0, lo, glo, hi, ghi, 0.0, kappa, grade, bank, p, mx, my, mt, out, tol)
 
 
 @njit(cache=True, parallel=True, error_model="numpy")
@@ -946,9 +949,27 @@ def corner_limits(kappa, grade, bank, vcap, p, mx, my, mt, tol, nchunks):
 
 
 @njit(cache=True, error_model="numpy")
+def corner_limits_serial(kappa, grade, bank, vcap, p, mx, my, mt, tol, nchunks):
+    """:func:`corner_limits` on the calling thread: the same chunks one after another (the
+    same warm starts, so the same numbers), without starting numba's thread pool."""
+    n = kappa.shape[0]
+    vlim = np.empty(n)
+    size = (n + nchunks - 1) // nchunks
+    for c in range(nchunks):
+        _corner_limits_chunk(kappa, grade, bank, vcap, p, mx, my, mt, tol, c * size,
+                             min(n, (c + 1) * size), vlim)
+    return vlim
+
+
+@njit(cache=True, error_model="numpy")
 def _corner_limits_chunk(kappa, grade, bank, vcap, p, mx, my, mt, tol, start, stop, vlim):
     """Corner limits of steps start..stop-1 into ``vlim``, each warm-started from the last."""
-    out = np.full(NOUT, np.nan)
+    own = np.full(NOUT, np.nan)
+    out = borrowed(own)  # no reference counting in the searches (lapbalance.views)
+    p = borrowed(p)
+    mx = borrowed(mx)
+    my = borrowed(my)
+    mt = borrowed(mt)
     prev_v = 0.0
     prev_k = 0.0
     prev_g = math.nan
@@ -992,7 +1013,7 @@ def _corner_limits_chunk(kappa, grade, bank, vcap, p, mx, my, mt, tol, start, st
                     ge = 3.0 * prev_v - 3.0 * v2 + v3
                     if abs(ge - guess) < 0.05 * guess:
                         guess = ge
-                x, s2, ok = _window_search(0, guess, slope, 0.0, 0.0, k, grade[i], bank[i],
+                x, s2, ok = _window_search(0.0, guess, slope, 0.0, 0.0, k, grade[i], bank[i],
                                            p, mx, my, mt, out, tol, V_MIN, vcap, -1.0)
                 if ok and x < vcap and x >= lo_known:
                     vl = x
@@ -1012,6 +1033,7 @@ def _corner_limits_chunk(kappa, grade, bank, vcap, p, mx, my, mt, tol, start, st
         prev_k = k
         prev_g = grade[i]
         prev_b = bank[i]
+    keep_alive(own)
 
 
 @njit(cache=True, error_model="numpy")
@@ -1021,7 +1043,7 @@ def _search_from_hint(v, kappa, grade, bank, f_ok, g_ok, hint, direction, f_stop
     ``direction`` (+1 more drive, -1 more braking), starting near ``hint`` and not past
     ``f_stop`` (returned when everything up to it is feasible)."""
     m = p[P_MASS]
-    return _search_kind(1, v, 0.0, kappa, grade, bank, f_ok, g_ok, hint, 0.005 * m * G,
+    return _search_kind(1.0, v, 0.0, kappa, grade, bank, f_ok, g_ok, hint, 0.005 * m * G,
                         0.02 * m * G, direction, f_stop, p, mx, my, mt, out, ftol)
 
 
@@ -1102,8 +1124,8 @@ def _max_accel_feng(v, kappa, grade, bank, feng, p, mx, my, mt, out, ftol, hint,
     gs = max_usage(out) - 1.0
     if feng <= fs:
         # the engine cannot hold speed and less drive is infeasible: least extra drive
-        return _refine(1, fs, gs, feng, 1.0, v, kappa, grade, bank, p, mx, my, mt, out, ftol)
-    return _search_kind(1, v, 0.0, kappa, grade, bank, fs, gs, hint, back, step, 1.0, feng, p,
+        return _refine(1.0, fs, gs, feng, 1.0, v, kappa, grade, bank, p, mx, my, mt, out, ftol)
+    return _search_kind(1.0, v, 0.0, kappa, grade, bank, fs, gs, hint, back, step, 1.0, feng, p,
                         mx, my, mt, out, ftol)
 
 
@@ -1129,7 +1151,15 @@ def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, t
     the last step (NaN = free).
     """
     n = kappa.shape[0]
-    out = np.full(NOUT, np.nan)
+    own = np.full(NOUT, np.nan)
+    out = borrowed(own)  # no reference counting in the searches (lapbalance.views)
+    p = borrowed(p)
+    gears = borrowed(gears)
+    trpm = borrowed(trpm)
+    tnm = borrowed(tnm)
+    mx = borrowed(mx)
+    my = borrowed(my)
+    mt = borrowed(mt)
     m = p[P_MASS]
     vf = np.empty(n)
     vf[0] = vlim[0] if math.isnan(v_start) else min(v_start, vlim[0])
@@ -1156,13 +1186,13 @@ def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, t
             fs = _resistance_nomap(vi, kappa[i], grade[i], bank[i], p)
             F = math.nan
             if guess < feng and fs < feng and not math.isnan(slope):
-                x, s2, ok = _window_search(1, guess, slope, vi, 0.0, kappa[i], grade[i],
+                x, s2, ok = _window_search(1.0, guess, slope, vi, 0.0, kappa[i], grade[i],
                                            bank[i], p, mx, my, mt, out, ftol, fs, feng, feng)
                 if ok:
                     F = x
                     slope = s2
             if math.isnan(F) and guess < feng and fs < feng:
-                F = _search_kind(1, vi, 0.0, kappa[i], grade[i], bank[i], fs, math.nan, guess,
+                F = _search_kind(1.0, vi, 0.0, kappa[i], grade[i], bank[i], fs, math.nan, guess,
                                  d, d, 1.0, feng, p, mx, my, mt, out, ftol)
             if math.isnan(F):
                 F = _max_accel_feng(vi, kappa[i], grade[i], bank[i], feng, p, mx, my, mt, out,
@@ -1216,13 +1246,13 @@ def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, t
         f_stop = -5.0 * m * G - 5.0 * qc * (abs(p[P_CLAF]) + abs(p[P_CLAR]) + 1.0)
         F = math.nan
         if not math.isnan(guess) and not math.isnan(slope) and f_stop < guess < f_ok:
-            x, s2, ok = _window_search(2, guess, slope, vnext, ds, kappa[i], grade[i], bank[i],
+            x, s2, ok = _window_search(2.0, guess, slope, vnext, ds, kappa[i], grade[i], bank[i],
                                        p, mx, my, mt, out, ftol, f_stop, f_ok, f_stop)
             if ok:
                 F = x
                 slope = s2
         if math.isnan(F):
-            F = _search_kind(2, vnext, ds, kappa[i], grade[i], bank[i], f_ok, math.nan, guess,
+            F = _search_kind(2.0, vnext, ds, kappa[i], grade[i], bank[i], f_ok, math.nan, guess,
                              back, step, -1.0, f_stop, p, mx, my, mt, out, ftol)
             slope = -1.0 / (p[P_MUXF] * (m * G + abs(out[O_DOWNF])))
         if not math.isnan(F):
@@ -1254,6 +1284,7 @@ def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, t
     v = np.empty(n)
     for i in range(n):
         v[i] = vf[i] if vf[i] < vb[i] else vb[i]
+    keep_alive(own)
     return v
 
 
@@ -1287,12 +1318,50 @@ def final_pass(v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm, tnm
     nchunks = 8 if n > 400 else 1
     size = (n + nchunks - 1) // nchunks
     for ch in prange(nchunks):
-        out = np.full(NOUT, np.nan)
-        tmp = np.full(NOUT, np.nan)
-        for i in range(ch * size, min(n, (ch + 1) * size)):
-            _final_step(i, v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm, tnm,
-                        mx, my, mt, ftol, ay_liftoff, res, out, tmp)
+        _final_chunk(v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm, tnm, mx,
+                     my, mt, ftol, ay_liftoff, res, ch * size, min(n, (ch + 1) * size))
     return res
+
+
+@njit(cache=True, error_model="numpy")
+def final_pass_serial(v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm, tnm, mx,
+                      my, mt, ftol, ay_liftoff):
+    """:func:`final_pass` on the calling thread (the same chunks in turn, the same numbers)."""
+    n = v.shape[0]
+    res = np.zeros((n, NOUT + NCH))
+    nchunks = 8 if n > 400 else 1
+    size = (n + nchunks - 1) // nchunks
+    for ch in range(nchunks):
+        _final_chunk(v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm, tnm, mx,
+                     my, mt, ftol, ay_liftoff, res, ch * size, min(n, (ch + 1) * size))
+    return res
+
+
+@njit(cache=True, error_model="numpy")
+def _final_chunk(v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm, tnm, mx, my, mt,
+                 ftol, ay_liftoff, res, start, stop):
+    """Rows start..stop-1 of :func:`final_pass`."""
+    own_out = np.full(NOUT, np.nan)
+    own_tmp = np.full(NOUT, np.nan)
+    out = borrowed(own_out)  # no reference counting in the searches (lapbalance.views)
+    tmp = borrowed(own_tmp)
+    v = borrowed(v)
+    kappa = borrowed(kappa)
+    grade = borrowed(grade)
+    bank = borrowed(bank)
+    res = borrowed(res)
+    p = borrowed(p)
+    gears = borrowed(gears)
+    trpm = borrowed(trpm)
+    tnm = borrowed(tnm)
+    mx = borrowed(mx)
+    my = borrowed(my)
+    mt = borrowed(mt)
+    for i in range(start, stop):
+        _final_step(i, v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm, tnm, mx,
+                    my, mt, ftol, ay_liftoff, res, out, tmp)
+    keep_alive(own_out)
+    keep_alive(own_tmp)
 
 
 @njit(cache=True, error_model="numpy")
@@ -1377,7 +1446,8 @@ NMARGIN = 7
 @njit(cache=True)
 def lift_state(v, kappa, grade, bank, coast, p, gears, mx, my, mt, out):
     """State after a lift at speed v [m/s]: drive replaced by the engine's overrun force in
-    the gear of that speed (``coast`` = 0) or by nothing (``coast`` = 1), no brakes.
+    the gear of that speed (``coast`` = 0.0) or by nothing (``coast`` = 1.0), no brakes
+    (a float, so one compiled version serves both).
 
     Fills ``out`` and returns the status code (0 = feasible loads)."""
     fo = 0.0 if coast != 0 else overrun_force(v, p, gears)
@@ -1529,32 +1599,61 @@ def liftoff_margins(kappa, grade, bank, vlim, checked, p, gears, mx, my, mt, tol
     res = np.full((n, NMARGIN), np.nan)
     size = (n + nchunks - 1) // nchunks
     for c in prange(nchunks):
-        out = np.full(NOUT, np.nan)
-        prev = -10
-        r_on = 1.0
-        r_co = 1.0
-        for i in range(c * size, min(n, (c + 1) * size)):
-            if checked[i] <= 0.0 or vlim[i] <= V_MIN:
-                continue
-            k = kappa[i]
-            vl = vlim[i]
-            g_on = r_on * vl if prev == i - 1 else 0.0
-            g_co = r_co * vl if prev == i - 1 else 0.0
-            vs, ut = liftoff_safe_speed(k, grade[i], bank[i], vl, g_on, 0, p, gears, mx, my,
-                                        mt, out, tol)
-            res[i, M_LAMBDA] = margin_of(vs, vl, k, grade[i], bank[i])
-            res[i, M_VSAFE] = vs
-            res[i, M_RESERVE] = 1.0 - (ut if ut < 2.0 else 2.0)
-            vc, uc = liftoff_safe_speed(k, grade[i], bank[i], vl, g_co, 1, p, gears, mx, my,
-                                        mt, out, tol)
-            res[i, M_LAMBDA_COAST] = margin_of(vc, vl, k, grade[i], bank[i])
-            res[i, M_VSAFE_COAST] = vc
-            res[i, M_RESERVE_COAST] = 1.0 - (uc if uc < 2.0 else 2.0)
-            res[i, M_AYLIM] = _signed_ay(vl, k, grade[i], bank[i])
-            r_on = vs / vl
-            r_co = vc / vl
-            prev = i
+        _liftoff_margins_chunk(kappa, grade, bank, vlim, checked, p, gears, mx, my, mt, tol,
+                               c * size, min(n, (c + 1) * size), res)
     return res
+
+
+@njit(cache=True)
+def liftoff_margins_serial(kappa, grade, bank, vlim, checked, p, gears, mx, my, mt, tol,
+                           nchunks):
+    """:func:`liftoff_margins` on the calling thread (the same chunks in turn)."""
+    n = kappa.shape[0]
+    res = np.full((n, NMARGIN), np.nan)
+    size = (n + nchunks - 1) // nchunks
+    for c in range(nchunks):
+        _liftoff_margins_chunk(kappa, grade, bank, vlim, checked, p, gears, mx, my, mt, tol,
+                               c * size, min(n, (c + 1) * size), res)
+    return res
+
+
+@njit(cache=True)
+def _liftoff_margins_chunk(kappa, grade, bank, vlim, checked, p, gears, mx, my, mt, tol,
+                           start, stop, res):
+    """Lift-off margins of steps start..stop-1 into ``res``, each warm-started from the
+    previous checked step."""
+    own = np.full(NOUT, np.nan)
+    out = borrowed(own)  # no reference counting in the searches (lapbalance.views)
+    p = borrowed(p)
+    gears = borrowed(gears)
+    mx = borrowed(mx)
+    my = borrowed(my)
+    mt = borrowed(mt)
+    prev = -10
+    r_on = 1.0
+    r_co = 1.0
+    for i in range(start, stop):
+        if checked[i] <= 0.0 or vlim[i] <= V_MIN:
+            continue
+        k = kappa[i]
+        vl = vlim[i]
+        g_on = r_on * vl if prev == i - 1 else 0.0
+        g_co = r_co * vl if prev == i - 1 else 0.0
+        vs, ut = liftoff_safe_speed(k, grade[i], bank[i], vl, g_on, 0.0, p, gears, mx, my,
+                                    mt, out, tol)
+        res[i, M_LAMBDA] = margin_of(vs, vl, k, grade[i], bank[i])
+        res[i, M_VSAFE] = vs
+        res[i, M_RESERVE] = 1.0 - (ut if ut < 2.0 else 2.0)
+        vc, uc = liftoff_safe_speed(k, grade[i], bank[i], vl, g_co, 1.0, p, gears, mx, my,
+                                    mt, out, tol)
+        res[i, M_LAMBDA_COAST] = margin_of(vc, vl, k, grade[i], bank[i])
+        res[i, M_VSAFE_COAST] = vc
+        res[i, M_RESERVE_COAST] = 1.0 - (uc if uc < 2.0 else 2.0)
+        res[i, M_AYLIM] = _signed_ay(vl, k, grade[i], bank[i])
+        r_on = vs / vl
+        r_co = vc / vl
+        prev = i
+    keep_alive(own)
 
 
 @njit(cache=True)
@@ -1576,7 +1675,7 @@ def liftoff_response(kappa, grade, bank, speeds, p, gears, mx, my, mt):
         for k in range(NOUT):
             res[i, 0, k] = out[k]
         for mode in range(2):
-            lift_state(v, kappa, grade, bank, mode, p, gears, mx, my, mt, out)
+            lift_state(v, kappa, grade, bank, float(mode), p, gears, mx, my, mt, out)
             for k in range(NOUT):
                 res[i, 1 + mode, k] = out[k]
     return res

@@ -22,9 +22,12 @@ from lapbalance import kernels as _k
 from lapbalance import liftoff
 from lapbalance.car import Car
 from lapbalance.errors import InfeasibleError, InputError, PhysicsWarning
-from lapbalance.kernels import corner_limits as _corner_limits_kernel
-from lapbalance.kernels import final_pass as _final_pass_kernel
-from lapbalance.kernels import liftoff_margins as _liftoff_margins_kernel
+from lapbalance.kernels import corner_limits as _corner_limits_parallel
+from lapbalance.kernels import corner_limits_serial as _corner_limits_kernel
+from lapbalance.kernels import final_pass as _final_pass_parallel
+from lapbalance.kernels import final_pass_serial as _final_pass_kernel
+from lapbalance.kernels import liftoff_margins as _liftoff_margins_parallel
+from lapbalance.kernels import liftoff_margins_serial as _liftoff_margins_kernel
 from lapbalance.kernels import speed_passes as _speed_passes_kernel
 from lapbalance.liftoff import corner_mask as _corner_mask
 from lapbalance.params import (  # noqa: F401  (public here too)
@@ -328,14 +331,20 @@ def solver_threads(n_steps: int) -> int:
 
 @contextlib.contextmanager
 def _threads(n: int):
-    """Run the parallel kernels on ``n`` numba threads (this thread's setting, restored)."""
+    """Run the parallel kernels on ``n`` numba threads (this thread's setting, restored);
+    yields True when they should run (``n`` > 1). With ``n`` = 1 the serial twins run and
+    numba's thread pool is never touched: a process that has not started it can fork
+    safely (a sweep's workers are forked from it, see :mod:`lapbalance.sweep`)."""
+    if n <= 1:
+        yield False
+        return
     import numba
 
     before = numba.get_num_threads()
     if n != before:
         numba.set_num_threads(n)
     try:
-        yield
+        yield True
     finally:
         if n != before:
             numba.set_num_threads(before)
@@ -394,9 +403,9 @@ def simulate_lap(car: Car, track, *, start_speed_kph: float | None = None,
     vcap = speed_cap(car)
     nchunks = 8 if n > 400 else 1
     threads = solver_threads(n)
-    with _threads(threads):
-        vlim = _corner_limits_kernel(kappa, grade, bank, vcap, p, mx, my, mt, SPEED_TOL,
-                                     nchunks)
+    with _threads(threads) as par:
+        vlim = (_corner_limits_parallel if par else _corner_limits_kernel)(
+            kappa, grade, bank, vcap, p, mx, my, mt, SPEED_TOL, nchunks)
     bad = np.flatnonzero(vlim <= 0.0)
     if bad.size:
         i = int(bad[0])
@@ -424,9 +433,10 @@ def simulate_lap(car: Car, track, *, start_speed_kph: float | None = None,
         tail = float(v[0])
     else:
         tail = closed_tail_speed
-    with _threads(threads):
-        res = _final_pass_kernel(v, kappa, grade, bank, ds, tail, vcap, p, gears, trpm, tnm,
-                                 mx, my, mt, FORCE_TOL, liftoff_ay_threshold)
+    with _threads(threads) as par:
+        res = (_final_pass_parallel if par else _final_pass_kernel)(
+            v, kappa, grade, bank, ds, tail, vcap, p, gears, trpm, tnm, mx, my, mt, FORCE_TOL,
+            liftoff_ay_threshold)
     vnext = np.append(v[1:], v[0] if track.closed else v[-1])
     vsum = v + vnext
     if np.any(vsum[: n if track.closed else n - 1] <= 0.0):
@@ -438,10 +448,10 @@ def simulate_lap(car: Car, track, *, start_speed_kph: float | None = None,
         dt[-1] = 0.0
     time = np.concatenate([[0.0], np.cumsum(dt)[:-1]])
     lap_time = float(dt.sum())
-    with _threads(threads):
-        mres = _liftoff_margins_kernel(kappa, grade, bank, vlim,
-                                       np.ascontiguousarray(res[:, _k.NOUT + 6]), p, gears,
-                                       mx, my, mt, MARGIN_TOL, nchunks)
+    with _threads(threads) as par:
+        mres = (_liftoff_margins_parallel if par else _liftoff_margins_kernel)(
+            kappa, grade, bank, vlim, np.ascontiguousarray(res[:, _k.NOUT + 6]), p, gears, mx,
+            my, mt, MARGIN_TOL, nchunks)
     ch = _channels(car, track, v, vlim, res, time)
     _margin_channels(ch, vlim, mres)
     if np.any(ch["floor_contact"] > 0):

@@ -315,7 +315,7 @@ def margin_at(car, curvature: float, grade: float = 0.0, bank: float = 0.0,
     out = np.full(_k.NOUT, np.nan)
     vl = _k.corner_limit(curvature, grade, bank, 0.0, 0.0, speed_cap(car), p, mx, my, mt,
                          out, 1e-4)
-    vs, ut = _k.liftoff_safe_speed(curvature, grade, bank, vl, 0.0, 1 if coast else 0, p,
+    vs, ut = _k.liftoff_safe_speed(curvature, grade, bank, vl, 0.0, 1.0 if coast else 0.0, p,
                                    gears, mx, my, mt, out, tol)
     a_c, ay, g_n = _k.road_accelerations(vl, curvature, grade, bank)
     lam = float(_k.margin_of(vs, vl, curvature, grade, bank))

@@ -355,6 +355,50 @@ def _steady_residual(x, speed, radius, q, p, mx, my, mt, out, dy, aux, y, res):
     return st
 
 
+@njit(cache=True, error_model="numpy")
+def solve_small(A, b):
+    """Solve A x = b in place for a small dense square system: Gaussian elimination with
+    partial pivoting (Golub & Van Loan, *Matrix Computations*, alg. 3.4.1). ``A`` is
+    overwritten by its factors, ``b`` by the solution. Returns False (``b`` then undefined)
+    when a pivot is zero or not finite (a singular or broken matrix).
+
+    Written out instead of ``np.linalg.solve``, whose compiled LAPACK binding (with its
+    error-message formatting) cost several seconds of every first run.
+    """
+    n = A.shape[0]
+    for k in range(n):
+        piv = k
+        big = abs(A[k, k])
+        for i in range(k + 1, n):
+            if abs(A[i, k]) > big:
+                big = abs(A[i, k])
+                piv = i
+        if not (big > 0.0) or not math.isfinite(big):
+            return False
+        if piv != k:
+            for j in range(n):
+                t = A[k, j]
+                A[k, j] = A[piv, j]
+                A[piv, j] = t
+            t = b[k]
+            b[k] = b[piv]
+            b[piv] = t
+        for i in range(k + 1, n):
+            f = A[i, k] / A[k, k]
+            if f != 0.0:
+                for j in range(k + 1, n):
+                    A[i, j] -= f * A[k, j]
+                b[i] -= f * b[k]
+    for k in range(n - 1, -1, -1):
+        s = b[k]
+        for j in range(k + 1, n):
+            s -= A[k, j] * b[j]
+        b[k] = s / A[k, k]
+        if not math.isfinite(b[k]):
+            return False
+    return True
+
+
 @njit(cache=True)
 def steady_turn(speed, radius, x0, q, p, mx, my, mt, x):
     """Steady circular run at ``speed`` [m/s] on ``radius`` [m] (left turn, ISO 8855).
@@ -372,6 +416,7 @@ def steady_turn(speed, radius, x0, q, p, mx, my, mt, x):
     rt = np.empty(5)
     J = np.empty((5, 5))
     xt = np.empty(5)
+    step = np.empty(5)
     for j in range(5):
         x[j] = x0[j]
     scale = np.empty(5)
@@ -404,7 +449,10 @@ def steady_turn(speed, radius, x0, q, p, mx, my, mt, x):
                 ok = False
         if not ok:
             break
-        step = np.linalg.solve(J, -res)
+        for j in range(5):
+            step[j] = -res[j]
+        if not solve_small(J, step):
+            break  # singular Jacobian: not converged
         lam = 1.0
         improved = False
         for _ls in range(30):

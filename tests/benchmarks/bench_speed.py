@@ -73,8 +73,8 @@ def _kernels_only(car, track):
     ds = float(track.step_m)
     vcap = L.speed_cap(car)
     n = len(kappa)
-    # the kernels simulate_lap runs (on one numba thread here, as the lap row sets)
-    corner, final = K.corner_limits, K.final_pass
+    # the kernels simulate_lap runs on one thread (the serial twins of the parallel loops)
+    corner, final = K.corner_limits_serial, K.final_pass_serial
 
     def run():
         vlim = corner(kappa, grade, bank, vcap, p, mx, my, mt, L.SPEED_TOL,
