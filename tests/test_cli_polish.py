@@ -248,10 +248,15 @@ def test_sweep_values_as_typed_ticks_and_resume(tmp_path):
 def test_auto_workers():
     from lapbalance.sweep import auto_workers
 
-    assert auto_workers(10, cpus=2) == 1
-    assert auto_workers(480, cpus=2) == 1
-    assert auto_workers(600, cpus=2) == 2
-    assert auto_workers(10_000, cpus=64) == 8
+    assert auto_workers(10, cpus=2, forked=False) == 1
+    assert auto_workers(480, cpus=2, forked=False) == 1
+    assert auto_workers(600, cpus=2, forked=False) == 2
+    assert auto_workers(10_000, cpus=64, forked=False) == 8
+    # forked workers start in milliseconds: a pool pays from a few dozen points
+    assert auto_workers(10, cpus=2, forked=True) == 1
+    assert auto_workers(200, cpus=2, forked=True) == 2
+    assert auto_workers(200, cpus=64, forked=True) == 8
+    assert auto_workers(200, cpus=1, forked=True) == 1
     h = run("sweep", "--help").output
     assert "one per CPU core" in h
 

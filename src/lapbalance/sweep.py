@@ -179,26 +179,35 @@ def typed_range(lo: str, hi: str, n: int) -> list[float]:
         return [float(a + i * step) for i in range(n - 1)] + [float(b)]
 
 
-def auto_workers(n_points: int, cpus: int | None = None) -> int:
+def auto_workers(n_points: int, cpus: int | None = None, forked: bool | None = None) -> int:
     """Default number of local worker processes for a sweep of ``n_points`` points.
 
     One process per CPU core this process may use (at most 8), each running the solver on one
-    numba thread, once there are enough points to pay for starting the pool (about
-    :data:`POINTS_PER_WORKER` points per worker); below that, 1 (run in this process, where
-    the kernels' parallel loops use every core).
+    numba thread, once there are enough points to pay for starting the pool; below that, 1
+    (run in this process). Workers forked from this process (``forked``; default: whether
+    :func:`fork_is_safe`) start in milliseconds and pay from :data:`POINTS_PER_FORKED_WORKER`
+    points per worker; workers from a fork server or spawned need
+    :data:`POINTS_PER_WORKER`.
     """
     if cpus is None:
         try:
             cpus = len(os.sched_getaffinity(0))
         except (AttributeError, OSError):
             cpus = os.cpu_count() or 1
-    return max(1, min(int(cpus), 8, int(n_points) // POINTS_PER_WORKER))
+    if forked is None:
+        forked = fork_is_safe()
+    per = POINTS_PER_FORKED_WORKER if forked else POINTS_PER_WORKER
+    return max(1, min(int(cpus), 8, int(n_points) // per))
 
 
-#: Points per worker below which a pool costs more to start than it saves (measured on a
-#: 5 km circuit, 2 cores, after the solver speed work: 200 points ran 0.57x as fast on 2
-#: workers as on 1, 1000 points 1.48x; see DEVELOPERS.md "Sweep workers").
+#: Points per worker below which a pool started by a fork server costs more than it saves
+#: (measured on a 5 km circuit, 2 cores: 200 points ran 0.57x as fast on 2 workers as on 1,
+#: 1000 points 1.48x, when each worker imported the package and loaded the kernels; see
+#: DEVELOPERS.md "Sweep workers").
 POINTS_PER_WORKER = 250
+#: The same for workers forked from a process that has the kernels loaded (see
+#: DEVELOPERS.md "Sweep workers" for the measurement).
+POINTS_PER_FORKED_WORKER = 20
 
 
 def point_key(point: Mapping[str, float]) -> str:
@@ -660,12 +669,35 @@ def _sweep_run(points, done, log, header, base_id, progress, cluster, workers, r
     return [done[point_key(p)] for p in points]
 
 
+def fork_is_safe() -> bool:
+    """True when sweep workers may be forked from this process: on Linux, with no other
+    Python thread running and numba's thread pool not started (GNU OpenMP, one of numba's
+    threading layers, aborts a forked child once the parent has used it). The lap solver
+    starts that pool only for long laps on machines with many cores
+    (:func:`lapbalance.lap.solver_threads`); otherwise workers come from a fork server."""
+    import multiprocessing as mp
+    import threading
+
+    if not sys.platform.startswith("linux") or "fork" not in mp.get_all_start_methods():
+        return False
+    if threading.active_count() > 1:
+        return False
+    par = sys.modules.get("numba.np.ufunc.parallel")
+    return par is None or getattr(par, "_is_initialized", True) is False
+
+
 def _run_pool(workers, raw, source, track, todo, options, record) -> None:
     import multiprocessing as mp
     from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
 
     methods = mp.get_all_start_methods()
-    ctx = mp.get_context("forkserver" if "forkserver" in methods else "spawn")
+    if fork_is_safe():
+        # Forked from this process, a worker starts with the kernels this process loaded
+        # (its first point ran here): milliseconds instead of a second of imports and cache
+        # loads per worker, which a sweep of a few hundred laps would not pay back.
+        ctx = mp.get_context("fork")
+    else:
+        ctx = mp.get_context("forkserver" if "forkserver" in methods else "spawn")
     if ctx.get_start_method() == "forkserver":
         # Import once in the fork server what every worker needs, including the module of
         # the track's class (unpickling the track imports it), instead of once per worker.

@@ -496,8 +496,9 @@ def format_sweep(rows, keys, limit: int = 30, units: str = "metric",
               help="Seed of the Latin hypercube.")
 @click.option("--workers", type=int, default=None,
               help="Local processes to run points in parallel (default: one per CPU core, "
-                   "up to 8, each on one solver thread, once the sweep has at least 250 "
-                   "points per worker; else 1, in this process).")
+                   "up to 8, each on one solver thread, once the sweep has enough points "
+                   "per worker to pay for starting them: 20 when they are forked from "
+                   "this process (Linux), 250 otherwise; else 1, in this process).")
 @click.option("--cluster", default=None, metavar="ADDRESS",
               help="Run on a Dask scheduler, e.g. tcp://10.0.0.5:8786 (needs "
                    "lapbalance[cluster]).")
