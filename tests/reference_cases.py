@@ -930,7 +930,7 @@ def straight_step(car, speed, delta, t_end, dt=0.002, y0=None):
         y0[tk.Y_VX] = speed
     n = int(round(t_end / dt))
     hist = np.empty((n + 1, tk.NH))
-    status, rows = tk.integrate(y0, q, mdl.p, mdl.mx, mdl.my, mdl.mt, dt, n, 1.0, 0.1, hist)
+    status, rows = tk.integrate(y0, q, mdl.p, dt, n, 1.0, 0.1, hist)
     assert status == tk.RUN_OK and rows == n + 1
     return hist
 

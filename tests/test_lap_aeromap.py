@@ -26,16 +26,19 @@ def test_kernel_lookup_equals_reference_bilinear():
     # must give the same numbers to rounding, inside and outside the grid.
     car = load_car(ROOT / "examples" / "single_seater_mapped.toml")
     amap = car.aero.aero_map
-    p, gears, trpm, tnm, mx, my, mt = car_parameters(car)
+    p, gears, trpm, tnm = car_parameters(car)
     rng = np.random.default_rng(3)
     xs = rng.uniform(0.0, 0.06, 200)
     ys = rng.uniform(0.02, 0.10, 200)
     ref = aeromap.bilinear(amap.fine_rh_front_m, amap.fine_rh_rear_m, amap.fine_front_area_cg,
                            xs, ys)
-    got = np.array([K.map_lookup(mx, my, mt, 0, x, y) for x, y in zip(xs, ys, strict=True)])
+    got = np.array([K.map_lookup(p, 0, x, y) for x, y in zip(xs, ys, strict=True)])
     np.testing.assert_allclose(got, ref, rtol=1e-12, atol=1e-14)
-    both = np.array([K.map_eval(mx, my, mt, x, y)[:3] for x, y in zip(xs, ys, strict=True)])
+    both = np.array([K.map_eval(p, x, y)[:3] for x, y in zip(xs, ys, strict=True)])
     np.testing.assert_allclose(both[:, 0], ref, rtol=1e-12, atol=1e-14)
+    for k, table in ((1, amap.fine_rear_area_cg), (2, amap.fine_drag_area)):
+        ref_k = aeromap.bilinear(amap.fine_rh_front_m, amap.fine_rh_rear_m, table, xs, ys)
+        np.testing.assert_allclose(both[:, k], ref_k, rtol=1e-12, atol=1e-14)
 
 
 def test_stiff_springs_map_equals_constant_coefficients(loops):

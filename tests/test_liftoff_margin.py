@@ -262,15 +262,15 @@ def test_where_the_rear_limits_more_rear_downforce_lowers_the_fraction():
 def test_margin_kernel_compiled_equals_python():
     # Source: compiled vs uncompiled run of the same search (parity).
     car = _margin_car(0.6, 2.0, overrun=80.0)
-    p, gears, trpm, tnm, mx, my, mt = car_parameters(car)
+    p, gears, trpm, tnm = car_parameters(car)
     k = np.full(40, 1 / 90.0)
     k[20:] = 1 / 140.0
     z = np.zeros(40)
-    vlim = K.corner_limits(k, z, z, 90.0, p, mx, my, mt, 1e-3, 1)
+    vlim = K.corner_limits(k, z, z, 90.0, p, 1e-3, 1)
     checked = np.ones(40)
     checked[5] = 0.0
-    a = K.liftoff_margins(k, z, z, vlim, checked, p, gears, mx, my, mt, 5e-4, 2)
-    b = K.liftoff_margins.py_func(k, z, z, vlim, checked, p, gears, mx, my, mt, 5e-4, 2)
+    a = K.liftoff_margins(k, z, z, vlim, checked, p, gears, 5e-4, 2)
+    b = K.liftoff_margins.py_func(k, z, z, vlim, checked, p, gears, 5e-4, 2)
     np.testing.assert_allclose(a, b, rtol=1e-12, atol=1e-12)
     assert np.all(np.isnan(a[5])) and np.isfinite(a[6]).all()
 
@@ -278,14 +278,14 @@ def test_margin_kernel_compiled_equals_python():
 def test_warm_started_margins_equal_a_cold_search():
     # Source: definition (the warm start changes the work, not the answer, up to tolerance).
     car = _margin_car(0.62, 2.0, overrun=80.0)
-    p, gears, trpm, tnm, mx, my, mt = car_parameters(car)
+    p, gears, trpm, tnm = car_parameters(car)
     k = np.linspace(1 / 200.0, 1 / 60.0, 60)
     z = np.zeros(60)
-    vlim = K.corner_limits(k, z, z, 90.0, p, mx, my, mt, 1e-3, 1)
-    warm = K.liftoff_margins(k, z, z, vlim, np.ones(60), p, gears, mx, my, mt, 5e-4, 1)
+    vlim = K.corner_limits(k, z, z, 90.0, p, 1e-3, 1)
+    warm = K.liftoff_margins(k, z, z, vlim, np.ones(60), p, gears, 5e-4, 1)
     out = np.empty(K.NOUT)
     for i in range(0, 60, 7):
-        vs, _ = K.liftoff_safe_speed(k[i], 0.0, 0.0, vlim[i], 0.0, 0, p, gears, mx, my, mt,
+        vs, _ = K.liftoff_safe_speed(k[i], 0.0, 0.0, vlim[i], 0.0, 0, p, gears,
                                      out, 5e-4)
         assert warm[i, K.M_VSAFE] == pytest.approx(vs, abs=2e-3)
     assert np.any(warm[:, K.M_LAMBDA] < 1.0)

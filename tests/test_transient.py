@@ -189,7 +189,7 @@ def test_rk4_matches_scipy_radau_on_a_nonlinear_lift_off():
 
     def f(t, y):
         dy = np.empty(tk.NY)
-        tk.deriv(t, y, q, m.p, m.mx, m.my, m.mt, out, dy, aux)
+        tk.deriv(t, y, q, m.p, out, dy, aux)
         return dy
 
     y0 = T._initial_state(run.steady.x, run.speed0_mps, R)
@@ -229,7 +229,7 @@ def test_deriv_compiled_equals_python():
     res = []
     for fn in (tk.deriv, tk.deriv.py_func):
         out, aux, dy = np.empty(tk.NOUT), np.empty(tk.NA), np.empty(tk.NY)
-        fn(0.05, y, q, m.p, m.mx, m.my, m.mt, out, dy, aux)
+        fn(0.05, y, q, m.p, out, dy, aux)
         res.append(np.concatenate([dy, aux]))
     np.testing.assert_allclose(res[0], res[1], rtol=1e-12, atol=1e-12)
 
@@ -328,7 +328,7 @@ def test_a_lift_that_removes_no_force_changes_nothing(R, frac):
     q[tk.Q_F0] = q[tk.Q_F1] = s.drive_force_n
     y0 = T._initial_state(s.x, s.speed_mps, R)
     hist = np.empty((1501, tk.NH))
-    tk.integrate(y0, q, m.p, m.mx, m.my, m.mt, 0.002, 1500, 1.0, 1.0, hist)
+    tk.integrate(y0, q, m.p, 0.002, 1500, 1.0, 1.0, hist)
     h = T._history(hist, R)
     f = T._figures(h, R, 0.002, 1501, False)
     assert f["yaw_rate_ratio"] == pytest.approx(1.0, abs=1e-8)

@@ -81,15 +81,14 @@ def test_a_lap_leaves_the_parameter_arrays_reference_counts_alone():
     arrays = L.car_parameters(car)
     kappa = np.ascontiguousarray(tr.curvature_1pm)
     z = np.zeros_like(kappa)
-    p, gears, trpm, tnm, mx, my, mt = arrays
+    p, gears, trpm, tnm = arrays
     counts = [sys.getrefcount(x) for x in arrays]
     for _ in range(3):
-        vlim = K.corner_limits_serial(kappa, z, z, L.speed_cap(car), p, mx, my, mt,
+        vlim = K.corner_limits_serial(kappa, z, z, L.speed_cap(car), p,
                                       L.SPEED_TOL, 8)
-        v = K.speed_passes(kappa, z, z, vlim, 1.0, 0.0, math.nan, p, gears, trpm, tnm, mx, my,
-                           mt, L.FORCE_TOL)
+        v = K.speed_passes(kappa, z, z, vlim, 1.0, 0.0, math.nan, p, gears, trpm, tnm, L.FORCE_TOL)
         K.final_pass_serial(v, kappa, z, z, 1.0, math.nan, L.speed_cap(car), p, gears, trpm,
-                            tnm, mx, my, mt, L.FORCE_TOL, L.LIFTOFF_AY_THRESHOLD)
+                            tnm, L.FORCE_TOL, L.LIFTOFF_AY_THRESHOLD)
     assert [sys.getrefcount(x) for x in arrays] == counts
 
 
@@ -97,23 +96,23 @@ def test_a_lap_leaves_the_parameter_arrays_reference_counts_alone():
 def test_serial_twins_give_the_parallel_kernels_numbers_bit_for_bit(car_name):
     car = load_car(ROOT / "examples" / car_name)
     tr = wavy_circuit(2000.0, 1.0, seed=11)
-    p, gears, trpm, tnm, mx, my, mt = L.car_parameters(car)
+    p, gears, trpm, tnm = L.car_parameters(car)
     kappa = np.ascontiguousarray(tr.curvature_1pm)
     z = np.zeros_like(kappa)
     vcap = L.speed_cap(car)
-    a = K.corner_limits(kappa, z, z, vcap, p, mx, my, mt, L.SPEED_TOL, 8)
-    b = K.corner_limits_serial(kappa, z, z, vcap, p, mx, my, mt, L.SPEED_TOL, 8)
+    a = K.corner_limits(kappa, z, z, vcap, p, L.SPEED_TOL, 8)
+    b = K.corner_limits_serial(kappa, z, z, vcap, p, L.SPEED_TOL, 8)
     np.testing.assert_array_equal(a, b)
-    v = K.speed_passes(kappa, z, z, a, 1.0, 0.0, math.nan, p, gears, trpm, tnm, mx, my, mt,
+    v = K.speed_passes(kappa, z, z, a, 1.0, 0.0, math.nan, p, gears, trpm, tnm,
                        L.FORCE_TOL)
-    fa = K.final_pass(v, kappa, z, z, 1.0, math.nan, vcap, p, gears, trpm, tnm, mx, my, mt,
+    fa = K.final_pass(v, kappa, z, z, 1.0, math.nan, vcap, p, gears, trpm, tnm,
                       L.FORCE_TOL, L.LIFTOFF_AY_THRESHOLD)
-    fb = K.final_pass_serial(v, kappa, z, z, 1.0, math.nan, vcap, p, gears, trpm, tnm, mx, my,
-                             mt, L.FORCE_TOL, L.LIFTOFF_AY_THRESHOLD)
+    fb = K.final_pass_serial(v, kappa, z, z, 1.0, math.nan, vcap, p, gears, trpm, tnm,
+                             L.FORCE_TOL, L.LIFTOFF_AY_THRESHOLD)
     np.testing.assert_array_equal(fa, fb)
     checked = np.ascontiguousarray(fa[:, K.NOUT + 6])
-    ma = K.liftoff_margins(kappa, z, z, a, checked, p, gears, mx, my, mt, L.MARGIN_TOL, 8)
-    mb = K.liftoff_margins_serial(kappa, z, z, a, checked, p, gears, mx, my, mt, L.MARGIN_TOL,
+    ma = K.liftoff_margins(kappa, z, z, a, checked, p, gears, L.MARGIN_TOL, 8)
+    mb = K.liftoff_margins_serial(kappa, z, z, a, checked, p, gears, L.MARGIN_TOL,
                                   8)
     np.testing.assert_array_equal(ma, mb)
     assert np.isfinite(ma[:, K.M_LAMBDA]).sum() > 10  # the check ran somewhere

@@ -89,7 +89,7 @@ def _stages():
     from lapbalance.car import car_from_dict
 
     car = car_from_dict(_TINY_CAR, "<warm-up car>")
-    p, gears, trpm, tnm, mx, my, mt = lap.car_parameters(car)
+    p, gears, trpm, tnm = lap.car_parameters(car)
     n = 48
     kappa = np.full(n, 1.0 / 60.0)
     kappa[: n // 2] = 0.0
@@ -99,21 +99,21 @@ def _stages():
     box: dict = {}
 
     def limits():
-        box["vlim"] = lap._corner_limits_kernel(kappa, grade, bank, vcap, p, mx, my, mt,
+        box["vlim"] = lap._corner_limits_kernel(kappa, grade, bank, vcap, p,
                                                 lap.SPEED_TOL, 1)
 
     def passes():
         box["v"] = lap._speed_passes_kernel(kappa, grade, bank, box["vlim"], 2.0, 0.0,
-                                            math.nan, p, gears, trpm, tnm, mx, my, mt,
+                                            math.nan, p, gears, trpm, tnm,
                                             lap.FORCE_TOL)
 
     def final():
         lap._final_pass_kernel(box["v"], kappa, grade, bank, 2.0, math.nan, vcap, p, gears,
-                               trpm, tnm, mx, my, mt, lap.FORCE_TOL, lap.LIFTOFF_AY_THRESHOLD)
+                               trpm, tnm, lap.FORCE_TOL, lap.LIFTOFF_AY_THRESHOLD)
 
     def margins():
-        lap._liftoff_margins_kernel(kappa, grade, bank, box["vlim"], np.ones(n), p, gears, mx,
-                                    my, mt, lap.MARGIN_TOL, 1)
+        lap._liftoff_margins_kernel(kappa, grade, bank, box["vlim"], np.ones(n), p, gears,
+                                    lap.MARGIN_TOL, 1)
         from lapbalance.liftoff import response_curve
 
         response_curve(car, 60.0)

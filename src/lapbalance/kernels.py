@@ -1,9 +1,15 @@
 """Numba kernels of the quasi-static lap solver (float arrays in, float arrays out).
 
 No Python objects, no I/O. The car arrives as a flat parameter vector ``p`` (indices ``P_*``
-below, filled by :func:`lapbalance.lap.car_parameters`), the gearbox and torque curve as
-arrays, the aero map (if any) as a refined grid for clamped bilinear lookup. Physics comes from
-:mod:`lapbalance.loads` and :mod:`lapbalance.tyre` (numba scalar functions).
+below, filled by :func:`lapbalance.params.car_parameters`) with the aero map (if any) packed
+after the scalars as a refined grid for clamped bilinear lookup (``MAP_*``), the gearbox and
+torque curve as arrays. Physics comes from :mod:`lapbalance.loads` and :mod:`lapbalance.tyre`
+(numba scalar functions).
+
+Call cost matters as much as arithmetic here: the searches make tens of millions of nested
+calls per lap, and every array argument costs its share of each call. So the car is one
+array, and the entry kernels pass borrowed views (:mod:`lapbalance.views`, no reference
+counting) down their call chains.
 
 The control variable of the longitudinal search is one signed force ``F`` at the wheels:
 ``F >= 0`` is drive (split by the torque split), ``F < 0`` is brake force ``-F`` (split by the
@@ -71,6 +77,13 @@ P_RHR0 = 40
 P_TYF = 41  # front: 1+ky, ky/fz0, fz_peak_y, 1+kx, kx/fz0, fz_peak_x
 P_TYR = 47  # rear: same layout
 P_NPARAM = 53
+# the aero map (if any) packed after the scalars, so that every call carries one array for
+# the car (each array argument costs its share of every call): grid sizes, then the front
+# ride-height grid [m], the rear one [m], and the front, rear and drag area tables [m2]
+# (row-major, front ride height first); see :func:`lapbalance.params.car_parameters`
+MAP_NX = P_NPARAM
+MAP_NY = P_NPARAM + 1
+MAP_DATA = P_NPARAM + 2
 
 # ---- state output indices -----------------------------------------------------------------
 O_AX = 0
@@ -126,56 +139,77 @@ V_MIN = 0.5  # lowest speed searched for a corner limit [m/s]
 
 
 @njit(cache=True, error_model="numpy")
-def _bracket_index(grid, x):
-    n = grid.shape[0]
-    if x <= grid[0]:
+def _bracket_index(p, off, n, x):
+    """Cell of the increasing grid ``p[off:off + n]`` holding x, and the fraction across it
+    (clamped to the first / last cell)."""
+    if x <= p[off]:
         return 0, 0.0
-    if x >= grid[n - 1]:
+    if x >= p[off + n - 1]:
         return n - 2, 1.0
     lo = 0
     hi = n - 1
     while hi - lo > 1:
         mid = (lo + hi) // 2
-        if grid[mid] <= x:
+        if p[off + mid] <= x:
             lo = mid
         else:
             hi = mid
-    return lo, (x - grid[lo]) / (grid[lo + 1] - grid[lo])
+    return lo, (x - p[off + lo]) / (p[off + lo + 1] - p[off + lo])
 
 
 @njit(cache=True, error_model="numpy")
-def map_lookup(mx, my, mt, k, x, y):
-    """Clamped bilinear lookup of table ``mt[k]`` (0 front, 1 rear, 2 drag area) at (x, y)."""
-    return map_eval(mx, my, mt, x, y)[k]
+def map_lookup(p, k, x, y):
+    """Clamped bilinear lookup of map table ``k`` (0 front, 1 rear, 2 drag area [m2]) at
+    ride heights (x front, y rear) [m]."""
+    return map_eval(p, x, y)[k]
+
 
 @njit(cache=True, error_model="numpy")
-def map_eval(mx, my, mt, x, y):
-    """All three map tables at (x, y) with one cell search: (front area, rear area, drag area,
-    d front/dx, d front/dy, d rear/dx, d rear/dy); gradients zero outside the grid."""
-    i, tx = _bracket_index(mx, x)
-    j, ty = _bracket_index(my, y)
+def map_eval(p, x, y):
+    """All three map tables at ride heights (x front, y rear) [m] with one cell search:
+    (front area, rear area, drag area [m2], d front/dx, d front/dy, d rear/dx, d rear/dy
+    [m]); gradients zero outside the grid. The map is packed in ``p`` (:data:`MAP_NX`)."""
+    nx = int(p[MAP_NX])
+    ny = int(p[MAP_NY])
+    ox = MAP_DATA
+    oy = ox + nx
+    of = oy + ny
+    orr = of + nx * ny
+    od = orr + nx * ny
+    i, tx = _bracket_index(p, ox, nx, x)
+    j, ty = _bracket_index(p, oy, ny, y)
     w00 = (1 - tx) * (1 - ty)
     w10 = tx * (1 - ty)
     w01 = (1 - tx) * ty
     w11 = tx * ty
-    f = mt[0]
-    r = mt[1]
-    d = mt[2]
-    fv = w00 * f[i, j] + w10 * f[i + 1, j] + w01 * f[i, j + 1] + w11 * f[i + 1, j + 1]
-    rv = w00 * r[i, j] + w10 * r[i + 1, j] + w01 * r[i, j + 1] + w11 * r[i + 1, j + 1]
-    dv = w00 * d[i, j] + w10 * d[i + 1, j] + w01 * d[i, j + 1] + w11 * d[i + 1, j + 1]
+    k00 = i * ny + j
+    k10 = k00 + ny
+    k01 = k00 + 1
+    k11 = k10 + 1
+    f00 = p[of + k00]
+    f10 = p[of + k10]
+    f01 = p[of + k01]
+    f11 = p[of + k11]
+    r00 = p[orr + k00]
+    r10 = p[orr + k10]
+    r01 = p[orr + k01]
+    r11 = p[orr + k11]
+    fv = w00 * f00 + w10 * f10 + w01 * f01 + w11 * f11
+    rv = w00 * r00 + w10 * r10 + w01 * r01 + w11 * r11
+    dv = (w00 * p[od + k00] + w10 * p[od + k10] + w01 * p[od + k01]
+          + w11 * p[od + k11])
     fx = 0.0
     fy = 0.0
     rx = 0.0
     ry = 0.0
-    if mx[0] < x < mx[mx.shape[0] - 1]:
-        hx = mx[i + 1] - mx[i]
-        fx = ((1 - ty) * (f[i + 1, j] - f[i, j]) + ty * (f[i + 1, j + 1] - f[i, j + 1])) / hx
-        rx = ((1 - ty) * (r[i + 1, j] - r[i, j]) + ty * (r[i + 1, j + 1] - r[i, j + 1])) / hx
-    if my[0] < y < my[my.shape[0] - 1]:
-        hy = my[j + 1] - my[j]
-        fy = ((1 - tx) * (f[i, j + 1] - f[i, j]) + tx * (f[i + 1, j + 1] - f[i + 1, j])) / hy
-        ry = ((1 - tx) * (r[i, j + 1] - r[i, j]) + tx * (r[i + 1, j + 1] - r[i + 1, j])) / hy
+    if p[ox] < x < p[ox + nx - 1]:
+        hx = p[ox + i + 1] - p[ox + i]
+        fx = ((1 - ty) * (f10 - f00) + ty * (f11 - f01)) / hx
+        rx = ((1 - ty) * (r10 - r00) + ty * (r11 - r01)) / hx
+    if p[oy] < y < p[oy + ny - 1]:
+        hy = p[oy + j + 1] - p[oy + j]
+        fy = ((1 - tx) * (f01 - f00) + tx * (f11 - f10)) / hy
+        ry = ((1 - tx) * (r01 - r00) + tx * (r11 - r10)) / hy
     return fv, rv, dv, fx, fy, rx, ry
 
 
@@ -274,7 +308,7 @@ def _state_once(v, kappa, grade, bank, f_drive, f_brake, p, claf, clar, cda, out
 
 
 @njit(cache=True, error_model="numpy")
-def state(v, kappa, grade, bank, f_drive, f_brake, p, mx, my, mt, out):
+def state(v, kappa, grade, bank, f_drive, f_brake, p, out):
     """Evaluate the car at speed v [m/s] on a step (curvature [1/m], grade, bank [rad]) with
     drive force f_drive [N] (negative = engine overrun) and brake force f_brake >= 0 [N].
 
@@ -288,12 +322,12 @@ def state(v, kappa, grade, bank, f_drive, f_brake, p, mx, my, mt, out):
         out[O_RHR] = p[P_RHR0]
         out[O_MAPOUT] = 0.0
         return st
-    return _state_map(v, kappa, grade, bank, f_drive, f_brake, p, mx, my, mt, out,
+    return _state_map(v, kappa, grade, bank, f_drive, f_brake, p, out,
                       p[P_RHF0], p[P_RHR0], 1e-6)
 
 
 @njit(cache=True, error_model="numpy")
-def _ride_heights(g_n, q, xs, ax_mode, p, mx, my, mt, rhf, rhr, tol):
+def _ride_heights(g_n, q, xs, ax_mode, p, rhf, rhr, tol):
     """Ride heights [m] and map areas [m2] at dynamic pressure q [Pa] from a start (rhf, rhr).
 
     Ride heights from the heave equations rh = rh0 - (Fz - Fz_rest)/k with the axle loads
@@ -319,7 +353,7 @@ def _ride_heights(g_n, q, xs, ax_mode, p, mx, my, mt, rhf, rhr, tol):
     clar = 0.0
     cda = 0.0
     for _ in range(30):
-        claf, clar, cda, af_f, af_r, ar_f, ar_r = map_eval(mx, my, mt, rhf, rhr)
+        claf, clar, cda, af_f, af_r, ar_f, ar_r = map_eval(p, rhf, rhr)
         if ax_mode:
             x = xs + q * cda
         else:
@@ -352,24 +386,34 @@ def _ride_heights(g_n, q, xs, ax_mode, p, mx, my, mt, rhf, rhr, tol):
 
 
 @njit(cache=True, inline="always", error_model="numpy")
-def _map_outside(rhf, rhr, mx, my):
-    if rhf < mx[0] or rhf > mx[mx.shape[0] - 1] or rhr < my[0] or rhr > my[my.shape[0] - 1]:
+def _map_outside(rhf, rhr, p):
+    """1.0 when the ride heights (rhf, rhr) [m] lie outside the packed map's grid, else 0.0."""
+    if not _map_inside(rhf, rhr, p):
         return 1.0
     return 0.0
 
 
+@njit(cache=True, inline="always", error_model="numpy")
+def _map_inside(rhf, rhr, p):
+    nx = int(p[MAP_NX])
+    ny = int(p[MAP_NY])
+    ox = MAP_DATA
+    oy = ox + nx
+    return p[ox] <= rhf <= p[ox + nx - 1] and p[oy] <= rhr <= p[oy + ny - 1]
+
+
 @njit(cache=True, error_model="numpy")
-def _state_map(v, kappa, grade, bank, f_drive, f_brake, p, mx, my, mt, out, rhf, rhr, tol):
+def _state_map(v, kappa, grade, bank, f_drive, f_brake, p, out, rhf, rhr, tol):
     """:func:`state` for a mapped car with the ride-height fixed point started at (rhf, rhr)
     [m] and stopped at residual ``tol`` [m]."""
     q = 0.5 * p[P_RHO] * v * v
     a_c, a_y, g_n = road_accelerations(v, kappa, grade, bank)
-    rhf, rhr, claf, clar, cda = _ride_heights(g_n, q, f_drive - f_brake, False, p, mx, my, mt,
+    rhf, rhr, claf, clar, cda = _ride_heights(g_n, q, f_drive - f_brake, False, p,
                                               rhf, rhr, tol)
     st = _state_once(v, kappa, grade, bank, f_drive, f_brake, p, claf, clar, cda, out)
     out[O_RHF] = rhf
     out[O_RHR] = rhr
-    out[O_MAPOUT] = _map_outside(rhf, rhr, mx, my)
+    out[O_MAPOUT] = _map_outside(rhf, rhr, p)
     return st
 
 
@@ -379,12 +423,12 @@ RH_TOL_WARM = 1e-9
 
 
 @njit(cache=True, inline="always", error_model="numpy")
-def _warm_rh(out, p, mx, my):
+def _warm_rh(out, p):
     """Start of the ride-height fixed point: the ride heights ``out`` holds from the last
     evaluation when they lie inside the map, else the static ones."""
     rhf = out[O_RHF]
     rhr = out[O_RHR]
-    if mx[0] <= rhf <= mx[mx.shape[0] - 1] and my[0] <= rhr <= my[my.shape[0] - 1]:
+    if _map_inside(rhf, rhr, p):
         return rhf, rhr
     return p[P_RHF0], p[P_RHR0]
 
@@ -447,7 +491,7 @@ def _usage_once(v, kappa, grade, bank, f_drive, f_brake, p, claf, clar, cda, out
 
 
 @njit(cache=True, error_model="numpy")
-def state_usage(v, kappa, grade, bank, f_drive, f_brake, p, mx, my, mt, out):
+def state_usage(v, kappa, grade, bank, f_drive, f_brake, p, out):
     """Lean :func:`state` for the searches: writes only a_x, downforce, the usages, the
     status and (mapped cars) the ride heights to ``out``; returns the status. A mapped car's
     ride heights start from those ``out`` holds (the last evaluation), when inside the map.
@@ -455,10 +499,10 @@ def state_usage(v, kappa, grade, bank, f_drive, f_brake, p, mx, my, mt, out):
     if p[P_USEMAP] == 0.0:
         return _usage_once(v, kappa, grade, bank, f_drive, f_brake, p, p[P_CLAF], p[P_CLAR],
                            p[P_CDA], out)
-    rhf, rhr = _warm_rh(out, p, mx, my)
+    rhf, rhr = _warm_rh(out, p)
     q = 0.5 * p[P_RHO] * v * v
     a_c, a_y, g_n = road_accelerations(v, kappa, grade, bank)
-    rhf, rhr, claf, clar, cda = _ride_heights(g_n, q, f_drive - f_brake, False, p, mx, my, mt,
+    rhf, rhr, claf, clar, cda = _ride_heights(g_n, q, f_drive - f_brake, False, p,
                                               rhf, rhr, RH_TOL_WARM)
     st = _usage_once(v, kappa, grade, bank, f_drive, f_brake, p, claf, clar, cda, out)
     out[O_RHF] = rhf
@@ -467,23 +511,23 @@ def state_usage(v, kappa, grade, bank, f_drive, f_brake, p, mx, my, mt, out):
 
 
 @njit(cache=True, error_model="numpy")
-def _control_for_ax_map(v, kappa, grade, bank, ax, p, mx, my, mt, out, full):
+def _control_for_ax_map(v, kappa, grade, bank, ax, p, out, full):
     """Control [N] giving a_x = ``ax`` [m/s²] for a mapped car: one ride-height fixed point
     with the ground force m a_x + drag + grade force (warm-started); ``out`` holds the full
     state when ``full`` else the lean one."""
     m = p[P_MASS]
-    rhf, rhr = _warm_rh(out, p, mx, my)
+    rhf, rhr = _warm_rh(out, p)
     q = 0.5 * p[P_RHO] * v * v
     a_c, a_y, g_n = road_accelerations(v, kappa, grade, bank)
     xs = m * ax + (m * G * math.sin(grade) if grade != 0.0 else 0.0)
-    rhf, rhr, claf, clar, cda = _ride_heights(g_n, q, xs, True, p, mx, my, mt, rhf, rhr,
+    rhf, rhr, claf, clar, cda = _ride_heights(g_n, q, xs, True, p, rhf, rhr,
                                               RH_TOL_WARM)
     F = xs + q * cda + p[P_CRR] * (m * g_n + q * (claf + clar))
     fd = F if F >= 0.0 else 0.0
     fb = -F if F < 0.0 else 0.0
     if full:
         _state_once(v, kappa, grade, bank, fd, fb, p, claf, clar, cda, out)
-        out[O_MAPOUT] = _map_outside(rhf, rhr, mx, my)
+        out[O_MAPOUT] = _map_outside(rhf, rhr, p)
     else:
         _usage_once(v, kappa, grade, bank, fd, fb, p, claf, clar, cda, out)
     out[O_RHF] = rhf
@@ -492,24 +536,24 @@ def _control_for_ax_map(v, kappa, grade, bank, ax, p, mx, my, mt, out, full):
 
 
 @njit(cache=True, error_model="numpy")
-def state_control(v, kappa, grade, bank, F, p, mx, my, mt, out):
+def state_control(v, kappa, grade, bank, F, p, out):
     """:func:`state` with one signed control force F [N] (>= 0 drive, < 0 brake); a mapped
     car's ride heights start from those ``out`` holds (see :func:`state_usage`)."""
     fd = F if F >= 0.0 else 0.0
     fb = -F if F < 0.0 else 0.0
     if p[P_USEMAP] == 0.0:
-        return state(v, kappa, grade, bank, fd, fb, p, mx, my, mt, out)
-    rhf, rhr = _warm_rh(out, p, mx, my)
-    return _state_map(v, kappa, grade, bank, fd, fb, p, mx, my, mt, out, rhf, rhr,
+        return state(v, kappa, grade, bank, fd, fb, p, out)
+    rhf, rhr = _warm_rh(out, p)
+    return _state_map(v, kappa, grade, bank, fd, fb, p, out, rhf, rhr,
                       RH_TOL_WARM)
 
 
 @njit(cache=True, error_model="numpy")
-def usage_control(v, kappa, grade, bank, F, p, mx, my, mt, out):
+def usage_control(v, kappa, grade, bank, F, p, out):
     """:func:`state_usage` with one signed control force F [N]."""
     if F >= 0.0:
-        return state_usage(v, kappa, grade, bank, F, 0.0, p, mx, my, mt, out)
-    return state_usage(v, kappa, grade, bank, 0.0, -F, p, mx, my, mt, out)
+        return state_usage(v, kappa, grade, bank, F, 0.0, p, out)
+    return state_usage(v, kappa, grade, bank, 0.0, -F, p, out)
 
 
 @njit(cache=True, inline="always", error_model="numpy")
@@ -521,27 +565,27 @@ def max_usage(out):
 
 
 @njit(cache=True, error_model="numpy")
-def control_for_ax(v, kappa, grade, bank, ax, p, mx, my, mt, out):
+def control_for_ax(v, kappa, grade, bank, ax, p, out):
     """Signed control force [N] that gives longitudinal acceleration ``ax`` [m/s²].
 
     Leaves ``out`` holding the state at that force.
     """
     if p[P_USEMAP] == 0.0:
         F = p[P_MASS] * ax + _resistance_nomap(v, kappa, grade, bank, p)
-        state_control(v, kappa, grade, bank, F, p, mx, my, mt, out)
+        state_control(v, kappa, grade, bank, F, p, out)
         return F
     # with a map: one ride-height fixed point with the ground force the target a_x needs
-    return _control_for_ax_map(v, kappa, grade, bank, ax, p, mx, my, mt, out, True)
+    return _control_for_ax_map(v, kappa, grade, bank, ax, p, out, True)
 
 
 @njit(cache=True, error_model="numpy")
-def control_for_ax_lean(v, kappa, grade, bank, ax, p, mx, my, mt, out):
+def control_for_ax_lean(v, kappa, grade, bank, ax, p, out):
     """:func:`control_for_ax` leaving the lean state (:func:`state_usage`) in ``out``."""
     if p[P_USEMAP] == 0.0:
         F = p[P_MASS] * ax + _resistance_nomap(v, kappa, grade, bank, p)
-        usage_control(v, kappa, grade, bank, F, p, mx, my, mt, out)
+        usage_control(v, kappa, grade, bank, F, p, out)
         return F
-    return _control_for_ax_map(v, kappa, grade, bank, ax, p, mx, my, mt, out, False)
+    return _control_for_ax_map(v, kappa, grade, bank, ax, p, out, False)
 
 
 @njit(cache=True, error_model="numpy")
@@ -612,45 +656,45 @@ def _resistance_nomap(v, kappa, grade, bank, p):
 
 
 @njit(cache=True, error_model="numpy")
-def ax_of_control(v, kappa, grade, bank, F, p, mx, my, mt, out):
+def ax_of_control(v, kappa, grade, bank, F, p, out):
     """Longitudinal acceleration [m/s²] at control F [N] (a closed form without a map)."""
     if p[P_USEMAP] == 0.0:
         return (F - _resistance_nomap(v, kappa, grade, bank, p)) / p[P_MASS]
-    usage_control(v, kappa, grade, bank, F, p, mx, my, mt, out)
+    usage_control(v, kappa, grade, bank, F, p, out)
     return out[O_AX]
 
 
 @njit(cache=True, error_model="numpy")
-def steady_control(v, kappa, grade, bank, p, mx, my, mt, out):
+def steady_control(v, kappa, grade, bank, p, out):
     """Control force [N] holding speed (a_x = 0); ``out`` holds that (lean) state."""
     if p[P_USEMAP] != 0.0:
-        return _control_for_ax_map(v, kappa, grade, bank, 0.0, p, mx, my, mt, out, False)
+        return _control_for_ax_map(v, kappa, grade, bank, 0.0, p, out, False)
     # without a map drag and rolling resistance do not depend on the control: one evaluation
     F = _resistance_nomap(v, kappa, grade, bank, p)
-    usage_control(v, kappa, grade, bank, F, p, mx, my, mt, out)
+    usage_control(v, kappa, grade, bank, F, p, out)
     return F
 
 
 @njit(cache=True, error_model="numpy")
-def _g_control(v, kappa, grade, bank, F, p, mx, my, mt, out):
+def _g_control(v, kappa, grade, bank, F, p, out):
     """Usage excess max(u_f, u_r) - 1 at control F [N]; BIG when an axle unloads."""
-    st = usage_control(v, kappa, grade, bank, F, p, mx, my, mt, out)
+    st = usage_control(v, kappa, grade, bank, F, p, out)
     if st != 0:
         return BIG
     return max_usage(out) - 1.0
 
 
 @njit(cache=True, error_model="numpy")
-def _g_speed(v, kappa, grade, bank, p, mx, my, mt, out):
+def _g_speed(v, kappa, grade, bank, p, out):
     """Usage excess at steady speed v [m/s]; BIG when an axle unloads or the car rolls."""
-    steady_control(v, kappa, grade, bank, p, mx, my, mt, out)
+    steady_control(v, kappa, grade, bank, p, out)
     if out[O_STATUS] != 0.0:
         return BIG
     return max_usage(out) - 1.0
 
 
 @njit(cache=True, error_model="numpy")
-def _refine(kind, x_ok, g_ok, x_bad, g_bad, v, kappa, grade, bank, p, mx, my, mt, out, xtol):
+def _refine(kind, x_ok, g_ok, x_bad, g_bad, v, kappa, grade, bank, p, out, xtol):
     """Illinois (modified regula falsi) search for the feasibility boundary.
 
     ``kind`` 0: x is the speed [m/s] (steady state); 1: x is the control force [N] at speed
@@ -660,8 +704,7 @@ def _refine(kind, x_ok, g_ok, x_bad, g_bad, v, kappa, grade, bank, p, mx, my, mt
     (or whose usage is within 2e-5 of 1). Falls back to bisection while g(x_bad) is
     not finite (an unloaded axle).
     """
-    return _illinois(kind, x_ok, g_ok, x_bad, g_bad, v, 0.0, kappa, grade, bank, p, mx, my,
-                     mt, out, xtol)
+    return _illinois(kind, x_ok, g_ok, x_bad, g_bad, v, 0.0, kappa, grade, bank, p, out, xtol)
 
 
 #: Usage margin [-] a braking step keeps below 1 so that the force the final pass
@@ -670,7 +713,7 @@ BRAKE_MARGIN = 1e-7
 
 
 @njit(cache=True, error_model="numpy")
-def _brake_speed(vnext, ds, kappa, grade, bank, F, p, mx, my, mt, out, evaluate):
+def _brake_speed(vnext, ds, kappa, grade, bank, F, p, out, evaluate):
     """Speed [m/s] at a step of length ``ds`` [m] from which the control F [N], applied at
     that speed, reaches ``vnext`` [m/s] at the next step (the implicit braking step).
 
@@ -688,11 +731,11 @@ def _brake_speed(vnext, ds, kappa, grade, bank, F, p, mx, my, mt, out, evaluate)
     v = math.sqrt(v2) if v2 > 0.0 else 0.0
     if p[P_USEMAP] == 0.0:
         if evaluate:
-            return v, usage_control(v, kappa, grade, bank, F, p, mx, my, mt, out)
+            return v, usage_control(v, kappa, grade, bank, F, p, out)
         return v, 0
     st = 0
     for _ in range(8):
-        st = usage_control(v, kappa, grade, bank, F, p, mx, my, mt, out)
+        st = usage_control(v, kappa, grade, bank, F, p, out)
         r = F - m * out[O_AX]
         r2 = (r - r0) / (v * v) if v > 1.0 else r2
         v2 = top / (1.0 - 2.0 * ds * r2 / m)
@@ -704,25 +747,25 @@ def _brake_speed(vnext, ds, kappa, grade, bank, F, p, mx, my, mt, out, evaluate)
 
 
 @njit(cache=True, error_model="numpy")
-def _g_brake(vnext, ds, kappa, grade, bank, F, p, mx, my, mt, out):
+def _g_brake(vnext, ds, kappa, grade, bank, F, p, out):
     """Usage excess (plus :data:`BRAKE_MARGIN`) of the implicit braking step with control F."""
-    v, st = _brake_speed(vnext, ds, kappa, grade, bank, F, p, mx, my, mt, out, True)
+    v, st = _brake_speed(vnext, ds, kappa, grade, bank, F, p, out, True)
     if st != 0:
         return BIG
     return max_usage(out) - 1.0 + BRAKE_MARGIN
 
 
 @njit(cache=True, error_model="numpy")
-def _g_kind(kind, x, v, ds, kappa, grade, bank, p, mx, my, mt, out):
+def _g_kind(kind, x, v, ds, kappa, grade, bank, p, out):
     if kind == 0.0:
-        return _g_speed(x, kappa, grade, bank, p, mx, my, mt, out)
+        return _g_speed(x, kappa, grade, bank, p, out)
     if kind == 1.0:
-        return _g_control(v, kappa, grade, bank, x, p, mx, my, mt, out)
-    return _g_brake(v, ds, kappa, grade, bank, x, p, mx, my, mt, out)
+        return _g_control(v, kappa, grade, bank, x, p, out)
+    return _g_brake(v, ds, kappa, grade, bank, x, p, out)
 
 
 @njit(cache=True, error_model="numpy")
-def _illinois(kind, x_ok, g_ok, x_bad, g_bad, v, ds, kappa, grade, bank, p, mx, my, mt, out,
+def _illinois(kind, x_ok, g_ok, x_bad, g_bad, v, ds, kappa, grade, bank, p, out,
               xtol):
     """:func:`_refine` for every kind; kind 2: x is the control [N] of an implicit braking
     step reaching speed ``v`` [m/s] at the end of a step of ``ds`` [m]."""
@@ -746,7 +789,7 @@ def _illinois(kind, x_ok, g_ok, x_bad, g_bad, v, ds, kappa, grade, bank, p, mx, 
             b = hi - 0.02 * w
             if (x - a) * (x - b) > 0.0:  # outside the inner 96 % of the bracket
                 x = lo + 0.5 * w
-        gx = _g_kind(kind, x, v, ds, kappa, grade, bank, p, mx, my, mt, out)
+        gx = _g_kind(kind, x, v, ds, kappa, grade, bank, p, out)
         if gx <= 0.0:
             lo = x
             glo = gx
@@ -765,18 +808,18 @@ def _illinois(kind, x_ok, g_ok, x_bad, g_bad, v, ds, kappa, grade, bank, p, mx, 
 
 
 @njit(cache=True, error_model="numpy")
-def largest_feasible_control(v, kappa, grade, bank, f_ok, f_bad, p, mx, my, mt, out, tol):
+def largest_feasible_control(v, kappa, grade, bank, f_ok, f_bad, p, out, tol):
     """Feasible control [N] nearest the boundary between a feasible ``f_ok`` and an
     infeasible ``f_bad`` (either side)."""
-    g_ok = _g_control(v, kappa, grade, bank, f_ok, p, mx, my, mt, out)
-    g_bad = _g_control(v, kappa, grade, bank, f_bad, p, mx, my, mt, out)
+    g_ok = _g_control(v, kappa, grade, bank, f_ok, p, out)
+    g_bad = _g_control(v, kappa, grade, bank, f_bad, p, out)
     if g_bad <= 0.0:
         return f_bad
-    return _refine(1.0, f_ok, g_ok, f_bad, g_bad, v, kappa, grade, bank, p, mx, my, mt, out, tol)
+    return _refine(1.0, f_ok, g_ok, f_bad, g_bad, v, kappa, grade, bank, p, out, tol)
 
 
 @njit(cache=True, error_model="numpy")
-def _bracket_up(lo, glo, step, vcap, kappa, grade, bank, p, mx, my, mt, out):
+def _bracket_up(lo, glo, step, vcap, kappa, grade, bank, p, out):
     """From a feasible ``lo`` step up (step doubling) to the first infeasible speed or vcap.
 
     Returns (lo, glo, hi, ghi); ghi <= 0 means every speed up to vcap was feasible."""
@@ -784,7 +827,7 @@ def _bracket_up(lo, glo, step, vcap, kappa, grade, bank, p, mx, my, mt, out):
         hi = lo * (1.0 + step)
         if hi >= vcap:
             hi = vcap
-        ghi = _g_speed(hi, kappa, grade, bank, p, mx, my, mt, out)
+        ghi = _g_speed(hi, kappa, grade, bank, p, out)
         if ghi > 0.0 or hi >= vcap:
             return lo, glo, hi, ghi
         lo = hi
@@ -793,7 +836,7 @@ def _bracket_up(lo, glo, step, vcap, kappa, grade, bank, p, mx, my, mt, out):
 
 
 @njit(cache=True, error_model="numpy")
-def _window_search(kind, x0, slope, v, ds, kappa, grade, bank, p, mx, my, mt, out, xtol,
+def _window_search(kind, x0, slope, v, ds, kappa, grade, bank, p, out, xtol,
                    x_lo, x_hi, x_stop):
     """Secant search from a neighbour's prediction ``x0`` for a feasible point on the
     boundary: one whose usage excess g lies in (-2e-5, 0] (the acceptance of
@@ -813,7 +856,7 @@ def _window_search(kind, x0, slope, v, ds, kappa, grade, bank, p, mx, my, mt, ou
     xp = math.nan
     gp = math.nan
     for _ in range(4):
-        g = _g_kind(kind, x, v, ds, kappa, grade, bank, p, mx, my, mt, out)
+        g = _g_kind(kind, x, v, ds, kappa, grade, bank, p, out)
         if g >= 0.5 * BIG:
             return x, slope, False
         if g <= 0.0:
@@ -849,7 +892,7 @@ def _window_search(kind, x0, slope, v, ds, kappa, grade, bank, p, mx, my, mt, ou
 
 
 @njit(cache=True, error_model="numpy")
-def corner_limit(kappa, grade, bank, guess, lo_known, vcap, p, mx, my, mt, out, tol):
+def corner_limit(kappa, grade, bank, guess, lo_known, vcap, p, out, tol):
     """Highest steady speed [m/s] below the first infeasible one (both axles u <= 1).
 
     ``guess`` is a predicted limit (e.g. a neighbour's, scaled by the curvature ratio);
@@ -863,14 +906,13 @@ def corner_limit(kappa, grade, bank, guess, lo_known, vcap, p, mx, my, mt, out, 
     step0 = 0.004
     if lo_known > V_MIN:
         lo = lo_known if lo_known < vcap else vcap
-        glo = _g_speed(lo, kappa, grade, bank, p, mx, my, mt, out)
+        glo = _g_speed(lo, kappa, grade, bank, p, out)
         if glo <= 0.0:
             s = guess / lo - 1.0 + step0 if guess > lo else step0
-            lo, glo, hi, ghi = _bracket_up(lo, glo, s, vcap, kappa, grade, bank, p, mx, my,
-                                           mt, out)
+            lo, glo, hi, ghi = _bracket_up(lo, glo, s, vcap, kappa, grade, bank, p, out)
             if ghi <= 0.0:
                 return vcap
-            return _refine(0.0, lo, glo, hi, ghi, 0.0, kappa, grade, bank, p, mx, my, mt, out,
+            return _refine(0.0, lo, glo, hi, ghi, 0.0, kappa, grade, bank, p, out,
                            tol)
     found = False
     lo = 0.0
@@ -878,27 +920,26 @@ def corner_limit(kappa, grade, bank, guess, lo_known, vcap, p, mx, my, mt, out, 
     hi = vcap
     ghi = 1.0
     if V_MIN < guess < vcap:
-        gg = _g_speed(guess, kappa, grade, bank, p, mx, my, mt, out)
+        gg = _g_speed(guess, kappa, grade, bank, p, out)
         if gg <= 0.0:
-            lo, glo, hi, ghi = _bracket_up(guess, gg, step0, vcap, kappa, grade, bank, p, mx,
-                                           my, mt, out)
+            lo, glo, hi, ghi = _bracket_up(guess, gg, step0, vcap, kappa, grade, bank, p, out)
         else:
             hi = guess
             ghi = gg
             step = step0
             lo = guess / (1.0 + step)
-            glo = _g_speed(lo, kappa, grade, bank, p, mx, my, mt, out)
+            glo = _g_speed(lo, kappa, grade, bank, p, out)
             while glo > 0.0 and lo > V_MIN:
                 hi = lo
                 ghi = glo
                 step *= 2.0
                 lo = lo / (1.0 + step)
-                glo = _g_speed(lo, kappa, grade, bank, p, mx, my, mt, out)
+                glo = _g_speed(lo, kappa, grade, bank, p, out)
         found = glo <= 0.0 and lo > V_MIN
-        if found and _g_speed(0.5 * lo, kappa, grade, bank, p, mx, my, mt, out) > 0.0:
+        if found and _g_speed(0.5 * lo, kappa, grade, bank, p, out) > 0.0:
             found = False
     elif guess >= vcap:
-        ghi = _g_speed(vcap, kappa, grade, bank, p, mx, my, mt, out)
+        ghi = _g_speed(vcap, kappa, grade, bank, p, out)
         if ghi <= 0.0:
             lo = vcap
             glo = ghi
@@ -906,32 +947,32 @@ def corner_limit(kappa, grade, bank, guess, lo_known, vcap, p, mx, my, mt, out, 
     if found and ghi <= 0.0:
         # feasible up to vcap: make sure there is no infeasible band below it
         for f in (0.2, 0.4, 0.6, 0.8):
-            if _g_speed(vcap * f, kappa, grade, bank, p, mx, my, mt, out) > 0.0:
+            if _g_speed(vcap * f, kappa, grade, bank, p, out) > 0.0:
                 found = False
                 break
         if found:
             return vcap
     if not found:
         lo = V_MIN
-        glo = _g_speed(lo, kappa, grade, bank, p, mx, my, mt, out)
+        glo = _g_speed(lo, kappa, grade, bank, p, out)
         if glo > 0.0:
             return 0.0
         while True:
             hi = lo * 1.15
             if hi >= vcap:
                 hi = vcap
-            ghi = _g_speed(hi, kappa, grade, bank, p, mx, my, mt, out)
+            ghi = _g_speed(hi, kappa, grade, bank, p, out)
             if ghi > 0.0:
                 break
             if hi >= vcap:
                 return vcap
             lo = hi
             glo = ghi
-    return _refine(0.0, lo, glo, hi, ghi, 0.0, kappa, grade, bank, p, mx, my, mt, out, tol)
+    return _refine(0.0, lo, glo, hi, ghi, 0.0, kappa, grade, bank, p, out, tol)
 
 
 @njit(cache=True, parallel=True, error_model="numpy")
-def corner_limits(kappa, grade, bank, vcap, p, mx, my, mt, tol, nchunks):
+def corner_limits(kappa, grade, bank, vcap, p, tol, nchunks):
     """Corner-speed limit [m/s] at every step; chunks run in parallel, each warm-started.
 
     Between neighbours with the same grade and bank, every state quantity depends on the
@@ -943,33 +984,30 @@ def corner_limits(kappa, grade, bank, vcap, p, mx, my, mt, tol, nchunks):
     vlim = np.empty(n)
     size = (n + nchunks - 1) // nchunks
     for c in prange(nchunks):
-        _corner_limits_chunk(kappa, grade, bank, vcap, p, mx, my, mt, tol, c * size,
+        _corner_limits_chunk(kappa, grade, bank, vcap, p, tol, c * size,
                              min(n, (c + 1) * size), vlim)
     return vlim
 
 
 @njit(cache=True, error_model="numpy")
-def corner_limits_serial(kappa, grade, bank, vcap, p, mx, my, mt, tol, nchunks):
+def corner_limits_serial(kappa, grade, bank, vcap, p, tol, nchunks):
     """:func:`corner_limits` on the calling thread: the same chunks one after another (the
     same warm starts, so the same numbers), without starting numba's thread pool."""
     n = kappa.shape[0]
     vlim = np.empty(n)
     size = (n + nchunks - 1) // nchunks
     for c in range(nchunks):
-        _corner_limits_chunk(kappa, grade, bank, vcap, p, mx, my, mt, tol, c * size,
+        _corner_limits_chunk(kappa, grade, bank, vcap, p, tol, c * size,
                              min(n, (c + 1) * size), vlim)
     return vlim
 
 
 @njit(cache=True, error_model="numpy")
-def _corner_limits_chunk(kappa, grade, bank, vcap, p, mx, my, mt, tol, start, stop, vlim):
+def _corner_limits_chunk(kappa, grade, bank, vcap, p, tol, start, stop, vlim):
     """Corner limits of steps start..stop-1 into ``vlim``, each warm-started from the last."""
     own = np.full(NOUT, np.nan)
     out = borrowed(own)  # no reference counting in the searches (lapbalance.views)
     p = borrowed(p)
-    mx = borrowed(mx)
-    my = borrowed(my)
-    mt = borrowed(mt)
     prev_v = 0.0
     prev_k = 0.0
     prev_g = math.nan
@@ -1004,8 +1042,7 @@ def _corner_limits_chunk(kappa, grade, bank, vcap, p, mx, my, mt, tol, start, st
             # a rising curvature, look for an infeasible band now and then
             band_ok = True
             if lo_known == 0.0 and (abs(k) > 1.05 * k_band or since > 32):
-                band_ok = _g_speed(0.5 * guess, kappa[i], grade[i], bank[i], p, mx, my,
-                                   mt, out) <= 0.0
+                band_ok = _g_speed(0.5 * guess, kappa[i], grade[i], bank[i], p, out) <= 0.0
                 k_band = abs(k)
                 since = 0
             if band_ok:
@@ -1014,12 +1051,12 @@ def _corner_limits_chunk(kappa, grade, bank, vcap, p, mx, my, mt, tol, start, st
                     if abs(ge - guess) < 0.05 * guess:
                         guess = ge
                 x, s2, ok = _window_search(0.0, guess, slope, 0.0, 0.0, k, grade[i], bank[i],
-                                           p, mx, my, mt, out, tol, V_MIN, vcap, -1.0)
+                                           p, out, tol, V_MIN, vcap, -1.0)
                 if ok and x < vcap and x >= lo_known:
                     vl = x
                     slope = s2
         if vl < 0.0:
-            vl = corner_limit(k, grade[i], bank[i], guess, lo_known, vcap, p, mx, my, mt,
+            vl = corner_limit(k, grade[i], bank[i], guess, lo_known, vcap, p,
                               out, tol)
             slope = 1.5 / vl if vl > V_MIN else math.nan
             k_band = abs(k)
@@ -1037,26 +1074,25 @@ def _corner_limits_chunk(kappa, grade, bank, vcap, p, mx, my, mt, tol, start, st
 
 
 @njit(cache=True, error_model="numpy")
-def _search_from_hint(v, kappa, grade, bank, f_ok, g_ok, hint, direction, f_stop, p, mx, my,
-                      mt, out, ftol):
+def _search_from_hint(v, kappa, grade, bank, f_ok, g_ok, hint, direction, f_stop, p, out, ftol):
     """Boundary of the feasible control interval beyond a feasible ``f_ok`` [N] in
     ``direction`` (+1 more drive, -1 more braking), starting near ``hint`` and not past
     ``f_stop`` (returned when everything up to it is feasible)."""
     m = p[P_MASS]
     return _search_kind(1.0, v, 0.0, kappa, grade, bank, f_ok, g_ok, hint, 0.005 * m * G,
-                        0.02 * m * G, direction, f_stop, p, mx, my, mt, out, ftol)
+                        0.02 * m * G, direction, f_stop, p, out, ftol)
 
 
 @njit(cache=True, error_model="numpy")
 def _search_kind(kind, v, ds, kappa, grade, bank, f_ok, g_ok, hint, back, step, direction,
-                 f_stop, p, mx, my, mt, out, ftol):
+                 f_stop, p, out, ftol):
     """:func:`_search_from_hint` for control kinds 1 and 2 (see :func:`_illinois`), with the
     first step back from an infeasible hint ``back`` [N] and the first step on ``step`` [N]
     (both doubling). ``g_ok`` NaN: not evaluated yet (it is, if needed; NaN is returned when
     ``f_ok`` then proves infeasible)."""
     if not math.isnan(hint) and (hint - f_ok) * direction > 0.0 and \
             (f_stop - hint) * direction > 0.0:
-        g_h = _g_kind(kind, hint, v, ds, kappa, grade, bank, p, mx, my, mt, out)
+        g_h = _g_kind(kind, hint, v, ds, kappa, grade, bank, p, out)
         if g_h > 0.0:
             # the boundary is just short of the hint: step back from it (doubling) to a
             # feasible point, so the bracket is narrow
@@ -1066,7 +1102,7 @@ def _search_kind(kind, v, ds, kappa, grade, bank, f_ok, g_ok, hint, back, step, 
                 f_try = f_bad - direction * back
                 if (f_try - f_ok) * direction <= 0.0:
                     break  # back at f_ok: use the wide bracket
-                g_try = _g_kind(kind, f_try, v, ds, kappa, grade, bank, p, mx, my, mt, out)
+                g_try = _g_kind(kind, f_try, v, ds, kappa, grade, bank, p, out)
                 if g_try <= 0.0:
                     f_ok = f_try
                     g_ok = g_try
@@ -1075,18 +1111,18 @@ def _search_kind(kind, v, ds, kappa, grade, bank, f_ok, g_ok, hint, back, step, 
                 g_bad = g_try
                 back *= 2.0
             if math.isnan(g_ok):
-                g_ok = _g_kind(kind, f_ok, v, ds, kappa, grade, bank, p, mx, my, mt, out)
+                g_ok = _g_kind(kind, f_ok, v, ds, kappa, grade, bank, p, out)
                 if g_ok > 0.0:
                     return math.nan
-            return _illinois(kind, f_ok, g_ok, f_bad, g_bad, v, ds, kappa, grade, bank, p, mx,
-                             my, mt, out, ftol)
+            return _illinois(kind, f_ok, g_ok, f_bad, g_bad, v, ds, kappa, grade, bank, p, out,
+                             ftol)
         f_ok = hint
         g_ok = g_h
     while True:
         f_bad = f_ok + direction * step
         if (f_bad - f_stop) * direction >= 0.0:
             f_bad = f_stop
-        g_bad = _g_kind(kind, f_bad, v, ds, kappa, grade, bank, p, mx, my, mt, out)
+        g_bad = _g_kind(kind, f_bad, v, ds, kappa, grade, bank, p, out)
         if g_bad > 0.0:
             break
         if f_bad == f_stop:
@@ -1095,56 +1131,55 @@ def _search_kind(kind, v, ds, kappa, grade, bank, f_ok, g_ok, hint, back, step, 
         g_ok = g_bad
         step *= 2.0
     if math.isnan(g_ok):
-        g_ok = _g_kind(kind, f_ok, v, ds, kappa, grade, bank, p, mx, my, mt, out)
+        g_ok = _g_kind(kind, f_ok, v, ds, kappa, grade, bank, p, out)
         if g_ok > 0.0:
             return math.nan
-    return _illinois(kind, f_ok, g_ok, f_bad, g_bad, v, ds, kappa, grade, bank, p, mx, my, mt,
+    return _illinois(kind, f_ok, g_ok, f_bad, g_bad, v, ds, kappa, grade, bank, p,
                      out, ftol)
 
 
 @njit(cache=True, error_model="numpy")
-def max_accel_control(v, kappa, grade, bank, p, gears, trpm, tnm, mx, my, mt, out, ftol,
+def max_accel_control(v, kappa, grade, bank, p, gears, trpm, tnm, out, ftol,
                       hint=math.nan):
     """Largest drive control [N] at v that the powertrain gives and both axles carry."""
     feng = engine_force(v, p, gears, trpm, tnm)
     m = p[P_MASS]
-    return _max_accel_feng(v, kappa, grade, bank, feng, p, mx, my, mt, out, ftol, hint,
+    return _max_accel_feng(v, kappa, grade, bank, feng, p, out, ftol, hint,
                            0.005 * m * G, 0.02 * m * G)
 
 
 @njit(cache=True, error_model="numpy")
-def _max_accel_feng(v, kappa, grade, bank, feng, p, mx, my, mt, out, ftol, hint, back, step):
+def _max_accel_feng(v, kappa, grade, bank, feng, p, out, ftol, hint, back, step):
     """:func:`max_accel_control` with the engine force ``feng`` [N] already known and the
     search steps [N] of :func:`_search_kind`."""
-    if _g_control(v, kappa, grade, bank, feng, p, mx, my, mt, out) <= 0.0:
+    if _g_control(v, kappa, grade, bank, feng, p, out) <= 0.0:
         return feng
-    fs = steady_control(v, kappa, grade, bank, p, mx, my, mt, out)
+    fs = steady_control(v, kappa, grade, bank, p, out)
     if out[O_STATUS] != 0.0 or max_usage(out) > 1.0:
         return fs  # should not happen below the corner limit
     gs = max_usage(out) - 1.0
     if feng <= fs:
         # the engine cannot hold speed and less drive is infeasible: least extra drive
-        return _refine(1.0, fs, gs, feng, 1.0, v, kappa, grade, bank, p, mx, my, mt, out, ftol)
+        return _refine(1.0, fs, gs, feng, 1.0, v, kappa, grade, bank, p, out, ftol)
     return _search_kind(1.0, v, 0.0, kappa, grade, bank, fs, gs, hint, back, step, 1.0, feng, p,
-                        mx, my, mt, out, ftol)
+                        out, ftol)
 
 
 @njit(cache=True, error_model="numpy")
-def max_decel_control(v, kappa, grade, bank, p, mx, my, mt, out, ftol, hint=math.nan):
+def max_decel_control(v, kappa, grade, bank, p, out, ftol, hint=math.nan):
     """Smallest control [N] at v that both axles carry (most braking; positive when even
     coasting would saturate an axle and a little throttle is needed)."""
-    fs = steady_control(v, kappa, grade, bank, p, mx, my, mt, out)
+    fs = steady_control(v, kappa, grade, bank, p, out)
     if out[O_STATUS] != 0.0 or max_usage(out) > 1.0:
         return fs
     gs = max_usage(out) - 1.0
     f_stop = -4.0 * p[P_MASS] * G - 4.0 * abs(out[O_DOWNF])
-    return _search_from_hint(v, kappa, grade, bank, fs, gs, hint, -1.0, f_stop, p, mx, my, mt,
+    return _search_from_hint(v, kappa, grade, bank, fs, gs, hint, -1.0, f_stop, p,
                              out, ftol)
 
 
 @njit(cache=True, error_model="numpy")
-def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, tnm, mx, my,
-                 mt, ftol):
+def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, tnm, ftol):
     """Forward (acceleration) and backward (braking) passes; returns the speed trace [m/s].
 
     ``v_start`` is the speed at step 0 (NaN = the corner limit there); ``v_end`` the speed at
@@ -1157,9 +1192,6 @@ def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, t
     gears = borrowed(gears)
     trpm = borrowed(trpm)
     tnm = borrowed(tnm)
-    mx = borrowed(mx)
-    my = borrowed(my)
-    mt = borrowed(mt)
     m = p[P_MASS]
     vf = np.empty(n)
     vf[0] = vlim[0] if math.isnan(v_start) else min(v_start, vlim[0])
@@ -1174,7 +1206,7 @@ def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, t
         # can the car reach the next step's limit? one evaluation settles most steps
         need = (vt * vt - vi * vi) / (2.0 * ds)
         if need < 50.0:
-            fn = control_for_ax_lean(vi, kappa[i], grade[i], bank[i], need, p, mx, my, mt, out)
+            fn = control_for_ax_lean(vi, kappa[i], grade[i], bank[i], need, p, out)
             if out[O_STATUS] == 0.0 and max_usage(out) <= 1.0 and fn <= feng:
                 vf[i + 1] = vt
                 continue
@@ -1187,26 +1219,26 @@ def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, t
             F = math.nan
             if guess < feng and fs < feng and not math.isnan(slope):
                 x, s2, ok = _window_search(1.0, guess, slope, vi, 0.0, kappa[i], grade[i],
-                                           bank[i], p, mx, my, mt, out, ftol, fs, feng, feng)
+                                           bank[i], p, out, ftol, fs, feng, feng)
                 if ok:
                     F = x
                     slope = s2
             if math.isnan(F) and guess < feng and fs < feng:
                 F = _search_kind(1.0, vi, 0.0, kappa[i], grade[i], bank[i], fs, math.nan, guess,
-                                 d, d, 1.0, feng, p, mx, my, mt, out, ftol)
+                                 d, d, 1.0, feng, p, out, ftol)
             if math.isnan(F):
-                F = _max_accel_feng(vi, kappa[i], grade[i], bank[i], feng, p, mx, my, mt, out,
+                F = _max_accel_feng(vi, kappa[i], grade[i], bank[i], feng, p, out,
                                     ftol, guess, d, d)
             hint2 = hint
         else:
-            F = _max_accel_feng(vi, kappa[i], grade[i], bank[i], feng, p, mx, my, mt, out,
+            F = _max_accel_feng(vi, kappa[i], grade[i], bank[i], feng, p, out,
                                 ftol, math.nan, 0.005 * m * G, 0.02 * m * G)
             hint2 = math.nan
         if math.isnan(slope):
             slope = 1.0 / (p[P_MUXR] * (m * G + abs(out[O_DOWNF])))  # about 1 / grip
         hint = F
         last = i
-        ax = ax_of_control(vi, kappa[i], grade[i], bank[i], F, p, mx, my, mt, out)
+        ax = ax_of_control(vi, kappa[i], grade[i], bank[i], F, p, out)
         v2 = vi * vi + 2.0 * ax * ds
         vn = math.sqrt(v2) if v2 > 0.0 else 0.0
         vf[i + 1] = vn if vn < vlim[i + 1] else vlim[i + 1]
@@ -1224,8 +1256,7 @@ def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, t
             vb[i] = vlim[i]
             continue
         cap = vf[i]  # the forward trace: no braking speed above it matters
-        if last != i + 1 and _brakes_from(cap, vnext, ds, kappa[i], grade[i], bank[i], p, mx,
-                                          my, mt, out):
+        if last != i + 1 and _brakes_from(cap, vnext, ds, kappa[i], grade[i], bank[i], p, out):
             vb[i] = cap  # the start of a braking zone: the forward trace brakes in time
             continue
         # implicit step: the force is applied at this step's own speed v, which follows from
@@ -1247,19 +1278,19 @@ def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, t
         F = math.nan
         if not math.isnan(guess) and not math.isnan(slope) and f_stop < guess < f_ok:
             x, s2, ok = _window_search(2.0, guess, slope, vnext, ds, kappa[i], grade[i], bank[i],
-                                       p, mx, my, mt, out, ftol, f_stop, f_ok, f_stop)
+                                       p, out, ftol, f_stop, f_ok, f_stop)
             if ok:
                 F = x
                 slope = s2
         if math.isnan(F):
             F = _search_kind(2.0, vnext, ds, kappa[i], grade[i], bank[i], f_ok, math.nan, guess,
-                             back, step, -1.0, f_stop, p, mx, my, mt, out, ftol)
+                             back, step, -1.0, f_stop, p, out, ftol)
             slope = -1.0 / (p[P_MUXF] * (m * G + abs(out[O_DOWNF])))
         if not math.isnan(F):
             hint2 = hint if last == i + 1 else math.nan
             hint = F
             last = i
-            vi, st = _brake_speed(vnext, ds, kappa[i], grade[i], bank[i], F, p, mx, my, mt,
+            vi, st = _brake_speed(vnext, ds, kappa[i], grade[i], bank[i], F, p,
                                   out, False)
             if vi < cap and vi >= vnext:
                 vb[i] = vi
@@ -1269,14 +1300,14 @@ def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, t
             last = n + 10
         # the braking curve lies above the forward trace: brake from the forward trace if
         # the car can, else from the fastest speed below it it can brake from (bisection)
-        if _brakes_from(cap, vnext, ds, kappa[i], grade[i], bank[i], p, mx, my, mt, out):
+        if _brakes_from(cap, vnext, ds, kappa[i], grade[i], bank[i], p, out):
             vb[i] = cap
             continue
         lo = vnext
         hi = cap
         for _ in range(40):
             mid = 0.5 * (lo + hi)
-            if _brakes_from(mid, vnext, ds, kappa[i], grade[i], bank[i], p, mx, my, mt, out):
+            if _brakes_from(mid, vnext, ds, kappa[i], grade[i], bank[i], p, out):
                 lo = mid
             else:
                 hi = mid
@@ -1289,11 +1320,11 @@ def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, t
 
 
 @njit(cache=True, error_model="numpy")
-def _brakes_from(v, vnext, ds, kappa, grade, bank, p, mx, my, mt, out):
+def _brakes_from(v, vnext, ds, kappa, grade, bank, p, out):
     """True when the step from speed v [m/s] to ``vnext`` over ``ds`` [m] is feasible with
     the usage margin of the braking search (the force the final pass will apply)."""
     a_req = (vnext * vnext - v * v) / (2.0 * ds)
-    control_for_ax_lean(v, kappa, grade, bank, a_req, p, mx, my, mt, out)
+    control_for_ax_lean(v, kappa, grade, bank, a_req, p, out)
     return out[O_STATUS] == 0.0 and max_usage(out) <= 1.0 - BRAKE_MARGIN
 
 
@@ -1305,7 +1336,7 @@ USAGE_SLACK = 1e-9
 
 
 @njit(cache=True, parallel=True, error_model="numpy")
-def final_pass(v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm, tnm, mx, my, mt,
+def final_pass(v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm, tnm,
                ftol, ay_liftoff):
     """Per-step force balance consistent with the speed trace, all load parts, usages,
     limiting constraint, and the lift-off / coasting re-evaluation.
@@ -1318,27 +1349,27 @@ def final_pass(v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm, tnm
     nchunks = 8 if n > 400 else 1
     size = (n + nchunks - 1) // nchunks
     for ch in prange(nchunks):
-        _final_chunk(v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm, tnm, mx,
-                     my, mt, ftol, ay_liftoff, res, ch * size, min(n, (ch + 1) * size))
+        _final_chunk(v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm, tnm, ftol,
+                     ay_liftoff, res, ch * size, min(n, (ch + 1) * size))
     return res
 
 
 @njit(cache=True, error_model="numpy")
-def final_pass_serial(v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm, tnm, mx,
-                      my, mt, ftol, ay_liftoff):
+def final_pass_serial(v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm, tnm, ftol,
+                      ay_liftoff):
     """:func:`final_pass` on the calling thread (the same chunks in turn, the same numbers)."""
     n = v.shape[0]
     res = np.zeros((n, NOUT + NCH))
     nchunks = 8 if n > 400 else 1
     size = (n + nchunks - 1) // nchunks
     for ch in range(nchunks):
-        _final_chunk(v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm, tnm, mx,
-                     my, mt, ftol, ay_liftoff, res, ch * size, min(n, (ch + 1) * size))
+        _final_chunk(v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm, tnm, ftol,
+                     ay_liftoff, res, ch * size, min(n, (ch + 1) * size))
     return res
 
 
 @njit(cache=True, error_model="numpy")
-def _final_chunk(v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm, tnm, mx, my, mt,
+def _final_chunk(v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm, tnm,
                  ftol, ay_liftoff, res, start, stop):
     """Rows start..stop-1 of :func:`final_pass`."""
     own_out = np.full(NOUT, np.nan)
@@ -1354,19 +1385,16 @@ def _final_chunk(v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm, t
     gears = borrowed(gears)
     trpm = borrowed(trpm)
     tnm = borrowed(tnm)
-    mx = borrowed(mx)
-    my = borrowed(my)
-    mt = borrowed(mt)
     for i in range(start, stop):
-        _final_step(i, v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm, tnm, mx,
-                    my, mt, ftol, ay_liftoff, res, out, tmp)
+        _final_step(i, v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm, tnm, ftol,
+                    ay_liftoff, res, out, tmp)
     keep_alive(own_out)
     keep_alive(own_tmp)
 
 
 @njit(cache=True, error_model="numpy")
-def _final_step(i, v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm, tnm, mx, my,
-                mt, ftol, ay_liftoff, res, out, tmp):
+def _final_step(i, v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm, tnm, ftol,
+                ay_liftoff, res, out, tmp):
     """One step of :func:`final_pass` (fills row ``i`` of ``res``)."""
     n = v.shape[0]
     vi = v[i]
@@ -1376,17 +1404,16 @@ def _final_step(i, v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm,
         a_req = (closed_tail ** 2 - vi * vi) / (2.0 * ds)
     else:
         a_req = (vi * vi - v[i - 1] ** 2) / (2.0 * ds) if n > 1 else 0.0
-    F = control_for_ax(vi, kappa[i], grade[i], bank[i], a_req, p, mx, my, mt, out)
+    F = control_for_ax(vi, kappa[i], grade[i], bank[i], a_req, p, out)
     feng = engine_force(vi, p, gears, trpm, tnm)
     if F > feng:
         F = feng
-        state_control(vi, kappa[i], grade[i], bank[i], F, p, mx, my, mt, out)
+        state_control(vi, kappa[i], grade[i], bank[i], F, p, out)
     if out[O_STATUS] != 0.0 or max_usage(out) > 1.0 + USAGE_SLACK:
-        fs = steady_control(vi, kappa[i], grade[i], bank[i], p, mx, my, mt, tmp)
+        fs = steady_control(vi, kappa[i], grade[i], bank[i], p, tmp)
         if tmp[O_STATUS] == 0.0 and max_usage(tmp) <= 1.0:
-            F = largest_feasible_control(vi, kappa[i], grade[i], bank[i], fs, F, p, mx, my,
-                                         mt, tmp, ftol)
-        state_control(vi, kappa[i], grade[i], bank[i], F, p, mx, my, mt, out)
+            F = largest_feasible_control(vi, kappa[i], grade[i], bank[i], fs, F, p, tmp, ftol)
+        state_control(vi, kappa[i], grade[i], bank[i], F, p, out)
     for k in range(NOUT):
         res[i, k] = out[k]
     g, rpm = gear_and_rpm(vi, p, gears)
@@ -1413,14 +1440,14 @@ def _final_step(i, v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm,
     res[i, c + 7] = fo
     if holds:
         b_on = ur - uf
-        state(vi, kappa[i], grade[i], bank[i], -fo, 0.0, p, mx, my, mt, tmp)
+        state(vi, kappa[i], grade[i], bank[i], -fo, 0.0, p, tmp)
         res[i, c + 8] = (tmp[O_UR] - tmp[O_UF]) - b_on  # dB
         res[i, c + 9] = tmp[O_FZF] - out[O_FZF]  # front-load shift
         res[i, c + 10] = tmp[O_UF]
         res[i, c + 11] = tmp[O_UR]
         res[i, c + 12] = tmp[O_AX]
         res[i, c + 13] = tmp[O_STATUS]
-        state(vi, kappa[i], grade[i], bank[i], 0.0, 0.0, p, mx, my, mt, tmp)
+        state(vi, kappa[i], grade[i], bank[i], 0.0, 0.0, p, tmp)
         res[i, c + 14] = (tmp[O_UR] - tmp[O_UF]) - b_on
         res[i, c + 15] = tmp[O_FZF] - out[O_FZF]
         res[i, c + 16] = tmp[O_UF]
@@ -1444,27 +1471,27 @@ NMARGIN = 7
 
 
 @njit(cache=True)
-def lift_state(v, kappa, grade, bank, coast, p, gears, mx, my, mt, out):
+def lift_state(v, kappa, grade, bank, coast, p, gears, out):
     """State after a lift at speed v [m/s]: drive replaced by the engine's overrun force in
     the gear of that speed (``coast`` = 0.0) or by nothing (``coast`` = 1.0), no brakes
     (a float, so one compiled version serves both).
 
     Fills ``out`` and returns the status code (0 = feasible loads)."""
     fo = 0.0 if coast != 0 else overrun_force(v, p, gears)
-    return state(v, kappa, grade, bank, -fo, 0.0, p, mx, my, mt, out)
+    return state(v, kappa, grade, bank, -fo, 0.0, p, out)
 
 
 @njit(cache=True, inline="always")
-def _g_lift(v, kappa, grade, bank, coast, p, gears, mx, my, mt, out):
+def _g_lift(v, kappa, grade, bank, coast, p, gears, out):
     """Rear usage excess u_r - 1 after a lift at v [m/s]; BIG when an axle unloads."""
-    st = lift_state(v, kappa, grade, bank, coast, p, gears, mx, my, mt, out)
+    st = lift_state(v, kappa, grade, bank, coast, p, gears, out)
     if st != 0:
         return BIG
     return out[O_UR] - 1.0
 
 
 @njit(cache=True)
-def _refine_lift(x_ok, g_ok, x_bad, g_bad, kappa, grade, bank, coast, p, gears, mx, my, mt,
+def _refine_lift(x_ok, g_ok, x_bad, g_bad, kappa, grade, bank, coast, p, gears,
                  out, xtol):
     """Illinois search (as :func:`_refine`) for the speed [m/s] where the rear usage after a
     lift crosses 1, between a safe ``x_ok`` and an unsafe ``x_bad`` (either order)."""
@@ -1488,7 +1515,7 @@ def _refine_lift(x_ok, g_ok, x_bad, g_bad, kappa, grade, bank, coast, p, gears, 
             b = hi - 0.02 * w
             if (x - a) * (x - b) > 0.0:
                 x = lo + 0.5 * w
-        gx = _g_lift(x, kappa, grade, bank, coast, p, gears, mx, my, mt, out)
+        gx = _g_lift(x, kappa, grade, bank, coast, p, gears, out)
         if gx <= 0.0:
             lo = x
             glo = gx
@@ -1507,7 +1534,7 @@ def _refine_lift(x_ok, g_ok, x_bad, g_bad, kappa, grade, bank, coast, p, gears, 
 
 
 @njit(cache=True)
-def liftoff_safe_speed(kappa, grade, bank, vlim, guess, coast, p, gears, mx, my, mt, out,
+def liftoff_safe_speed(kappa, grade, bank, vlim, guess, coast, p, gears, out,
                        tol):
     """Highest speed [m/s] at or below the corner limit ``vlim`` at which a lift keeps the
     rear within its grip (u_r <= 1 after the lift), and u_r after a lift at ``vlim``.
@@ -1518,7 +1545,7 @@ def liftoff_safe_speed(kappa, grade, bank, vlim, guess, coast, p, gears, mx, my,
     to ``tol`` [m/s] or rear usage within 1e-5 of 1. Returns (v_safe, u_r at the limit); v_safe
     is 0 when no speed down to V_MIN is safe.
     """
-    g_top = _g_lift(vlim, kappa, grade, bank, coast, p, gears, mx, my, mt, out)
+    g_top = _g_lift(vlim, kappa, grade, bank, coast, p, gears, out)
     u_top = g_top + 1.0
     if g_top <= 0.0:
         return vlim, u_top
@@ -1527,7 +1554,7 @@ def liftoff_safe_speed(kappa, grade, bank, vlim, guess, coast, p, gears, mx, my,
     lo = vlim
     step = 0.03
     if V_MIN < guess < vlim:
-        g_g = _g_lift(guess, kappa, grade, bank, coast, p, gears, mx, my, mt, out)
+        g_g = _g_lift(guess, kappa, grade, bank, coast, p, gears, out)
         step = 0.003
         if g_g <= 0.0:
             # safe at the guess: step up (doubling) to the first unsafe speed, not past vlim
@@ -1537,7 +1564,7 @@ def liftoff_safe_speed(kappa, grade, bank, vlim, guess, coast, p, gears, mx, my,
                 x = lo * (1.0 + step)
                 if x >= vlim:
                     break
-                gx = _g_lift(x, kappa, grade, bank, coast, p, gears, mx, my, mt, out)
+                gx = _g_lift(x, kappa, grade, bank, coast, p, gears, out)
                 if gx > 0.0:
                     hi = x
                     ghi = gx
@@ -1545,8 +1572,8 @@ def liftoff_safe_speed(kappa, grade, bank, vlim, guess, coast, p, gears, mx, my,
                 lo = x
                 glo = gx
                 step *= 2.0
-            return _refine_lift(lo, glo, hi, ghi, kappa, grade, bank, coast, p, gears, mx, my,
-                                mt, out, tol), u_top
+            return (_refine_lift(lo, glo, hi, ghi, kappa, grade, bank, coast, p, gears, out,
+                                 tol), u_top)
         hi = guess
         ghi = g_g
         lo = guess
@@ -1555,14 +1582,14 @@ def liftoff_safe_speed(kappa, grade, bank, vlim, guess, coast, p, gears, mx, my,
         step = step * 2.0 if step < 0.25 else 0.5
         if lo <= V_MIN:
             lo = V_MIN
-        glo = _g_lift(lo, kappa, grade, bank, coast, p, gears, mx, my, mt, out)
+        glo = _g_lift(lo, kappa, grade, bank, coast, p, gears, out)
         if glo <= 0.0:
             break
         if lo <= V_MIN:
             return 0.0, u_top
         hi = lo
         ghi = glo
-    return _refine_lift(lo, glo, hi, ghi, kappa, grade, bank, coast, p, gears, mx, my, mt, out,
+    return _refine_lift(lo, glo, hi, ghi, kappa, grade, bank, coast, p, gears, out,
                         tol), u_top
 
 
@@ -1586,7 +1613,7 @@ def margin_of(vsafe, vlim, kappa, grade, bank):
 
 
 @njit(cache=True, parallel=True)
-def liftoff_margins(kappa, grade, bank, vlim, checked, p, gears, mx, my, mt, tol, nchunks):
+def liftoff_margins(kappa, grade, bank, vlim, checked, p, gears, tol, nchunks):
     """Lift-off margin at every checked step (``checked`` > 0), columns ``M_*``.
 
     At each checked step: the step's curvature, grade and bank, its steady corner limit
@@ -1599,26 +1626,26 @@ def liftoff_margins(kappa, grade, bank, vlim, checked, p, gears, mx, my, mt, tol
     res = np.full((n, NMARGIN), np.nan)
     size = (n + nchunks - 1) // nchunks
     for c in prange(nchunks):
-        _liftoff_margins_chunk(kappa, grade, bank, vlim, checked, p, gears, mx, my, mt, tol,
+        _liftoff_margins_chunk(kappa, grade, bank, vlim, checked, p, gears, tol,
                                c * size, min(n, (c + 1) * size), res)
     return res
 
 
 @njit(cache=True)
-def liftoff_margins_serial(kappa, grade, bank, vlim, checked, p, gears, mx, my, mt, tol,
+def liftoff_margins_serial(kappa, grade, bank, vlim, checked, p, gears, tol,
                            nchunks):
     """:func:`liftoff_margins` on the calling thread (the same chunks in turn)."""
     n = kappa.shape[0]
     res = np.full((n, NMARGIN), np.nan)
     size = (n + nchunks - 1) // nchunks
     for c in range(nchunks):
-        _liftoff_margins_chunk(kappa, grade, bank, vlim, checked, p, gears, mx, my, mt, tol,
+        _liftoff_margins_chunk(kappa, grade, bank, vlim, checked, p, gears, tol,
                                c * size, min(n, (c + 1) * size), res)
     return res
 
 
 @njit(cache=True)
-def _liftoff_margins_chunk(kappa, grade, bank, vlim, checked, p, gears, mx, my, mt, tol,
+def _liftoff_margins_chunk(kappa, grade, bank, vlim, checked, p, gears, tol,
                            start, stop, res):
     """Lift-off margins of steps start..stop-1 into ``res``, each warm-started from the
     previous checked step."""
@@ -1626,9 +1653,6 @@ def _liftoff_margins_chunk(kappa, grade, bank, vlim, checked, p, gears, mx, my, 
     out = borrowed(own)  # no reference counting in the searches (lapbalance.views)
     p = borrowed(p)
     gears = borrowed(gears)
-    mx = borrowed(mx)
-    my = borrowed(my)
-    mt = borrowed(mt)
     prev = -10
     r_on = 1.0
     r_co = 1.0
@@ -1639,13 +1663,11 @@ def _liftoff_margins_chunk(kappa, grade, bank, vlim, checked, p, gears, mx, my, 
         vl = vlim[i]
         g_on = r_on * vl if prev == i - 1 else 0.0
         g_co = r_co * vl if prev == i - 1 else 0.0
-        vs, ut = liftoff_safe_speed(k, grade[i], bank[i], vl, g_on, 0.0, p, gears, mx, my,
-                                    mt, out, tol)
+        vs, ut = liftoff_safe_speed(k, grade[i], bank[i], vl, g_on, 0.0, p, gears, out, tol)
         res[i, M_LAMBDA] = margin_of(vs, vl, k, grade[i], bank[i])
         res[i, M_VSAFE] = vs
         res[i, M_RESERVE] = 1.0 - (ut if ut < 2.0 else 2.0)
-        vc, uc = liftoff_safe_speed(k, grade[i], bank[i], vl, g_co, 1.0, p, gears, mx, my,
-                                    mt, out, tol)
+        vc, uc = liftoff_safe_speed(k, grade[i], bank[i], vl, g_co, 1.0, p, gears, out, tol)
         res[i, M_LAMBDA_COAST] = margin_of(vc, vl, k, grade[i], bank[i])
         res[i, M_VSAFE_COAST] = vc
         res[i, M_RESERVE_COAST] = 1.0 - (uc if uc < 2.0 else 2.0)
@@ -1657,7 +1679,7 @@ def _liftoff_margins_chunk(kappa, grade, bank, vlim, checked, p, gears, mx, my, 
 
 
 @njit(cache=True)
-def liftoff_response(kappa, grade, bank, speeds, p, gears, mx, my, mt):
+def liftoff_response(kappa, grade, bank, speeds, p, gears):
     """States on throttle (steady speed), after a lift with engine overrun and coasting at
     each speed [m/s] on one step (curvature [1/m], grade, bank [rad]).
 
@@ -1670,12 +1692,12 @@ def liftoff_response(kappa, grade, bank, speeds, p, gears, mx, my, mt):
     for i in range(n):
         v = speeds[i]
         # steady_control leaves a lean state (usages only): evaluate the full one at its force
-        F = steady_control(v, kappa, grade, bank, p, mx, my, mt, out)
-        state_control(v, kappa, grade, bank, F, p, mx, my, mt, out)
+        F = steady_control(v, kappa, grade, bank, p, out)
+        state_control(v, kappa, grade, bank, F, p, out)
         for k in range(NOUT):
             res[i, 0, k] = out[k]
         for mode in range(2):
-            lift_state(v, kappa, grade, bank, float(mode), p, gears, mx, my, mt, out)
+            lift_state(v, kappa, grade, bank, float(mode), p, gears, out)
             for k in range(NOUT):
                 res[i, 1 + mode, k] = out[k]
     return res

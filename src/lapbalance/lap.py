@@ -389,7 +389,7 @@ def simulate_lap(car: Car, track, *, start_speed_kph: float | None = None,
         raise InfeasibleError("the engine gives no drive force (zero power or torque), so the "
                               "car cannot drive a lap; give the engine's power or torque",
                               car.source or "car", f"powertrain.{key}")
-    p, gears, trpm, tnm, mx, my, mt = car_parameters(car)
+    p, gears, trpm, tnm = car_parameters(car)
     n = len(track.distance_m)
     if n < 3:
         raise InputError("track has fewer than 3 points after resampling", track.source)
@@ -405,7 +405,7 @@ def simulate_lap(car: Car, track, *, start_speed_kph: float | None = None,
     threads = solver_threads(n)
     with _threads(threads) as par:
         vlim = (_corner_limits_parallel if par else _corner_limits_kernel)(
-            kappa, grade, bank, vcap, p, mx, my, mt, SPEED_TOL, nchunks)
+            kappa, grade, bank, vcap, p, SPEED_TOL, nchunks)
     bad = np.flatnonzero(vlim <= 0.0)
     if bad.size:
         i = int(bad[0])
@@ -419,15 +419,14 @@ def simulate_lap(car: Car, track, *, start_speed_kph: float | None = None,
         order = np.concatenate([np.arange(start, n), np.arange(0, start)])
         ext = np.concatenate([order, order[:1]])
         vtrace = _speed_passes_kernel(kappa[ext], grade[ext], bank[ext], vlim[ext], ds,
-                                      math.nan, float(vlim[start]), p, gears, trpm, tnm, mx,
-                                      my, mt, FORCE_TOL)
+                                      math.nan, float(vlim[start]), p, gears, trpm, tnm, FORCE_TOL)
         v = np.empty(n)
         v[order] = vtrace[:n]
         closed_tail_speed = None
     else:
         v0 = 0.0 if start_speed_kph is None else start_speed_kph / 3.6
         v = _speed_passes_kernel(kappa, grade, bank, vlim, ds, v0, math.nan, p, gears, trpm,
-                                 tnm, mx, my, mt, FORCE_TOL)
+                                 tnm, FORCE_TOL)
         closed_tail_speed = math.nan
     if track.closed:
         tail = float(v[0])
@@ -435,7 +434,7 @@ def simulate_lap(car: Car, track, *, start_speed_kph: float | None = None,
         tail = closed_tail_speed
     with _threads(threads) as par:
         res = (_final_pass_parallel if par else _final_pass_kernel)(
-            v, kappa, grade, bank, ds, tail, vcap, p, gears, trpm, tnm, mx, my, mt, FORCE_TOL,
+            v, kappa, grade, bank, ds, tail, vcap, p, gears, trpm, tnm, FORCE_TOL,
             liftoff_ay_threshold)
     vnext = np.append(v[1:], v[0] if track.closed else v[-1])
     vsum = v + vnext
@@ -450,8 +449,8 @@ def simulate_lap(car: Car, track, *, start_speed_kph: float | None = None,
     lap_time = float(dt.sum())
     with _threads(threads) as par:
         mres = (_liftoff_margins_parallel if par else _liftoff_margins_kernel)(
-            kappa, grade, bank, vlim, np.ascontiguousarray(res[:, _k.NOUT + 6]), p, gears, mx,
-            my, mt, MARGIN_TOL, nchunks)
+            kappa, grade, bank, vlim, np.ascontiguousarray(res[:, _k.NOUT + 6]), p, gears,
+                                                           MARGIN_TOL, nchunks)
     ch = _channels(car, track, v, vlim, res, time)
     _margin_channels(ch, vlim, mres)
     if np.any(ch["floor_contact"] > 0):
@@ -652,9 +651,9 @@ def steady_state(car: Car, speed: float, curvature: float = 0.0, grade: float = 
     dict
         control force [N] and every state quantity (keys as the ``O_*`` names, lower case).
     """
-    p, gears, trpm, tnm, mx, my, mt = car_parameters(car)
+    p, gears, trpm, tnm = car_parameters(car)
     out = np.full(_k.NOUT, np.nan)
-    F = _k.control_for_ax(speed, curvature, grade, bank, ax, p, mx, my, mt, out)
+    F = _k.control_for_ax(speed, curvature, grade, bank, ax, p, out)
     d = _state_dict(out)
     d["control_n"] = float(F)
     d["g"] = G0
@@ -683,16 +682,16 @@ def limits_at(car: Car, speed: float, curvature: float = 0.0, grade: float = 0.0
         ``engine_force_n``, ``max_drive_n``, ``min_control_n`` [N], ``corner_limit_mps``
         (steady corner-speed limit at this curvature) [m/s].
     """
-    p, gears, trpm, tnm, mx, my, mt = car_parameters(car)
+    p, gears, trpm, tnm = car_parameters(car)
     out = np.full(_k.NOUT, np.nan)
-    fa = _k.max_accel_control(speed, curvature, grade, bank, p, gears, trpm, tnm, mx, my, mt,
+    fa = _k.max_accel_control(speed, curvature, grade, bank, p, gears, trpm, tnm,
                               out, FORCE_TOL)
-    _k.state_control(speed, curvature, grade, bank, fa, p, mx, my, mt, out)
+    _k.state_control(speed, curvature, grade, bank, fa, p, out)
     a_acc = float(out[_k.O_AX])
-    fb = _k.max_decel_control(speed, curvature, grade, bank, p, mx, my, mt, out, FORCE_TOL)
-    _k.state_control(speed, curvature, grade, bank, fb, p, mx, my, mt, out)
+    fb = _k.max_decel_control(speed, curvature, grade, bank, p, out, FORCE_TOL)
+    _k.state_control(speed, curvature, grade, bank, fb, p, out)
     a_brk = -float(out[_k.O_AX])
-    vl = _k.corner_limit(curvature, grade, bank, 0.0, 0.0, speed_cap(car), p, mx, my, mt,
+    vl = _k.corner_limit(curvature, grade, bank, 0.0, 0.0, speed_cap(car), p,
                          out, SPEED_TOL)
     return {"max_accel_mps2": a_acc, "max_decel_mps2": a_brk,
             "engine_force_n": float(_k.engine_force(speed, p, gears, trpm, tnm)),
@@ -716,9 +715,9 @@ def evaluate_forces(car: Car, speed: float, curvature: float = 0.0, grade: float
     dict
         Every state quantity (keys as the ``O_*`` names in lower case, SI units).
     """
-    p, gears, trpm, tnm, mx, my, mt = car_parameters(car)
+    p, gears, trpm, tnm = car_parameters(car)
     out = np.full(_k.NOUT, np.nan)
-    _k.state(speed, curvature, grade, bank, drive_n, brake_n, p, mx, my, mt, out)
+    _k.state(speed, curvature, grade, bank, drive_n, brake_n, p, out)
     return _state_dict(out)
 
 

@@ -311,15 +311,15 @@ def margin_at(car, curvature: float, grade: float = 0.0, bank: float = 0.0,
         ``limiting_axle`` ("front" or "rear": the axle with the higher usage on throttle at
         the limit).
     """
-    p, gears, trpm, tnm, mx, my, mt = car_parameters(car)
+    p, gears, trpm, tnm = car_parameters(car)
     out = np.full(_k.NOUT, np.nan)
-    vl = _k.corner_limit(curvature, grade, bank, 0.0, 0.0, speed_cap(car), p, mx, my, mt,
+    vl = _k.corner_limit(curvature, grade, bank, 0.0, 0.0, speed_cap(car), p,
                          out, 1e-4)
     vs, ut = _k.liftoff_safe_speed(curvature, grade, bank, vl, 0.0, 1.0 if coast else 0.0, p,
-                                   gears, mx, my, mt, out, tol)
+                                   gears, out, tol)
     a_c, ay, g_n = _k.road_accelerations(vl, curvature, grade, bank)
     lam = float(_k.margin_of(vs, vl, curvature, grade, bank))
-    _k.steady_control(vl, curvature, grade, bank, p, mx, my, mt, out)
+    _k.steady_control(vl, curvature, grade, bank, p, out)
     axle = "front" if out[_k.O_UF] >= out[_k.O_UR] else "rear"
     return {"margin": lam, "limit_speed_mps": float(vl), "safe_speed_mps": float(vs),
             "rear_reserve": float(1.0 - min(ut, 2.0)), "ay_limit_mps2": float(abs(ay)),
@@ -429,9 +429,8 @@ def response_curve(car, radius_m: float, grade: float = 0.0, bank: float = 0.0, 
     speeds = np.sqrt(np.clip(v2, 0.0, None))
     if speeds.size:
         speeds[-1] = vl
-    p, gears, trpm, tnm, mx, my, mt = car_parameters(car)
-    st = _k.liftoff_response(kappa, grade, bank, np.ascontiguousarray(speeds), p, gears, mx,
-                             my, mt)
+    p, gears, trpm, tnm = car_parameters(car)
+    st = _k.liftoff_response(kappa, grade, bank, np.ascontiguousarray(speeds), p, gears)
     on, off, co = st[:, 0, :], st[:, 1, :], st[:, 2, :]
     K = _k
 

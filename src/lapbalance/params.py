@@ -24,11 +24,16 @@ FORCE_TOL = 0.5
 MARGIN_TOL = 5e-4
 
 
-def car_parameters(car: Car) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray,
-                                       np.ndarray, np.ndarray, np.ndarray]:
-    """Flatten a car into the kernel arrays (p, gears, torque rpm, torque Nm, map x, y, t)."""
+def car_parameters(car: Car) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Flatten a car into the kernel arrays (p, gear ratios, torque-curve rpm, torque N·m).
+
+    ``p`` holds the scalars (``P_*``) and, after them, the aero map (if any) packed as the
+    kernels read it (``MAP_*`` in :mod:`lapbalance.kernels`): grid sizes, the front and rear
+    ride-height grids [m], then the front, rear and drag area tables [m2] row-major (front
+    ride height first). One array for the whole car keeps every kernel call cheap.
+    """
     ch, ae, ty, pt, su = car.chassis, car.aero, car.tyres, car.powertrain, car.suspension
-    p = np.zeros(_k.P_NPARAM)
+    p = np.zeros(_k.MAP_DATA)  # the scalars, and map sizes 0 (no map) until packed below
     p[_k.P_MASS] = ch.mass
     p[_k.P_L] = ch.wheelbase
     p[_k.P_A] = ch.a
@@ -75,18 +80,16 @@ def car_parameters(car: Car) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.nda
     amap = ae.aero_map
     if amap is not None:
         p[_k.P_USEMAP] = 1.0
-        mx = np.ascontiguousarray(amap.fine_rh_front_m, dtype=float)
-        my = np.ascontiguousarray(amap.fine_rh_rear_m, dtype=float)
-        mt = np.ascontiguousarray(np.stack([amap.fine_front_area_cg, amap.fine_rear_area_cg,
-                                            amap.fine_drag_area]), dtype=float)
-    else:
-        mx = np.zeros(2)
-        my = np.zeros(2)
-        mt = np.zeros((3, 2, 2))
+        mx = np.asarray(amap.fine_rh_front_m, dtype=float)
+        my = np.asarray(amap.fine_rh_rear_m, dtype=float)
+        tables = [np.asarray(t, dtype=float).reshape(mx.size, my.size) for t in
+                  (amap.fine_front_area_cg, amap.fine_rear_area_cg, amap.fine_drag_area)]
+        p = np.concatenate([p[:_k.MAP_NX], [float(mx.size), float(my.size)], mx, my,
+                            *[t.ravel() for t in tables]])
     gears = np.asarray(pt.gear_ratios, dtype=float)
     trpm = np.asarray(pt.torque_curve_rpm or (0.0, 1.0), dtype=float)
     tnm = np.asarray(pt.torque_curve_nm or (0.0, 0.0), dtype=float)
-    return p, gears, trpm, tnm, mx, my, mt
+    return np.ascontiguousarray(p), gears, trpm, tnm
 
 
 def speed_cap(car: Car) -> float:

@@ -171,9 +171,6 @@ class Model:
     car: Car
     p: np.ndarray
     gears: np.ndarray
-    mx: np.ndarray
-    my: np.ndarray
-    mt: np.ndarray
     q: np.ndarray
     trpm: np.ndarray = None
     tnm: np.ndarray = None
@@ -190,7 +187,7 @@ def model_parameters(car: Car, ramp_s: float = RAMP_S) -> Model:
         Duration of the throttle release. [s]
     """
     tr = require_transient(car)
-    p, gears, trpm, tnm, mx, my, mt = car_parameters(car)
+    p, gears, trpm, tnm = car_parameters(car)
     ch = car.chassis
     q = np.zeros(_tk.Q_NQ)
     q[_tk.Q_IZ] = tr.yaw_inertia
@@ -204,7 +201,7 @@ def model_parameters(car: Car, ramp_s: float = RAMP_S) -> Model:
     q[_tk.Q_RAMP] = max(float(ramp_s), 1e-9)
     q[_tk.Q_R0] = 1.0
     q[_tk.Q_CEXP] = tr.cornering_stiffness_load_exponent
-    return Model(car, p, gears, mx, my, mt, q, trpm, tnm)
+    return Model(car, p, gears, q, trpm, tnm)
 
 
 # ------------------------------------------------------------------------------------------------
@@ -304,9 +301,9 @@ def _guess(model: Model, speed: float, radius: float) -> np.ndarray:
     ch = car.chassis
     tr = car.transient
     out = np.full(_k.NOUT, np.nan)
-    F = _k.steady_control(speed, 1.0 / radius, 0.0, 0.0, p, model.mx, model.my, model.mt, out)
+    F = _k.steady_control(speed, 1.0 / radius, 0.0, 0.0, p, out)
     # steady_control leaves a lean state (usages only): the loads and capacities at that force
-    _k.state_control(speed, 1.0 / radius, 0.0, 0.0, F, p, model.mx, model.my, model.mt, out)
+    _k.state_control(speed, 1.0 / radius, 0.0, 0.0, F, p, out)
     ay = speed * speed / radius
     fyf = ch.mass * ay * ch.b / ch.wheelbase
     fyr = ch.mass * ay * ch.a / ch.wheelbase
@@ -332,10 +329,10 @@ def _steady(model: Model, speed: float, radius: float, guess=None,
     q[_tk.Q_R0] = radius
     x0 = _guess(model, speed, radius) if guess is None else np.asarray(guess, float)
     x = np.empty(5)
-    st = _steady_turn_kernel(speed, radius, x0, q, model.p, model.mx, model.my, model.mt, x)
+    st = _steady_turn_kernel(speed, radius, x0, q, model.p, x)
     if st == _tk.SS_NO_CONVERGENCE and guess is not None:
         x0 = _guess(model, speed, radius)
-        st = _steady_turn_kernel(speed, radius, x0, q, model.p, model.mx, model.my, model.mt,
+        st = _steady_turn_kernel(speed, radius, x0, q, model.p,
                                  x)
     # loads and usages at the solution
     y = _initial_state(x, speed, radius)
@@ -343,7 +340,7 @@ def _steady(model: Model, speed: float, radius: float, guess=None,
     aux = np.empty(_tk.NA)
     dy = np.empty(_tk.NY)
     q[_tk.Q_DELTA], q[_tk.Q_F0] = x[0], x[2]
-    _tk.deriv(-1.0, y, q, model.p, model.mx, model.my, model.mt, out, dy, aux)
+    _tk.deriv(-1.0, y, q, model.p, out, dy, aux)
     tr = model.car.transient
     if st == _tk.SS_OK and x[2] > 1.0 + _k.engine_force(speed, model.p, model.gears,
                                                           model.trpm, model.tnm):
@@ -410,8 +407,7 @@ def steady_limit(car: Car, radius: float, model: Model | None = None,
     model = model or model_parameters(car)
     out = np.full(_k.NOUT, np.nan)
     vcap = speed_cap(car)
-    vlap = _k.corner_limit(1.0 / radius, 0.0, 0.0, 0.0, 0.0, vcap, model.p, model.mx, model.my,
-                           model.mt, out, SPEED_TOL)
+    vlap = _k.corner_limit(1.0 / radius, 0.0, 0.0, 0.0, 0.0, vcap, model.p, out, SPEED_TOL)
     if vlap <= 0.0:
         return 0.0
     a_lap = vlap * vlap / radius
@@ -539,7 +535,7 @@ def _run(model: Model, steady: SteadyTurn, ramp_s: float, duration_s: float,
     n = int(round(duration_s / dt))
     hist = np.empty((n + 1, _tk.NH))
     y0 = _initial_state(steady.x, v0, radius)
-    status, rows = _integrate_kernel(y0, q, model.p, model.mx, model.my, model.mt, dt, n,
+    status, rows = _integrate_kernel(y0, q, model.p, dt, n,
                                      math.radians(STOP_SIDESLIP_DEG), 1.0, hist)
     h = _history(hist, radius)
     figs = _figures(h, radius, dt, rows, status == _tk.RUN_STOPPED)
@@ -694,8 +690,8 @@ def sweep(car: Car, radius: float, *, ay_start: float = AY_START, ay_step: float
     model = model_parameters(car, ramp_s)
     lim = steady_limit(car, radius, model)
     out = np.full(_k.NOUT, np.nan)
-    vlap = _k.corner_limit(1.0 / radius, 0.0, 0.0, 0.0, 0.0, speed_cap(car), model.p,
-                           model.mx, model.my, model.mt, out, SPEED_TOL)
+    vlap = _k.corner_limit(1.0 / radius, 0.0, 0.0, 0.0, 0.0, speed_cap(car), model.p, out,
+                           SPEED_TOL)
     runs = []
     guess = None
     for ay in sweep_levels(lim, ay_start, ay_step):

@@ -30,8 +30,8 @@ Gillespie [2] ch. 6; the steer-angle projections of the front forces kept):
 ``F = e D sin(C arctan(B alpha))`` with peak ``D`` = the lap's axle lateral capacity at the
 current wheel loads, ``B C D`` = the axle cornering stiffness (given at the static axle load,
 scaled by ``(F_z/F_z,static)^n`` with the current axle load), and
-``e = sqrt(1 - (F_x/F_x,cap)^2)`` the friction-ellipse reduction for the axle's longitudinal demand (drive, or overrun on the driven
-axle, plus that axle's rolling resistance). A relaxation length of zero removes the lag (the
+``e = sqrt(1 - (F_x/F_x,cap)^2)`` the friction-ellipse reduction for the axle's longitudinal
+demand (drive, or overrun on the driven axle, plus that axle's rolling resistance). A relaxation length of zero removes the lag (the
 axle forces are then algebraic).
 
 References
@@ -182,17 +182,17 @@ def _usage(fx, fy, cx, cy):
 
 
 @njit(cache=True)
-def deriv(t, y, q, p, mx, my, mt, out, dy, aux):
+def deriv(t, y, q, p, out, dy, aux):
     """Time derivative ``dy`` of the state ``y`` at time ``t`` [s] after the lift.
 
     ``out`` (length ``kernels.NOUT``) receives the lap state at this instant; ``aux``
     (length ``NA``) the auxiliary outputs. Returns the lap state's load status.
     """
-    return _deriv(t, y, q, p, mx, my, mt, out, dy, aux, True)
+    return _deriv(t, y, q, p, out, dy, aux, True)
 
 
 @njit(cache=True, inline="always")
-def _deriv(t, y, q, p, mx, my, mt, out, dy, aux, full):
+def _deriv(t, y, q, p, out, dy, aux, full):
     """:func:`deriv`; with ``full`` False only the forces of the aux outputs are filled."""
     m = p[P_MASS]
     a = p[P_A]
@@ -227,7 +227,7 @@ def _deriv(t, y, q, p, mx, my, mt, out, dy, aux, full):
         # drive, rolling resistance and the steered front axle's components (the front drive
         # share of them rotated by the steer angle, the front lateral force's -F_yf sin(delta))
         f_eff = fd - fyf * sd - sf * fd * (1.0 - cd)
-        st = state(v, ay_est / (v * v), 0.0, 0.0, f_eff, 0.0, p, mx, my, mt, out)
+        st = state(v, ay_est / (v * v), 0.0, 0.0, f_eff, 0.0, p, out)
         # each axle's own longitudinal demand (wheel axes): drive share and rolling resistance
         fxf = out[O_FXF] + sf * (fd - f_eff)
         fxr = out[O_FXR] + (1.0 - sf) * (fd - f_eff)
@@ -285,7 +285,7 @@ def _deriv(t, y, q, p, mx, my, mt, out, dy, aux, full):
 
 
 @njit(cache=True)
-def integrate(y0, q, p, mx, my, mt, dt, n_steps, stop_beta, v_stop, hist):
+def integrate(y0, q, p, dt, n_steps, stop_beta, v_stop, hist):
     """Fixed-step classical Runge-Kutta (RK4) from t = 0 for ``n_steps`` steps of ``dt`` [s].
 
     Row ``i`` of ``hist`` (shape ``(n_steps + 1, NH)``) holds time, the auxiliary outputs and
@@ -302,7 +302,7 @@ def integrate(y0, q, p, mx, my, mt, dt, n_steps, stop_beta, v_stop, hist):
     y = y0.copy()
     for i in range(n_steps + 1):
         t = i * dt
-        deriv(t, y, q, p, mx, my, mt, out, k1, aux)
+        deriv(t, y, q, p, out, k1, aux)
         hist[i, H_T] = t
         for j in range(NA):
             hist[i, H_AUX + j] = aux[j]
@@ -318,20 +318,20 @@ def integrate(y0, q, p, mx, my, mt, dt, n_steps, stop_beta, v_stop, hist):
         h2 = 0.5 * dt
         for j in range(NY):
             yt[j] = y[j] + h2 * k1[j]
-        _deriv(t + h2, yt, q, p, mx, my, mt, out, k2, aux, False)
+        _deriv(t + h2, yt, q, p, out, k2, aux, False)
         for j in range(NY):
             yt[j] = y[j] + h2 * k2[j]
-        _deriv(t + h2, yt, q, p, mx, my, mt, out, k3, aux, False)
+        _deriv(t + h2, yt, q, p, out, k3, aux, False)
         for j in range(NY):
             yt[j] = y[j] + dt * k3[j]
-        _deriv(t + dt, yt, q, p, mx, my, mt, out, k4, aux, False)
+        _deriv(t + dt, yt, q, p, out, k4, aux, False)
         for j in range(NY):
             y[j] += dt / 6.0 * (k1[j] + 2.0 * k2[j] + 2.0 * k3[j] + k4[j])
     return RUN_OK, n_steps + 1
 
 
 @njit(cache=True)
-def _steady_residual(x, speed, radius, q, p, mx, my, mt, out, dy, aux, y, res):
+def _steady_residual(x, speed, radius, q, p, out, dy, aux, y, res):
     """Residual of the steady turn for unknowns x = (steer, sideslip, drive, F_yf, F_yr)."""
     q[Q_DELTA] = x[0]
     q[Q_F0] = x[2]
@@ -345,7 +345,7 @@ def _steady_residual(x, speed, radius, q, p, mx, my, mt, out, dy, aux, y, res):
     y[Y_X] = 0.0
     y[Y_Y] = 0.0
     y[Y_PSIREF] = 0.0
-    st = deriv(-1.0, y, q, p, mx, my, mt, out, dy, aux)
+    st = deriv(-1.0, y, q, p, out, dy, aux)
     m = p[P_MASS]
     res[0] = dy[Y_VX]
     res[1] = dy[Y_VY]
@@ -400,7 +400,7 @@ def solve_small(A, b):
 
 
 @njit(cache=True)
-def steady_turn(speed, radius, x0, q, p, mx, my, mt, x):
+def steady_turn(speed, radius, x0, q, p, x):
     """Steady circular run at ``speed`` [m/s] on ``radius`` [m] (left turn, ISO 8855).
 
     Damped Newton on x = (road-wheel steer [rad], sideslip [rad], drive force [N],
@@ -426,7 +426,7 @@ def steady_turn(speed, radius, x0, q, p, mx, my, mt, x):
     scale[2] = 0.1 * m
     scale[3] = 0.1 * m
     scale[4] = 0.1 * m
-    st = _steady_residual(x, speed, radius, q, p, mx, my, mt, out, dy, aux, y, res)
+    st = _steady_residual(x, speed, radius, q, p, out, dy, aux, y, res)
     norm = 0.0
     for j in range(5):
         norm += res[j] * res[j]
@@ -440,7 +440,7 @@ def steady_turn(speed, radius, x0, q, p, mx, my, mt, x):
             for j in range(5):
                 xt[j] = x[j]
             xt[k] += h
-            _steady_residual(xt, speed, radius, q, p, mx, my, mt, out, dy, aux, y, rt)
+            _steady_residual(xt, speed, radius, q, p, out, dy, aux, y, rt)
             for j in range(5):
                 J[j, k] = (rt[j] - res[j]) / h
         ok = True
@@ -458,7 +458,7 @@ def steady_turn(speed, radius, x0, q, p, mx, my, mt, x):
         for _ls in range(30):
             for j in range(5):
                 xt[j] = x[j] + lam * step[j]
-            _steady_residual(xt, speed, radius, q, p, mx, my, mt, out, dy, aux, y, rt)
+            _steady_residual(xt, speed, radius, q, p, out, dy, aux, y, rt)
             nt = 0.0
             for j in range(5):
                 nt += rt[j] * rt[j]
@@ -478,7 +478,7 @@ def steady_turn(speed, radius, x0, q, p, mx, my, mt, x):
         if small:
             converged = norm < 1e-16
             break
-    st = _steady_residual(x, speed, radius, q, p, mx, my, mt, out, dy, aux, y, res)
+    st = _steady_residual(x, speed, radius, q, p, out, dy, aux, y, res)
     if not converged:
         return SS_NO_CONVERGENCE
     if st != 0:

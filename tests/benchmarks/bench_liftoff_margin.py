@@ -57,11 +57,11 @@ def measure(car_file: str, repeats: int = 40) -> dict:
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         r = simulate_lap(car, track)  # compile and warm
-    p, gears, trpm, tnm, mx, my, mt = car_parameters(car)
+    p, gears, trpm, tnm = car_parameters(car)
     ch = r.channels
     args = (np.ascontiguousarray(ch["curvature_1pm"]), np.ascontiguousarray(ch["grade_rad"]),
             np.ascontiguousarray(ch["bank_rad"]), np.ascontiguousarray(ch["speed_limit_mps"]),
-            np.ascontiguousarray(ch["liftoff_checked"]), p, gears, mx, my, mt, MARGIN_TOL,
+            np.ascontiguousarray(ch["liftoff_checked"]), p, gears, MARGIN_TOL,
             8 if len(ch["distance_m"]) > 400 else 1)
     margin_s = _best_s(lambda: K.liftoff_margins(*args), repeats)
     import lapbalance.lap as lap_module

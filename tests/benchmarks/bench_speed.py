@@ -66,7 +66,7 @@ def _kernels_only(car, track):
     from lapbalance import kernels as K
     from lapbalance import lap as L
 
-    p, gears, trpm, tnm, mx, my, mt = L.car_parameters(car)
+    p, gears, trpm, tnm = L.car_parameters(car)
     kappa = np.ascontiguousarray(track.curvature_1pm, float)
     grade = np.ascontiguousarray(track.grade_rad, float)
     bank = np.ascontiguousarray(track.bank_rad, float)
@@ -77,15 +77,15 @@ def _kernels_only(car, track):
     corner, final = K.corner_limits_serial, K.final_pass_serial
 
     def run():
-        vlim = corner(kappa, grade, bank, vcap, p, mx, my, mt, L.SPEED_TOL,
+        vlim = corner(kappa, grade, bank, vcap, p, L.SPEED_TOL,
                       8 if n > 400 else 1)
         s = int(np.argmin(vlim))
         order = np.concatenate([np.arange(s, n), np.arange(0, s), [s]])
         v = K.speed_passes(kappa[order], grade[order], bank[order], vlim[order], ds, math.nan,
-                           float(vlim[s]), p, gears, trpm, tnm, mx, my, mt, L.FORCE_TOL)
+                           float(vlim[s]), p, gears, trpm, tnm, L.FORCE_TOL)
         vv = np.empty(n)
         vv[order[:n]] = v[:n]
-        final(vv, kappa, grade, bank, ds, float(vv[0]), vcap, p, gears, trpm, tnm, mx, my, mt,
+        final(vv, kappa, grade, bank, ds, float(vv[0]), vcap, p, gears, trpm, tnm,
               L.FORCE_TOL, L.LIFTOFF_AY_THRESHOLD)
 
     return run

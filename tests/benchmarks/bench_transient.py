@@ -53,7 +53,7 @@ def main() -> None:
     hist = np.empty((n + 1, tk.NH))
 
     def kernel():
-        tk.integrate(y0, q, m.p, m.mx, m.my, m.mt, run.step_s, n, math.radians(60), 1.0, hist)
+        tk.integrate(y0, q, m.p, run.step_s, n, math.radians(60), 1.0, hist)
 
     b, med = best(kernel, 50)
     print(f"one 3 s run, kernel only ({n} RK4 steps of {run.step_s * 1e3:.1f} ms): "
