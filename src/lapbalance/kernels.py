@@ -332,8 +332,8 @@ def _ride_heights(g_n, q, xs, ax_mode, p, rhf, rhr, tol):
 
     Ride heights from the heave equations rh = rh0 - (Fz - Fz_rest)/k with the axle loads
     depending on the map: two equations solved by Newton's method (bilinear-map gradients),
-    the loads written out in closed form inside the loop. ``ax_mode`` False: ``xs`` is the
-    control force (drive minus brake) [N]; True: ``xs`` is m a_x + grade force [N] (the
+    the loads written out in closed form inside the loop. ``ax_mode`` 0.0: ``xs`` is the
+    control force (drive minus brake) [N]; 1.0: ``xs`` is m a_x + grade force [N] (the
     control then follows from the areas, so a target a_x needs one fixed point, not nested
     ones). Stops when the heave residuals sum below ``tol`` [m].
     Returns (rhf, rhr, front area, rear area, drag area).
@@ -348,13 +348,13 @@ def _ride_heights(g_n, q, xs, ax_mode, p, rhf, rhr, tol):
     sr = m * g_n * p[P_A] / L
     kf = p[P_HEAVEF]
     kr = p[P_HEAVER]
-    c = 0.0 if ax_mode else h / L * crr * q
+    c = 0.0 if ax_mode != 0.0 else h / L * crr * q
     claf = 0.0
     clar = 0.0
     cda = 0.0
     for _ in range(30):
         claf, clar, cda, af_f, af_r, ar_f, ar_r = map_eval(p, rhf, rhr)
-        if ax_mode:
+        if ax_mode != 0.0:
             x = xs + q * cda
         else:
             x = xs - crr * (m * g_n + q * (claf + clar))
@@ -408,7 +408,7 @@ def _state_map(v, kappa, grade, bank, f_drive, f_brake, p, out, rhf, rhr, tol):
     [m] and stopped at residual ``tol`` [m]."""
     q = 0.5 * p[P_RHO] * v * v
     a_c, a_y, g_n = road_accelerations(v, kappa, grade, bank)
-    rhf, rhr, claf, clar, cda = _ride_heights(g_n, q, f_drive - f_brake, False, p,
+    rhf, rhr, claf, clar, cda = _ride_heights(g_n, q, f_drive - f_brake, 0.0, p,
                                               rhf, rhr, tol)
     st = _state_once(v, kappa, grade, bank, f_drive, f_brake, p, claf, clar, cda, out)
     out[O_RHF] = rhf
@@ -502,7 +502,7 @@ def state_usage(v, kappa, grade, bank, f_drive, f_brake, p, out):
     rhf, rhr = _warm_rh(out, p)
     q = 0.5 * p[P_RHO] * v * v
     a_c, a_y, g_n = road_accelerations(v, kappa, grade, bank)
-    rhf, rhr, claf, clar, cda = _ride_heights(g_n, q, f_drive - f_brake, False, p,
+    rhf, rhr, claf, clar, cda = _ride_heights(g_n, q, f_drive - f_brake, 0.0, p,
                                               rhf, rhr, RH_TOL_WARM)
     st = _usage_once(v, kappa, grade, bank, f_drive, f_brake, p, claf, clar, cda, out)
     out[O_RHF] = rhf
@@ -514,18 +514,19 @@ def state_usage(v, kappa, grade, bank, f_drive, f_brake, p, out):
 def _control_for_ax_map(v, kappa, grade, bank, ax, p, out, full):
     """Control [N] giving a_x = ``ax`` [m/s²] for a mapped car: one ride-height fixed point
     with the ground force m a_x + drag + grade force (warm-started); ``out`` holds the full
-    state when ``full`` else the lean one."""
+    state when ``full`` is 1.0, the lean one at 0.0 (flags are floats: a bool constant is a
+    numba literal type and would compile one version per value)."""
     m = p[P_MASS]
     rhf, rhr = _warm_rh(out, p)
     q = 0.5 * p[P_RHO] * v * v
     a_c, a_y, g_n = road_accelerations(v, kappa, grade, bank)
     xs = m * ax + (m * G * math.sin(grade) if grade != 0.0 else 0.0)
-    rhf, rhr, claf, clar, cda = _ride_heights(g_n, q, xs, True, p, rhf, rhr,
+    rhf, rhr, claf, clar, cda = _ride_heights(g_n, q, xs, 1.0, p, rhf, rhr,
                                               RH_TOL_WARM)
     F = xs + q * cda + p[P_CRR] * (m * g_n + q * (claf + clar))
     fd = F if F >= 0.0 else 0.0
     fb = -F if F < 0.0 else 0.0
-    if full:
+    if full != 0.0:
         _state_once(v, kappa, grade, bank, fd, fb, p, claf, clar, cda, out)
         out[O_MAPOUT] = _map_outside(rhf, rhr, p)
     else:
@@ -575,7 +576,7 @@ def control_for_ax(v, kappa, grade, bank, ax, p, out):
         state_control(v, kappa, grade, bank, F, p, out)
         return F
     # with a map: one ride-height fixed point with the ground force the target a_x needs
-    return _control_for_ax_map(v, kappa, grade, bank, ax, p, out, True)
+    return _control_for_ax_map(v, kappa, grade, bank, ax, p, out, 1.0)
 
 
 @njit(cache=True, error_model="numpy")
@@ -585,7 +586,7 @@ def control_for_ax_lean(v, kappa, grade, bank, ax, p, out):
         F = p[P_MASS] * ax + _resistance_nomap(v, kappa, grade, bank, p)
         usage_control(v, kappa, grade, bank, F, p, out)
         return F
-    return _control_for_ax_map(v, kappa, grade, bank, ax, p, out, False)
+    return _control_for_ax_map(v, kappa, grade, bank, ax, p, out, 0.0)
 
 
 @njit(cache=True, error_model="numpy")
@@ -668,7 +669,7 @@ def ax_of_control(v, kappa, grade, bank, F, p, out):
 def steady_control(v, kappa, grade, bank, p, out):
     """Control force [N] holding speed (a_x = 0); ``out`` holds that (lean) state."""
     if p[P_USEMAP] != 0.0:
-        return _control_for_ax_map(v, kappa, grade, bank, 0.0, p, out, False)
+        return _control_for_ax_map(v, kappa, grade, bank, 0.0, p, out, 0.0)
     # without a map drag and rolling resistance do not depend on the control: one evaluation
     F = _resistance_nomap(v, kappa, grade, bank, p)
     usage_control(v, kappa, grade, bank, F, p, out)
@@ -719,8 +720,8 @@ def _brake_speed(vnext, ds, kappa, grade, bank, F, p, out, evaluate):
 
     Without a map drag, rolling resistance and grade force are R0 + R2 v² exactly, so the
     speed is closed-form; with one, the closed form is iterated with the resistance of the
-    last evaluation (the ride heights move it). With ``evaluate`` (always with a map) ``out``
-    holds the lean state at the returned speed and the status is returned, else 0.
+    last evaluation (the ride heights move it). With ``evaluate`` 1.0 (always with a map)
+    ``out`` holds the lean state at the returned speed and the status is returned, else 0.
     """
     m = p[P_MASS]
     r0 = _resistance_nomap(0.0, kappa, grade, bank, p)
@@ -730,7 +731,7 @@ def _brake_speed(vnext, ds, kappa, grade, bank, F, p, out, evaluate):
     v2 = top / (1.0 - 2.0 * ds * r2 / m)
     v = math.sqrt(v2) if v2 > 0.0 else 0.0
     if p[P_USEMAP] == 0.0:
-        if evaluate:
+        if evaluate != 0.0:
             return v, usage_control(v, kappa, grade, bank, F, p, out)
         return v, 0
     st = 0
@@ -749,7 +750,7 @@ def _brake_speed(vnext, ds, kappa, grade, bank, F, p, out, evaluate):
 @njit(cache=True, error_model="numpy")
 def _g_brake(vnext, ds, kappa, grade, bank, F, p, out):
     """Usage excess (plus :data:`BRAKE_MARGIN`) of the implicit braking step with control F."""
-    v, st = _brake_speed(vnext, ds, kappa, grade, bank, F, p, out, True)
+    v, st = _brake_speed(vnext, ds, kappa, grade, bank, F, p, out, 1.0)
     if st != 0:
         return BIG
     return max_usage(out) - 1.0 + BRAKE_MARGIN
@@ -1291,7 +1292,7 @@ def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, t
             hint = F
             last = i
             vi, st = _brake_speed(vnext, ds, kappa[i], grade[i], bank[i], F, p,
-                                  out, False)
+                                  out, 0.0)
             if vi < cap and vi >= vnext:
                 vb[i] = vi
                 continue

@@ -31,8 +31,8 @@ Gillespie [2] ch. 6; the steer-angle projections of the front forces kept):
 current wheel loads, ``B C D`` = the axle cornering stiffness (given at the static axle load,
 scaled by ``(F_z/F_z,static)^n`` with the current axle load), and
 ``e = sqrt(1 - (F_x/F_x,cap)^2)`` the friction-ellipse reduction for the axle's longitudinal
-demand (drive, or overrun on the driven axle, plus that axle's rolling resistance). A relaxation length of zero removes the lag (the
-axle forces are then algebraic).
+demand (drive, or overrun on the driven axle, plus that axle's rolling resistance). A
+relaxation length of zero removes the lag (the axle forces are then algebraic).
 
 References
 ----------
@@ -191,6 +191,13 @@ def deriv(t, y, q, p, out, dy, aux):
     return _deriv(t, y, q, p, out, dy, aux, True)
 
 
+@njit(cache=True)
+def _deriv_lean(t, y, q, p, out, dy, aux):
+    """:func:`deriv` without the outputs only the recorded steps need (the RK4 inner
+    stages); one compiled copy called three times per step, not inlined three times."""
+    return _deriv(t, y, q, p, out, dy, aux, False)
+
+
 @njit(cache=True, inline="always")
 def _deriv(t, y, q, p, out, dy, aux, full):
     """:func:`deriv`; with ``full`` False only the forces of the aux outputs are filled."""
@@ -318,13 +325,13 @@ def integrate(y0, q, p, dt, n_steps, stop_beta, v_stop, hist):
         h2 = 0.5 * dt
         for j in range(NY):
             yt[j] = y[j] + h2 * k1[j]
-        _deriv(t + h2, yt, q, p, out, k2, aux, False)
+        _deriv_lean(t + h2, yt, q, p, out, k2, aux)
         for j in range(NY):
             yt[j] = y[j] + h2 * k2[j]
-        _deriv(t + h2, yt, q, p, out, k3, aux, False)
+        _deriv_lean(t + h2, yt, q, p, out, k3, aux)
         for j in range(NY):
             yt[j] = y[j] + dt * k3[j]
-        _deriv(t + dt, yt, q, p, out, k4, aux, False)
+        _deriv_lean(t + dt, yt, q, p, out, k4, aux)
         for j in range(NY):
             y[j] += dt / 6.0 * (k1[j] + 2.0 * k2[j] + 2.0 * k3[j] + k4[j])
     return RUN_OK, n_steps + 1
