@@ -179,3 +179,15 @@ def test_fork_is_refused_once_numba_threads_started(monkeypatch):
 
     monkeypatch.setitem(sys.modules, "numba.np.ufunc.parallel", _Unknown)
     assert S.fork_is_safe() is False
+
+
+@pytest.mark.parametrize("n, slots", [(0, 2), (1, 2), (3, 1), (200, 2), (1000, 8), (37, 64)])
+def test_dask_batches_cover_every_point_once_and_shrink(n, slots):
+    from lapbalance.sweep import _DASK_BATCH_MAX, _guided_batches
+
+    todo = list(range(n))
+    b = _guided_batches(todo, slots)
+    assert [x for batch in b for x in batch] == todo
+    sizes = [len(x) for x in b]
+    assert all(1 <= s <= _DASK_BATCH_MAX for s in sizes)
+    assert sizes == sorted(sizes, reverse=True)  # large first, small last

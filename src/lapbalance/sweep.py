@@ -731,6 +731,19 @@ def _run_pool(workers, raw, source, track, todo, options, record) -> None:
 _DASK_BATCH_MAX = 16
 
 
+def _guided_batches(todo: list, slots: int) -> list[list]:
+    """Split ``todo`` into batches of at most :data:`_DASK_BATCH_MAX` points, each half of
+    what remains per worker slot (at least 2): large batches first, small ones last."""
+    out = []
+    i = 0
+    n = len(todo)
+    while i < n:
+        size = max(2, min(_DASK_BATCH_MAX, (n - i) // (2 * max(1, slots))))
+        out.append(todo[i:i + size])
+        i += size
+    return out
+
+
 def _dask_batch(raw, source, track, points, options) -> list[dict]:
     """Run a few sweep points on a Dask worker, numba single-threaded: a worker process
     runs one task per thread it has, so more numba threads would oversubscribe its cores."""
@@ -765,10 +778,10 @@ def _run_dask(cluster, raw, source, track, todo, options, record) -> None:
             return
         track_f = client.scatter(track, broadcast=True)
         # a few points per task: a lap takes milliseconds, a task round trip about as long;
-        # four batches per worker thread keep the workers evenly busy to the end
+        # batches shrink towards the end (guided scheduling) so that the workers finish
+        # together instead of one running a last full batch alone
         slots = max(1, sum(client.nthreads().values()))
-        size = max(1, min(_DASK_BATCH_MAX, len(todo) // (4 * slots)))
-        batches = [todo[i:i + size] for i in range(0, len(todo), size)]
+        batches = _guided_batches(todo, slots)
         futures = [client.submit(_dask_batch, raw, source, track_f, b, options, pure=False)
                    for b in batches]
         for f in as_completed(futures):
