@@ -5,6 +5,8 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from lapbalance import aeromap
 from lapbalance import kernels as K
@@ -71,3 +73,29 @@ def test_ride_heights_follow_heave_equation(loops):
     np.testing.assert_allclose(ch["ride_height_front_mm"], expected, atol=2e-3)
     # the balance moves with ride height (the map is not flat)
     assert np.ptp(ch["aero_balance_front"]) > 0.01
+
+
+@settings(max_examples=60, deadline=None)
+@given(st.lists(st.floats(1e-4, 5e-3), min_size=1, max_size=40), st.integers(0, 2**31))
+def test_cell_search_equals_bisection_on_uneven_grids(gaps, seed):
+    # Source: numpy.searchsorted (bisection) as the reference; the bin-table search must pick
+    # the same cell everywhere, grid points and ties included.
+    from lapbalance.params import _bin_table
+
+    grid = np.concatenate([[0.01], 0.01 + np.cumsum(gaps)])
+    n = grid.size
+    tab = _bin_table(grid)
+    p = np.concatenate([grid, tab])
+    rng = np.random.default_rng(seed)
+    xs = np.concatenate([grid, rng.uniform(grid[0] - 1e-3, grid[-1] + 1e-3, 200),
+                         np.nextafter(grid, np.inf), np.nextafter(grid, -np.inf)])
+    for x in xs:
+        i, t = K._bracket_index(p, 0, n, n, x)
+        if x <= grid[0]:
+            assert (i, t) == (0, 0.0)
+        elif x >= grid[-1]:
+            assert (i, t) == (n - 2, 1.0)
+        else:
+            ref = int(np.searchsorted(grid, x, side="right")) - 1
+            assert i == ref
+            assert t == (x - grid[i]) / (grid[i + 1] - grid[i])

@@ -24,13 +24,25 @@ FORCE_TOL = 0.5
 MARGIN_TOL = 5e-4
 
 
+def _bin_table(grid: np.ndarray) -> np.ndarray:
+    """Bin table of an increasing grid [m] for the kernels' cell search: 1 / bin width
+    [1/m], the bin count, then for each bin the cell holding its start. Bins are as wide as
+    the narrowest cell, so every point of a bin lies in that cell or the next."""
+    h = float(np.min(np.diff(grid)))
+    nb = int(math.floor((grid[-1] - grid[0]) / h)) + 1
+    starts = grid[0] + h * np.arange(nb)
+    cells = np.clip(np.searchsorted(grid, starts, side="right") - 1, 0, grid.size - 2)
+    return np.concatenate([[1.0 / h, float(nb)], cells.astype(float)])
+
+
 def car_parameters(car: Car) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Flatten a car into the kernel arrays (p, gear ratios, torque-curve rpm, torque N·m).
 
     ``p`` holds the scalars (``P_*``) and, after them, the aero map (if any) packed as the
     kernels read it (``MAP_*`` in :mod:`lapbalance.kernels`): grid sizes, the front and rear
     ride-height grids [m], then the front, rear and drag area tables [m2] row-major (front
-    ride height first). One array for the whole car keeps every kernel call cheap.
+    ride height first), and a bin table per grid for the cell search. One array for the
+    whole car keeps every kernel call cheap.
     """
     ch, ae, ty, pt, su = car.chassis, car.aero, car.tyres, car.powertrain, car.suspension
     p = np.zeros(_k.MAP_DATA)  # the scalars, and map sizes 0 (no map) until packed below
@@ -85,7 +97,7 @@ def car_parameters(car: Car) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.nda
         tables = [np.asarray(t, dtype=float).reshape(mx.size, my.size) for t in
                   (amap.fine_front_area_cg, amap.fine_rear_area_cg, amap.fine_drag_area)]
         p = np.concatenate([p[:_k.MAP_NX], [float(mx.size), float(my.size)], mx, my,
-                            *[t.ravel() for t in tables]])
+                            *[t.ravel() for t in tables], _bin_table(mx), _bin_table(my)])
     gears = np.asarray(pt.gear_ratios, dtype=float)
     trpm = np.asarray(pt.torque_curve_rpm or (0.0, 1.0), dtype=float)
     tnm = np.asarray(pt.torque_curve_nm or (0.0, 0.0), dtype=float)
