@@ -548,10 +548,19 @@ def state_control(v, kappa, grade, bank, F, p, out):
     car's ride heights start from those ``out`` holds (see :func:`state_usage`)."""
     fd = F if F >= 0.0 else 0.0
     fb = -F if F < 0.0 else 0.0
+    return state_warm(v, kappa, grade, bank, fd, fb, p, out)
+
+
+@njit(cache=True, error_model="numpy")
+def state_warm(v, kappa, grade, bank, f_drive, f_brake, p, out):
+    """:func:`state` whose ride-height fixed point (mapped cars) starts from the ride
+    heights ``out`` holds, when inside the map, and stops at :data:`RH_TOL_WARM`: the
+    evaluation the solver uses where consecutive calls are close (neighbouring steps or
+    trial speeds)."""
     if p[P_USEMAP] == 0.0:
-        return state(v, kappa, grade, bank, fd, fb, p, out)
+        return state(v, kappa, grade, bank, f_drive, f_brake, p, out)
     rhf, rhr = _warm_rh(out, p)
-    return _state_map(v, kappa, grade, bank, fd, fb, p, out, rhf, rhr,
+    return _state_map(v, kappa, grade, bank, f_drive, f_brake, p, out, rhf, rhr,
                       RH_TOL_WARM)
 
 
@@ -1447,14 +1456,14 @@ def _final_step(i, v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm,
     res[i, c + 7] = fo
     if holds:
         b_on = ur - uf
-        state(vi, kappa[i], grade[i], bank[i], -fo, 0.0, p, tmp)
+        state_warm(vi, kappa[i], grade[i], bank[i], -fo, 0.0, p, tmp)
         res[i, c + 8] = (tmp[O_UR] - tmp[O_UF]) - b_on  # dB
         res[i, c + 9] = tmp[O_FZF] - out[O_FZF]  # front-load shift
         res[i, c + 10] = tmp[O_UF]
         res[i, c + 11] = tmp[O_UR]
         res[i, c + 12] = tmp[O_AX]
         res[i, c + 13] = tmp[O_STATUS]
-        state(vi, kappa[i], grade[i], bank[i], 0.0, 0.0, p, tmp)
+        state_warm(vi, kappa[i], grade[i], bank[i], 0.0, 0.0, p, tmp)
         res[i, c + 14] = (tmp[O_UR] - tmp[O_UF]) - b_on
         res[i, c + 15] = tmp[O_FZF] - out[O_FZF]
         res[i, c + 16] = tmp[O_UF]
@@ -1481,11 +1490,12 @@ NMARGIN = 7
 def lift_state(v, kappa, grade, bank, coast, p, gears, out):
     """State after a lift at speed v [m/s]: drive replaced by the engine's overrun force in
     the gear of that speed (``coast`` = 0.0) or by nothing (``coast`` = 1.0), no brakes
-    (a float, so one compiled version serves both).
+    (a float, so one compiled version serves both). A mapped car's ride heights start from
+    those ``out`` holds (:func:`state_warm`).
 
     Fills ``out`` and returns the status code (0 = feasible loads)."""
     fo = 0.0 if coast != 0 else overrun_force(v, p, gears)
-    return state(v, kappa, grade, bank, -fo, 0.0, p, out)
+    return state_warm(v, kappa, grade, bank, -fo, 0.0, p, out)
 
 
 @njit(cache=True, inline="always")
