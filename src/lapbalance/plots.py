@@ -932,8 +932,41 @@ def figure_bytes(fig: Figure, fmt: str = "png", dpi: int = 110) -> bytes:
     return buf.getvalue()
 
 
+def _draw(fn: Callable[..., Figure], args: tuple, fmt: str, dpi: int) -> bytes:
+    return figure_bytes(fn(*args), fmt, dpi)
+
+
+def render_figures(jobs: Sequence[tuple[Callable[..., Figure], tuple]], fmt: str = "png",
+                   dpi: int = 110, processes: int | None = None) -> list[bytes]:
+    """Build and render several figures, on every core where that pays.
+
+    Parameters
+    ----------
+    jobs : sequence of (function, args)
+        Figure functions (returning a :class:`~matplotlib.figure.Figure`) and their
+        positional arguments. [-]
+    fmt : str
+        ``"png"``, ``"svg"`` or ``"pdf"``. [-]
+    dpi : int
+        Resolution. [dots per inch]
+    processes : int, optional
+        Processes that draw (default: one per core, see
+        :func:`lapbalance.forkpool.default_processes`); 1 draws them here, in order. [-]
+
+    Returns
+    -------
+    list of bytes
+        The files' contents, in the order of ``jobs`` (the same bytes for any ``processes``). [-]
+    """
+    from lapbalance import forkpool
+
+    return forkpool.run([functools.partial(_draw, fn, tuple(args), fmt, dpi)
+                         for fn, args in jobs], processes)
+
+
 def lap_figures(result: LapResult, fmt: str = "png", dpi: int = 110,
-                map_channel: str | None = None) -> dict[str, bytes]:
+                map_channel: str | None = None, processes: int | None = None,
+                curve: ResponseCurve | None = None) -> dict[str, bytes]:
     """Every lap figure of :data:`LAP_FIGURES` as file bytes (``lapbalance lap --plots``).
 
     Parameters
@@ -946,17 +979,25 @@ def lap_figures(result: LapResult, fmt: str = "png", dpi: int = 110,
         Resolution. [dots per inch]
     map_channel : str, optional
         Channel that colours the track map (default: the cornering balance). [-]
+    processes : int, optional
+        As :func:`render_figures`. [-]
+    curve : ResponseCurve, optional
+        Also draw this lift-off response (:func:`liftoff_response_figure`, titled with the car
+        name) as ``liftoff_response.<fmt>``. [-]
 
     Returns
     -------
     dict of str -> bytes
         File name (``<figure>.<fmt>``) -> contents. [-]
     """
-    out = {}
-    for name, (fn, _) in LAP_FIGURES.items():
-        fig = fn(result, map_channel) if name == "track_map" and map_channel else fn(result)
-        out[f"{name}.{fmt}"] = figure_bytes(fig, fmt, dpi)
-    return out
+    names = list(LAP_FIGURES)
+    jobs = [(fn, (result, map_channel) if name == "track_map" and map_channel else (result,))
+            for name, (fn, _) in LAP_FIGURES.items()]
+    if curve is not None:
+        names.append("liftoff_response")
+        jobs.append((liftoff_response_figure, (curve, result.car.name)))
+    files = render_figures(jobs, fmt, dpi, processes)
+    return {f"{name}.{fmt}": data for name, data in zip(names, files, strict=True)}
 
 
 def lap_figures_png(result: LapResult, dpi: int = 110) -> dict[str, bytes]:
@@ -974,7 +1015,7 @@ def lap_figures_png(result: LapResult, dpi: int = 110) -> dict[str, bytes]:
     dict of str -> bytes
         File name (``<figure>.png``) -> PNG contents. [-]
     """
-    return {f"{name}.png": figure_png(fn(result), dpi) for name, (fn, _) in LAP_FIGURES.items()}
+    return lap_figures(result, "png", dpi)
 
 
 # --------------------------------------------------------------------------------------------
