@@ -103,3 +103,84 @@ def wavy_circuit(length=5000.0, ds=1.0, seed=7, r_min=15.0, name=None):
     k *= (1.0 / r_min - base) / np.max(np.abs(k))
     return analytic_track(k + base, ds=ds, closed=True,
                           name=name or f"wavy {length / 1000:g} km (seed {seed})")
+
+
+def layout_problems(fig, dpi: float = 70.0, tol_px: float = 1.0) -> list[str]:
+    """Layout faults of a drawn figure, as readable lines (empty: none found).
+
+    Draws ``fig`` on an Agg canvas at ``dpi`` while recording every text the renderer draws,
+    then checks that (1) no text outside an axes clip box reaches past the canvas edge, (2) no
+    axes' decorations (tick labels, axis labels, title, legend, child axes) intrude into
+    another axes' plotting area, and (3) figure-level legends and the suptitle overlap no
+    axes and its decorations. ``tol_px`` [px] absorbs anti-aliasing.
+    """
+    from matplotlib.backends.backend_agg import FigureCanvasAgg, RendererAgg
+    from matplotlib.transforms import Bbox
+
+    canvas = FigureCanvasAgg(fig)
+    fig.set_dpi(dpi)
+    drawn: list[tuple[str, Bbox]] = []
+    original = RendererAgg.draw_text
+
+    def recording(self, gc, x, y, s, prop, angle, ismath=False, mtext=None):
+        if s.strip() and gc.get_clip_rectangle() is None:
+            w, h, d = self.get_text_width_height_descent(s, prop, ismath)
+            # (x, y) is the left end of the baseline, in pixels from the top left
+            y = self.height - y
+            if abs(angle - 90.0) < 1e-6:
+                box = Bbox.from_extents(x - (h - d), y, x + d, y + w)
+            else:
+                box = Bbox.from_extents(x, y - d, x + w, y + h - d)
+            drawn.append((s, box))
+        return original(self, gc, x, y, s, prop, angle, ismath=ismath, mtext=mtext)
+
+    RendererAgg.draw_text = recording
+    try:
+        canvas.draw()
+    finally:
+        RendererAgg.draw_text = original
+    r = canvas.get_renderer()
+    width, height = canvas.get_width_height()
+    out = []
+    for s, b in drawn:
+        if b.x0 < -tol_px or b.y0 < -tol_px or b.x1 > width + tol_px or b.y1 > height + tol_px:
+            out.append(f"text {s!r} reaches past the canvas ({b.extents.round(1)} in "
+                       f"{width}x{height})")
+
+    def overlap(a, b):
+        return (min(a.x1, b.x1) - max(a.x0, b.x0) > tol_px
+                and min(a.y1, b.y1) - max(a.y0, b.y0) > tol_px)
+
+    axes = [ax for ax in fig.axes if ax.get_visible()]
+
+    def name(ax):
+        return ax.get_label() or str(axes.index(ax))
+
+    def decorations(ax):
+        """Boxes of the tick labels, axis labels, titles, legend, texts and child axes."""
+        out = [axis.get_tightbbox(r) for axis in (ax.xaxis, ax.yaxis) if axis.get_visible()]
+        out += [t.get_window_extent(r) for t in (ax.title, ax._left_title, ax._right_title)
+                if t.get_visible() and t.get_text()]
+        for artist in ax.get_default_bbox_extra_artists():
+            out.append(artist.get_tightbbox(r))
+        return [b for b in out if b is not None and b.width > 0 and b.height > 0]
+
+    for a in axes:
+        area_a = a.get_window_extent(r)
+        boxes = decorations(a)
+        for b in axes:
+            area_b = b.get_window_extent(r)
+            if a is b or overlap(area_a, area_b):  # twin axes share their plotting area
+                continue
+            if any(overlap(box, area_b) for box in boxes):
+                out.append(f"decorations of axes {name(a)} overlap the plotting area of axes "
+                           f"{name(b)}")
+    extras = [("figure legend", leg) for leg in fig.legends]
+    if fig._suptitle is not None and fig._suptitle.get_text():
+        extras.append(("suptitle", fig._suptitle))
+    for what, artist in extras:
+        box = artist.get_window_extent(r)
+        for ax in axes:
+            if any(overlap(box, b) for b in [ax.get_window_extent(r), *decorations(ax)]):
+                out.append(f"{what} overlaps axes {name(ax)} or its labels")
+    return out

@@ -151,7 +151,9 @@ def test_verdict_wording_is_one_source(report_html):
 def test_balance_map_shows_cornering_steps_only(ring_lap):
     fig = plots.track_map_figure(ring_lap)
     (lc,) = [c for c in fig.axes[0].collections if c.get_array() is not None]
-    arr = np.ma.masked_invalid(np.asarray(lc.get_array(), float))
+    # one value per polyline (a run of steps of one colour): repeat it for each of its steps
+    steps = [len(p.vertices) - 1 for p in lc.get_paths()]
+    arr = np.ma.masked_invalid(np.repeat(np.asarray(lc.get_array(), float), steps))
     ay = np.abs(ring_lap.channels["ay_mps2"][:-1])
     corner = (ay >= 4.0) & (np.abs(ring_lap.channels["ax_mps2"][:-1]) <= 0.5 * ay)
     assert np.all(arr.mask[~corner]) and not np.any(arr.mask[corner])

@@ -339,3 +339,12 @@ def test_json_summary_is_plain_json(tmp_path):
     res = CliRunner().invoke(main, ["correlate", str(CAR), str(RING), str(DEMO_LOG), "--lap",
                                     "3"])
     assert res.exit_code == 2 and "--lap: = 3: the log has 2 complete lap(s)" in res.output
+
+
+def test_correlation_figure_fits_its_fixed_layout(car, ring, model):
+    from lapbalance.plots_correlate import correlation_figure
+    from tests.helpers import layout_problems
+
+    corr = C.correlate(car, ring, C.load_log(DEMO_LOG, ring), model=model)
+    for dpi in (40, 70, 110):
+        assert layout_problems(correlation_figure(corr), dpi) == []

@@ -12,6 +12,8 @@ import matplotlib.image as mpimg
 import numpy as np
 import pytest
 from click.testing import CliRunner
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from matplotlib.figure import Figure
 
 from lapbalance import plots
@@ -115,9 +117,12 @@ def test_figures_render_for_every_track(track):
         warnings.simplefilter("ignore", PhysicsWarning)
         result = simulate_lap(load_car(car_file(car)), tr)
     assert result.corners  # every demo circuit has corners to label
+    from tests.helpers import layout_problems
+
     for name, (fn, _) in plots.LAP_FIGURES.items():
         fig = fn(result)
         if name in TRACK_FIGURES:
+            assert layout_problems(fig, TEST_DPI) == [], name
             img = _decoded(plots.figure_png(fig, TEST_DPI))
             assert float(img[..., :3].std()) > 0.02, name
 
@@ -250,3 +255,144 @@ def test_lap_command_writes_plots(tmp_path, monkeypatch):
     assert res.exit_code == 0, res.output
     for name in ("track_map", "usage"):
         assert (out / f"{name}.png").read_bytes().startswith(PNG_SIGNATURE)
+
+
+# --------------------------------------------------------------------------------------------
+# Fixed layouts: nothing reaches past the canvas, nothing overlaps another panel
+# --------------------------------------------------------------------------------------------
+
+
+def _layout_cases(laps):
+    from lapbalance.liftoff import corner_response
+
+    r, wing = laps["gt_coupe"], laps["gt_coupe_high_wing"]
+    cases = [(f"{name} {car}", lambda fn=fn, res=res: fn(res))
+             for car, res in laps.items() for name, (fn, _) in plots.LAP_FIGURES.items()]
+    curve = corner_response(r)
+    cases += [
+        ("track_map by speed", lambda: plots.track_map_figure(r, "speed_kph")),
+        ("track_map by ax", lambda: plots.track_map_figure(r, "ax_mps2")),
+        ("response", lambda: plots.liftoff_response_figure(curve, r.car.name)),
+        ("overlay of 2", lambda: plots.overlay_figure([r, wing], ["base", "wing"])),
+        ("overlay of 5", lambda: plots.overlay_figure(list(laps.values())[:5])),
+        ("delta", lambda: plots.delta_figure(r, wing, ["base", "wing"])),
+        ("curvature", lambda: plots.track_curvature_figure(r.track)),
+    ]
+    return cases
+
+
+def test_every_figure_has_a_fixed_layout_that_fits(laps):
+    from tests.helpers import layout_problems
+
+    problems = []
+    for name, make in _layout_cases(laps):
+        fig = make()
+        # no layout engine: one drawing pass per figure (a layout engine adds a second one)
+        assert fig.get_layout_engine() is None, name
+        problems += [f"{name}: {p}" for p in layout_problems(fig, dpi=70)]
+    assert not problems, "\n".join(problems)
+
+
+@pytest.mark.parametrize("dpi", [40, 110])
+def test_fixed_layouts_fit_at_other_resolutions(laps, dpi):
+    from tests.helpers import layout_problems
+
+    r = laps["gt_coupe"]
+    problems = []
+    for name, (fn, _) in plots.LAP_FIGURES.items():
+        problems += [f"{name}: {p}" for p in layout_problems(fn(r), dpi=dpi)]
+    assert not problems, "\n".join(problems)
+
+
+def test_layout_check_finds_clipped_and_overlapping_labels():
+    # The check above must be able to fail: a y label in a margin of no width leaves the
+    # canvas, and a figure legend laid over the plotting area overlaps it.
+    from tests.helpers import layout_problems
+
+    fig = plots._figure(4.0, 3.0, left=0.0, bottom=0.6)
+    ax = fig.add_subplot()
+    ax.plot([0, 1], [0, 1], label="a line")
+    ax.set_ylabel("a label with no room")
+    assert any("a label with no room" in p and "canvas" in p for p in layout_problems(fig))
+    fig = plots._figure(4.0, 3.0)
+    ax = fig.add_subplot()
+    ax.plot([0, 1], [0, 1], label="a line")
+    fig.legend(loc="center")
+    assert any("figure legend overlaps" in p for p in layout_problems(fig))
+    fig = plots._figure(4.0, 3.0, rows=2, hgap=0.0)
+    top, bottom = fig.subplots(2, 1)
+    bottom.set_title("a title on the panel above")
+    assert any("overlap the plotting area" in p for p in layout_problems(fig))
+
+
+# --------------------------------------------------------------------------------------------
+# Colour runs of the track maps: same colour per segment with fewer paths
+# --------------------------------------------------------------------------------------------
+
+_values = st.lists(st.one_of(st.floats(-3.0, 3.0), st.just(math.nan), st.just(math.inf),
+                             st.just(-math.inf)), min_size=0, max_size=300)
+
+
+@settings(max_examples=150, deadline=None)
+@given(_values, st.floats(0.01, 2.0))
+def test_colour_runs_give_every_value_its_own_colour(values, m):
+    from matplotlib.colors import TwoSlopeNorm
+
+    v = np.array(values, float)
+    cmap = plots.DIVERGING.with_extremes(bad="#e1e4e8")
+    norm = TwoSlopeNorm(0.0, -m, m)
+    starts = plots.colour_runs(v, cmap, norm)
+    if v.size == 0:
+        assert starts.size == 0
+        return
+    assert starts[0] == 0 and np.all(np.diff(starts) > 0) and starts[-1] < v.size
+    colours = np.asarray(cmap(norm(v)))
+    run = np.searchsorted(starts, np.arange(v.size), side="right") - 1
+    # every value has the colour of its run's first value ...
+    np.testing.assert_array_equal(colours, colours[starts[run]])
+    # ... and neighbouring runs differ (no run is split needlessly)
+    assert np.all(np.any(colours[starts[1:]] != colours[starts[1:] - 1], axis=1))
+
+
+def test_track_line_draws_every_segment_in_its_own_colour(laps):
+    from matplotlib.colors import TwoSlopeNorm
+
+    r = laps["gt_coupe"]
+    x, y = r.channels["x_m"], r.channels["y_m"]
+    v = np.where(plots.cornering_mask(r), r.channels["balance_index"], np.nan)
+    cmap = plots.DIVERGING.with_extremes(bad="#e1e4e8")
+    norm = TwoSlopeNorm(0.0, -0.2, 0.2)
+    fig = Figure()
+    lc = plots._track_line(fig.add_subplot(), x, y, v, cmap, norm)
+    paths = lc.get_paths()
+    assert len(paths) < (len(x) - 1) / 3  # the runs merge many segments
+    seg_colours = []
+    points = [paths[0].vertices[0]]
+    for path, rgba in zip(paths, lc.to_rgba(lc.get_array()), strict=True):
+        n = len(path.vertices) - 1
+        seg_colours += [rgba] * n
+        points += list(path.vertices[1:])
+    # the polylines pass through every point once, in order, and each segment i is drawn in
+    # the colour of values[i]
+    np.testing.assert_array_equal(np.array(points), np.column_stack([x, y]))
+    np.testing.assert_array_equal(np.array(seg_colours), cmap(norm(v[:-1])))
+
+
+def test_long_names_shrink_the_titles_to_fit(laps):
+    import dataclasses
+
+    from tests.helpers import layout_problems
+
+    r = laps["gt_coupe"]
+    long = dataclasses.replace(r, car=dataclasses.replace(
+        r.car, name="An invented coupe with a very long name, variant with the steeper wing"))
+    problems = []
+    for name in ("track_map", "speed", "axle_loads", "liftoff"):
+        fig = plots.LAP_FIGURES[name][0](long)
+        problems += [f"{name}: {p}" for p in layout_problems(fig, dpi=70)]
+        sizes = [t.get_fontsize() for t in [*(ax.title for ax in fig.axes), fig._suptitle]
+                 if t is not None and long.car.name in t.get_text()]
+        assert sizes and max(sizes) <= 10.5, name
+        if name == "track_map":  # the narrowest of them: shrunk from the usual size
+            assert max(sizes) < 10.5
+    assert not problems, "\n".join(problems)

@@ -142,6 +142,21 @@ def test_embedded_images_are_pngs(compare_doc):
         assert img.shape[0] > 50 and float(img[..., :3].std()) > 0.02
 
 
+def test_figures_drawn_in_several_processes_give_the_same_document(base_lap, wing_lap):
+    from lapbalance import forkpool, provenance
+
+    if not forkpool.can_fork():
+        pytest.skip("needs fork()")
+    record = provenance.build([base_lap.car, wing_lap.car], [base_lap.track],
+                              solver=base_lap.settings)
+    docs = [report.build_report([base_lap, wing_lap], ["base", "high wing"], dpi=40,
+                                generated="test", provenance=record, processes=n)
+            for n in (1, 2)]
+    assert docs[0] == docs[1]
+    assert docs[0].count("data:image/png;base64,iVBOR") == 2 * (len(LAP_FIGURES) + 1) + 2
+    assert "@@figure-" not in docs[0]  # every placeholder was filled
+
+
 def test_caution_is_shown_near_the_top(single_doc):
     caution = html.escape(CAUTION)
     i = single_doc.find(caution)

@@ -104,3 +104,16 @@ def test_compare_cli_and_report_carry_the_runs(tmp_path):
     r = runner.invoke(main, ["report", TRUCK, RING, "--step-m", "4", "--out", str(out)])
     assert r.exit_code == 0, r.output
     assert "Lift-off in time at the flagged corners" in out.read_text(encoding="utf-8")
+
+
+def test_lift_off_run_figures_fit_their_fixed_layout():
+    from lapbalance import plots_transient
+    from lapbalance.transient import sweep
+    from tests.helpers import layout_problems
+
+    car = load_car(ROOT / "examples" / "gt_coupe.toml")
+    sweeps = [sweep(car, r) for r in (40.0, 100.0)]
+    for dpi in (40, 110):
+        assert layout_problems(plots_transient.figures_figure(sweeps, car.name), dpi) == []
+        assert layout_problems(plots_transient.histories_figure(sweeps[0], car.name),
+                               dpi) == []

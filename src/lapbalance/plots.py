@@ -16,6 +16,7 @@ from __future__ import annotations
 import functools
 import io
 import math
+import textwrap
 from collections.abc import Callable, Sequence
 
 import matplotlib
@@ -100,10 +101,74 @@ def _styled(fn: Callable[..., Figure]) -> Callable[..., Figure]:
     return wrapper
 
 
-def _figure(width: float, height: float) -> Figure:
-    fig = Figure(figsize=(width, height), layout="constrained")
+def _figure(width: float, height: float, *, left: float = 0.7, right: float = 0.15,
+            bottom: float = 0.5, top: float = 0.35, rows: int = 1, cols: int = 1,
+            hgap: float = 0.2, wgap: float = 0.8) -> Figure:
+    """A bare Agg figure of ``width`` x ``height`` [in] with a fixed layout.
+
+    The margins ``left``, ``right``, ``bottom``, ``top`` and the gaps between the axes of a
+    ``rows`` x ``cols`` grid (``hgap`` between rows, ``wgap`` between columns) are in inches,
+    so they hold the tick labels, axis labels and titles at every resolution. The figures
+    use a fixed layout instead of a layout engine: a layout engine measures every text in an
+    extra drawing pass, which took more than half of the time of rendering a figure.
+    ``fig.add_subplot()`` and ``fig.subplots(rows, cols)`` place their axes inside it.
+    """
+    fig = Figure(figsize=(width, height))
     FigureCanvasAgg(fig)
+    ah = (height - top - bottom - (rows - 1) * hgap) / rows
+    aw = (width - left - right - (cols - 1) * wgap) / cols
+    fig.subplots_adjust(left=left / width, right=1.0 - right / width, bottom=bottom / height,
+                        top=1.0 - top / height, hspace=hgap / ah, wspace=wgap / aw)
     return fig
+
+
+def _axes_at(fig: Figure, left: float, bottom: float, width: float, height: float, **kw):
+    """Axes at a fixed place: lower-left corner, width and height in inches. [-]"""
+    w, h = fig.get_size_inches()
+    return fig.add_axes((left / w, bottom / h, width / w, height / h), **kw)
+
+
+def _colorbar(fig: Figure, mappable, ax, *, pad: float = 0.15, width: float = 0.2,
+              shrink: float = 0.85, **kw):
+    """Colour bar right of ``ax`` (``pad`` and ``width`` in inches), ``shrink`` times its
+    height and centred on it, in a fixed place (see :func:`_figure`). [-]"""
+    w, h = fig.get_size_inches()
+    box = ax.get_position()
+    hh = box.height * shrink
+    cax = fig.add_axes((box.x1 + pad / w, box.y0 + 0.5 * (box.height - hh), width / w, hh))
+    return fig.colorbar(mappable, cax=cax, **kw)
+
+
+def _fitted_size(fig: Figure, text: str, width: float, size: float) -> float:
+    """Font size [pt], at most ``size``, at which one line of ``text`` is at most ``width``
+    [in] wide (never below 6.5 pt): long car and track names shrink a title instead of
+    running past the fixed margins."""
+    from matplotlib.font_manager import FontProperties
+
+    longest = max(str(text).split("\n"), key=len)
+    w, _, _ = fig.canvas.get_renderer().get_text_width_height_descent(
+        longest.replace("\\$", "$"), FontProperties(size=size), ismath=False)
+    w_in = w / fig.dpi
+    return size if w_in <= width else max(6.5, math.floor(size * width / w_in * 10) / 10)
+
+
+def _title(ax, text: str, size: float | None = None, **kw):
+    """Axes title, shrunk to fit over the figure (see :func:`_fitted_size`)."""
+    fig = ax.get_figure()
+    size = size if size is not None else matplotlib.rcParams["axes.titlesize"]
+    if isinstance(size, str):
+        size = 10.5
+    w = fig.get_size_inches()[0]
+    box = ax.get_position()
+    centre = 0.5 * (box.x0 + box.x1) * w
+    return ax.set_title(text, fontsize=_fitted_size(fig, text, 2 * min(centre, w - centre)
+                                                    - 0.15, size), **kw)
+
+
+def _suptitle(fig: Figure, text: str, size: float = 10.5):
+    """Figure title, shrunk to fit across the figure (see :func:`_fitted_size`)."""
+    return fig.suptitle(text, fontsize=_fitted_size(fig, text, fig.get_size_inches()[0] - 0.15,
+                                                    size))
 
 
 def _plain(text: str) -> str:
@@ -143,11 +208,52 @@ def _symmetric_limit(values: np.ndarray) -> float:
     return max(float(np.percentile(v, 99.5)), 0.02)
 
 
+def colour_runs(values: np.ndarray, cmap, norm) -> np.ndarray:
+    """Start indices of the runs of consecutive ``values`` that get the same colour.
+
+    The colour of a value is ``cmap(norm(value))``, as matplotlib colours a collection
+    (non-finite values get the colour map's "bad" colour). A colour map holds a finite table
+    of colours, so neighbouring steps of a smooth channel often share one; drawing each run
+    as one polyline instead of one segment per step draws the same colours with several
+    times fewer paths.
+
+    Parameters
+    ----------
+    values : numpy.ndarray
+        Values in order along the line. [any unit]
+    cmap : matplotlib.colors.Colormap
+        The colour map. [-]
+    norm : matplotlib.colors.Normalize
+        The normalisation of the values (same unit as ``values``). [-]
+
+    Returns
+    -------
+    numpy.ndarray of int
+        Index of the first value of every run, ascending, starting with 0 (empty for no
+        values); run ``k`` ends where run ``k + 1`` starts. [-]
+    """
+    v = np.asarray(values, float)
+    if v.size == 0:
+        return np.zeros(0, dtype=np.intp)
+    rgba = np.asarray(cmap(norm(v)), float).reshape(v.size, -1)
+    change = np.any(rgba[1:] != rgba[:-1], axis=1)
+    return np.concatenate([[0], np.flatnonzero(change) + 1]).astype(np.intp)
+
+
 def _track_line(ax, x, y, values, cmap, norm, width=3.0) -> LineCollection:
-    pts = np.column_stack([x, y])
-    segs = np.stack([pts[:-1], pts[1:]], axis=1)
-    lc = LineCollection(segs, cmap=cmap, norm=norm, linewidths=width, capstyle="round")
-    lc.set_array(np.asarray(values, float)[:-1])
+    """Line through (x, y) [m], segment i (point i to i + 1) coloured by ``values[i]``.
+
+    Runs of segments of one colour (:func:`colour_runs`) are drawn as one polyline each,
+    carrying the first value of the run, so every segment gets the colour of its own value.
+    """
+    pts = np.column_stack([np.asarray(x, float), np.asarray(y, float)])
+    v = np.asarray(values, float)[:-1]
+    starts = colour_runs(v, cmap, norm)
+    ends = np.append(starts[1:], v.size)
+    lines = [pts[a:b + 1] for a, b in zip(starts, ends, strict=True)]
+    lc = LineCollection(lines, cmap=cmap, norm=norm, linewidths=width, capstyle="round",
+                        joinstyle="round")
+    lc.set_array(v[starts])
     ax.add_collection(lc)
     ax.set_aspect("equal", adjustable="datalim")
     ax.autoscale_view()
@@ -228,7 +334,7 @@ def track_map_figure(result: LapResult, channel: str | None = None) -> Figure:
     """
     ch = result.channels
     x, y, d = np.asarray(ch["x_m"]), np.asarray(ch["y_m"]), _distance(result)
-    fig = _figure(7.5, 6.0)
+    fig = _figure(7.5, 6.0, left=0.7, right=1.55, bottom=0.5, top=0.3)
     ax = fig.add_subplot()
     draw_track_edges(ax, result.track)
     if channel is None:
@@ -238,7 +344,7 @@ def track_map_figure(result: LapResult, channel: str | None = None) -> Figure:
         m = _symmetric_limit(shown)
         cmap = DIVERGING.with_extremes(bad="#e1e4e8")
         lc = _track_line(ax, x, y, np.ma.masked_invalid(shown), cmap, TwoSlopeNorm(0.0, -m, m))
-        cb = fig.colorbar(lc, ax=ax, shrink=0.85, extend="both")
+        cb = _colorbar(fig, lc, ax, extend="both")
         thr = float(result.settings.get("liftoff_ay_threshold_mps2", CORNERING_AY_MPS2))
         cb.set_label(f"balance index u_r - u_f [-] where |a_y| >= {thr:g} m/s²\n"
                      "and |a_x| <= |a_y|/2 (> 0 oversteer-leaning; grey: not cornering)")
@@ -257,7 +363,7 @@ def track_map_figure(result: LapResult, channel: str | None = None) -> Figure:
             from matplotlib.colors import Normalize
 
             lc = _track_line(ax, x, y, vals, SEQUENTIAL, Normalize(lo, hi if hi > lo else lo + 1))
-        cb = fig.colorbar(lc, ax=ax, shrink=0.85)
+        cb = _colorbar(fig, lc, ax)
         cb.formatter.set_useOffset(False)
         cb.set_label(f"{_plain(channel)} [{unit}]" if unit else _plain(channel))
         title = f"{_plain(channel)} around the lap"
@@ -279,7 +385,7 @@ def track_map_figure(result: LapResult, channel: str | None = None) -> Figure:
     ax.legend(loc="best")
     line = getattr(result.track, "line", "centreline")
     on = "" if line == "centreline" else f" ({line} line)"
-    ax.set_title(f"{_names(result)}: {title}{on}")
+    _title(ax, f"{_names(result)}: {title}{on}")
     return fig
 
 
@@ -299,7 +405,7 @@ def speed_figure(result: LapResult) -> Figure:
     ch, d = result.channels, _distance(result)
     v = np.asarray(ch["speed_kph"], float)
     vlim = np.asarray(ch["speed_limit_mps"], float) * 3.6
-    fig = _figure(9.0, 3.6)
+    fig = _figure(9.0, 3.6, left=0.65, bottom=0.5, top=0.62)
     ax = fig.add_subplot()
     ax.plot(d, vlim, linestyle="--", color=PALETTE["limit"], linewidth=1.0,
             label="corner-limit speed")
@@ -310,7 +416,7 @@ def speed_figure(result: LapResult) -> Figure:
     ax.set_ylabel("speed [km/h]")
     _corner_axis(ax, result)
     ax.legend(loc="lower right", ncols=2)
-    ax.set_title(f"{_names(result)}: speed, {result.time_label} {result.lap_time_s:.3f} s")
+    _title(ax, f"{_names(result)}: speed, {result.time_label} {result.lap_time_s:.3f} s")
     return fig
 
 
@@ -330,7 +436,7 @@ def usage_figure(result: LapResult) -> Figure:
     ch, d = result.channels, _distance(result)
     lim = np.asarray(ch["limit"]).astype(int)
     code = {name: c for c, name in LIMIT_NAMES.items()}
-    fig = _figure(9.0, 3.6)
+    fig = _figure(9.0, 3.6, left=0.65, bottom=0.8, top=0.62)
     ax = fig.add_subplot()
     _shade(ax, d, lim == code["front"], PALETTE["front"], "front axle limits")
     _shade(ax, d, lim == code["rear"], PALETTE["rear"], "rear axle limits")
@@ -343,8 +449,8 @@ def usage_figure(result: LapResult) -> Figure:
     ax.set_xlabel("distance [m]")
     ax.set_ylabel("grip usage [-]")
     _corner_axis(ax, result)
-    fig.legend(loc="outside lower center", ncols=5)
-    ax.set_title(f"{_names(result)}: axle grip usage (friction ellipse)")
+    fig.legend(loc="lower center", ncols=5)
+    _title(ax, f"{_names(result)}: axle grip usage (friction ellipse)")
     return fig
 
 
@@ -388,7 +494,7 @@ def axle_loads_figure(result: LapResult) -> Figure:
     """
     ch, d = result.channels, _distance(result)
     gt = np.asarray(ch["ground_transfer_n"], float)
-    fig = _figure(10.5, 6.0)
+    fig = _figure(10.5, 6.0, left=0.85, right=2.45, bottom=0.5, top=0.62, rows=2)
     axes = fig.subplots(2, 1, sharex=True)
     for ax, axle, sign in ((axes[0], "front", -1.0), (axes[1], "rear", 1.0)):
         _stack_signed(ax, d, [
@@ -407,7 +513,7 @@ def axle_loads_figure(result: LapResult) -> Figure:
         ax.legend(loc="upper left", bbox_to_anchor=(1.0, 1.0), fontsize=7)
     axes[1].set_xlabel("distance [m]")
     _corner_axis(axes[0], result)
-    fig.suptitle(f"{_names(result)}: axle-load parts", fontsize=10.5)
+    _suptitle(fig, f"{_names(result)}: axle-load parts")
     return fig
 
 
@@ -441,9 +547,10 @@ def aero_balance_figure(result: LapResult) -> Figure:
     """
     ch = result.channels
     v = np.asarray(ch["speed_kph"], float)
-    fig = _figure(7.0, 4.2)
+    net_lift = result.car.aero.downforce_area < 0
+    fig = _figure(7.0, 4.2, left=1.0 if net_lift else 0.7, bottom=0.5, top=0.32)
     ax = fig.add_subplot()
-    if result.car.aero.downforce_area < 0:
+    if net_lift:
         # Net lift: a share of a negative total means nothing; show the axle loads instead.
         for key, label, color in (("aero_front_n", "front axle", PALETTE["front"]),
                                   ("aero_rear_n", "rear axle", PALETTE["rear"])):
@@ -455,7 +562,7 @@ def aero_balance_figure(result: LapResult) -> Figure:
         ax.set_xlabel("speed [km/h]")
         ax.set_ylabel("aero load on the axle [N]\n(CG convention, < 0 = lift)")
         ax.legend(loc="best")
-        ax.set_title(f"{_names(result)}: net lift, axle aero loads vs speed")
+        _title(ax, f"{_names(result)}: net lift, axle aero loads vs speed")
         return fig
     series = (("aero_balance_front", "on track (CG convention)", PALETTE["aero"]),
               ("aero_balance_front_ground", "wheel-restrained scales (ground convention)",
@@ -474,7 +581,7 @@ def aero_balance_figure(result: LapResult) -> Figure:
     ax.set_xlabel("speed [km/h]")
     ax.set_ylabel("front share of downforce [%]")
     ax.legend(loc="best")
-    ax.set_title(f"{_names(result)}: aero balance vs speed")
+    _title(ax, f"{_names(result)}: aero balance vs speed")
     return fig
 
 
@@ -495,9 +602,10 @@ def gg_figure(result: LapResult) -> Figure:
     ax_g = np.asarray(ch["ax_mps2"], float) / G0
     ay_g = np.asarray(ch["ay_mps2"], float) / G0
     fig = _figure(5.8, 5.0)
-    ax = fig.add_subplot()
+    # square plotting area (equal scales over equal limits), colour bar right of it
+    ax = _axes_at(fig, 0.85, 0.5, 4.0, 4.0)
     sc = ax.scatter(ay_g, ax_g, c=ch["speed_kph"], cmap=SEQUENTIAL, s=6, linewidths=0)
-    cb = fig.colorbar(sc, ax=ax, shrink=0.85)
+    cb = _colorbar(fig, sc, ax)
     cb.set_label("speed [km/h]")
     lim = max(float(np.nanmax(np.abs(np.concatenate([ax_g, ay_g])))) * 1.1, 0.2)
     ax.set_xlim(-lim, lim)
@@ -507,7 +615,7 @@ def gg_figure(result: LapResult) -> Figure:
     ax.axvline(0, color=PALETTE["muted"], linewidth=0.7)
     ax.set_xlabel("lateral acceleration a_y [g]  (left +)")
     ax.set_ylabel("longitudinal acceleration a_x [g]  (forward +)")
-    ax.set_title(f"{_names(result)}: g-g", fontsize=10)
+    _title(ax, f"{_names(result)}: g-g", 10)
     return fig
 
 
@@ -531,13 +639,13 @@ def liftoff_figure(result: LapResult) -> Figure:
     matplotlib.figure.Figure
     """
     cs = ranked(result.corners)
-    fig = _figure(9.0, 5.6)
+    fig = _figure(9.0, 5.6, left=1.0, bottom=1.2, top=0.62, rows=2)
     axes = fig.subplots(2, 1, sharex=True)
     if not cs:
         for ax in axes:
             ax.text(0.5, 0.5, "no corners on this track", transform=ax.transAxes,
                     ha="center", color=PALETTE["muted"])
-        fig.suptitle(f"{_names(result)}: lift-off check", fontsize=10.5)
+        _suptitle(fig, f"{_names(result)}: lift-off check")
         return fig
     pos = np.arange(len(cs))
     w = 0.38
@@ -569,11 +677,11 @@ def liftoff_figure(result: LapResult) -> Figure:
     ax.set_ylabel("rear reserve after a\nlift at the limit [-]")
     for verdict in VERDICTS:
         ax.bar([0], [0], 0, color=PALETTE[verdict], label=verdict)
-    fig.legend(*ax.get_legend_handles_labels(), loc="outside lower center", ncols=5,
+    fig.legend(*ax.get_legend_handles_labels(), loc="lower center", ncols=5,
                title="verdict", title_fontsize=7.5)
     ax.set_xticks(pos, labels=[f"{c['id']}\n{c['direction']}" for c in cs])
     ax.set_xlabel("corner (tightest margin first)")
-    fig.suptitle(f"{_names(result)}: lift-off margin per corner", fontsize=10.5)
+    _suptitle(fig, f"{_names(result)}: lift-off margin per corner")
     return fig
 
 
@@ -597,12 +705,12 @@ def liftoff_response_figure(curve: ResponseCurve, title: str = "") -> Figure:
     """
     c = curve.columns
     ay = np.asarray(c["ay_initial_mps2"], float)
-    fig = _figure(9.5, 6.4)
+    fig = _figure(9.5, 6.4, left=0.85, bottom=0.5, top=0.4, rows=2, cols=2, wgap=0.9)
     axes = fig.subplots(2, 2, sharex=True).ravel()
     where = (f"corner {curve.corner_id}, " if curve.corner_id is not None else "") + \
         f"radius {curve.radius_m:.0f} m"
-    fig.suptitle((f"{_plain(title)}: " if title else "") + f"lift-off response, {where}; "
-                 f"margin {curve.margin:.3f}", fontsize=10.5)
+    _suptitle(fig, (f"{_plain(title)}: " if title else "") + f"lift-off response, {where}; "
+              f"margin {curve.margin:.3f}")
     if ay.size == 0:
         for ax in axes:
             ax.text(0.5, 0.5, "the limit is below 4 m/s² here", transform=ax.transAxes,
@@ -668,7 +776,11 @@ def overlay_figure(results: Sequence[LapResult], labels: Sequence[str] | None = 
     matplotlib.figure.Figure
     """
     labels = _labels(results, labels)
-    fig = _figure(9.0, 5.6)
+    track = _plain(getattr(results[0].track, "name", "") or "track")
+    title = textwrap.wrap(f"{' vs '.join(labels)} — {track}: speed and balance", 100)
+    legend_rows = -(-len(results) // 3)
+    fig = _figure(9.0, 5.6, left=1.0, bottom=0.55 + 0.22 * legend_rows,
+                  top=0.65 + 0.18 * (len(title) - 1), rows=2)
     axes = fig.subplots(2, 1, sharex=True)
     for j, (r, lab) in enumerate(zip(results, labels, strict=True)):
         color = SERIES[j % len(SERIES)]
@@ -678,15 +790,14 @@ def overlay_figure(results: Sequence[LapResult], labels: Sequence[str] | None = 
         axes[1].plot(d, r.channels["balance_index"], color=color, label=lab,
                      linewidth=1.4 if j == 0 else 1.1)
     axes[0].set_ylabel("speed [km/h]")
-    fig.legend(*axes[0].get_legend_handles_labels(), loc="outside lower center",
+    fig.legend(*axes[0].get_legend_handles_labels(), loc="lower center",
                ncols=min(len(results), 3))
     axes[1].axhline(0, color=PALETTE["muted"], linewidth=0.7)
     axes[1].set_ylabel("balance index u_r - u_f [-]\n(> 0 oversteer-leaning)")
     axes[1].set_xlabel("distance [m]")
     axes[1].set_xlim(0, max(float(_distance(r)[-1]) for r in results))
     _corner_axis(axes[0], results[0])
-    track = _plain(getattr(results[0].track, "name", "") or "track")
-    fig.suptitle(f"{' vs '.join(labels)} — {track}: speed and balance", fontsize=10.5)
+    _suptitle(fig, "\n".join(title))
     return fig
 
 
@@ -732,7 +843,8 @@ def delta_figure(base: LapResult, other: LapResult, labels: Sequence[str] | None
     d, dt = time_delta(base, other)
     rate = np.gradient(dt, d) * 1e3 if d.size > 1 else np.zeros_like(d)
     fig = _figure(11.0, 4.6)
-    ax, axm = fig.subplots(1, 2, width_ratios=[1.6, 1.0])
+    ax = _axes_at(fig, 0.95, 0.5, 5.15, 3.48)
+    axm = _axes_at(fig, 6.85, 0.5, 3.2, 3.48)
     ax.fill_between(d, 0, dt, where=dt >= 0, color=PALETTE["rear"], alpha=0.25, linewidth=0)
     ax.fill_between(d, 0, dt, where=dt < 0, color=PALETTE["front"], alpha=0.25, linewidth=0)
     ax.plot(d, dt, color=PALETTE["ink"])
@@ -746,14 +858,13 @@ def delta_figure(base: LapResult, other: LapResult, labels: Sequence[str] | None
     y = np.asarray(base.channels["y_m"], float)[:n]
     m = _symmetric_limit(rate)
     lc = _track_line(axm, x, y, rate, DIVERGING, TwoSlopeNorm(0.0, -m, m), width=2.5)
-    cb = fig.colorbar(lc, ax=axm, shrink=0.85, extend="both")
+    cb = _colorbar(fig, lc, axm, width=0.15, extend="both")
     cb.set_label("time delta rate [ms/m]  (> 0: losing)")
     axm.set_title("where the time goes", fontsize=9)
     track = _plain(getattr(base.track, "name", "") or "track")
     total = other.lap_time_s - base.lap_time_s
-    fig.suptitle(f"{lo} (other) vs {lb} (base) — {track}: {base.time_label} delta "
-                 f"{total:+.3f} s",
-                 fontsize=10.5)
+    _suptitle(fig, f"{lo} (other) vs {lb} (base) — {track}: {base.time_label} delta "
+              f"{total:+.3f} s")
     return fig
 
 
@@ -781,12 +892,13 @@ LAP_FIGURES: dict[str, tuple[Callable[[LapResult], Figure], str]] = {
 
 
 def figure_png(fig: Figure, dpi: int = 110) -> bytes:
-    """Render ``fig`` to PNG bytes and release it.
+    """Render ``fig`` to PNG bytes.
 
     Parameters
     ----------
     fig : matplotlib.figure.Figure
-        The figure (it is cleared afterwards). [-]
+        The figure (left as drawn: dropping the last reference frees it, which is cheaper
+        than clearing it, since clearing builds new ticks). [-]
     dpi : int
         Resolution. [dots per inch]
 
@@ -797,17 +909,16 @@ def figure_png(fig: Figure, dpi: int = 110) -> bytes:
     """
     buf = io.BytesIO()
     fig.savefig(buf, format="png", dpi=dpi)
-    fig.clear()
     return buf.getvalue()
 
 
 def figure_bytes(fig: Figure, fmt: str = "png", dpi: int = 110) -> bytes:
-    """Render ``fig`` as ``png``, ``svg`` or ``pdf`` bytes and release it.
+    """Render ``fig`` as ``png``, ``svg`` or ``pdf`` bytes.
 
     Parameters
     ----------
     fig : matplotlib.figure.Figure
-        The figure (it is cleared afterwards). [-]
+        The figure (left as drawn, as by :func:`figure_png`). [-]
     fmt : str
         ``"png"``, ``"svg"`` or ``"pdf"``. [-]
     dpi : int
@@ -818,12 +929,44 @@ def figure_bytes(fig: Figure, fmt: str = "png", dpi: int = 110) -> bytes:
     buf = io.BytesIO()
     meta = {"Date": None} if fmt == "pdf" else ({"Date": None} if fmt == "svg" else None)
     fig.savefig(buf, format=fmt, dpi=dpi, metadata=meta)
-    fig.clear()
     return buf.getvalue()
 
 
+def _draw(fn: Callable[..., Figure], args: tuple, fmt: str, dpi: int) -> bytes:
+    return figure_bytes(fn(*args), fmt, dpi)
+
+
+def render_figures(jobs: Sequence[tuple[Callable[..., Figure], tuple]], fmt: str = "png",
+                   dpi: int = 110, processes: int | None = None) -> list[bytes]:
+    """Build and render several figures, on every core where that pays.
+
+    Parameters
+    ----------
+    jobs : sequence of (function, args)
+        Figure functions (returning a :class:`~matplotlib.figure.Figure`) and their
+        positional arguments. [-]
+    fmt : str
+        ``"png"``, ``"svg"`` or ``"pdf"``. [-]
+    dpi : int
+        Resolution. [dots per inch]
+    processes : int, optional
+        Processes that draw (default: one per core, see
+        :func:`lapbalance.forkpool.default_processes`); 1 draws them here, in order. [-]
+
+    Returns
+    -------
+    list of bytes
+        The files' contents, in the order of ``jobs`` (the same bytes for any ``processes``). [-]
+    """
+    from lapbalance import forkpool
+
+    return forkpool.run([functools.partial(_draw, fn, tuple(args), fmt, dpi)
+                         for fn, args in jobs], processes)
+
+
 def lap_figures(result: LapResult, fmt: str = "png", dpi: int = 110,
-                map_channel: str | None = None) -> dict[str, bytes]:
+                map_channel: str | None = None, processes: int | None = None,
+                curve: ResponseCurve | None = None) -> dict[str, bytes]:
     """Every lap figure of :data:`LAP_FIGURES` as file bytes (``lapbalance lap --plots``).
 
     Parameters
@@ -836,17 +979,25 @@ def lap_figures(result: LapResult, fmt: str = "png", dpi: int = 110,
         Resolution. [dots per inch]
     map_channel : str, optional
         Channel that colours the track map (default: the cornering balance). [-]
+    processes : int, optional
+        As :func:`render_figures`. [-]
+    curve : ResponseCurve, optional
+        Also draw this lift-off response (:func:`liftoff_response_figure`, titled with the car
+        name) as ``liftoff_response.<fmt>``. [-]
 
     Returns
     -------
     dict of str -> bytes
         File name (``<figure>.<fmt>``) -> contents. [-]
     """
-    out = {}
-    for name, (fn, _) in LAP_FIGURES.items():
-        fig = fn(result, map_channel) if name == "track_map" and map_channel else fn(result)
-        out[f"{name}.{fmt}"] = figure_bytes(fig, fmt, dpi)
-    return out
+    names = list(LAP_FIGURES)
+    jobs = [(fn, (result, map_channel) if name == "track_map" and map_channel else (result,))
+            for name, (fn, _) in LAP_FIGURES.items()]
+    if curve is not None:
+        names.append("liftoff_response")
+        jobs.append((liftoff_response_figure, (curve, result.car.name)))
+    files = render_figures(jobs, fmt, dpi, processes)
+    return {f"{name}.{fmt}": data for name, data in zip(names, files, strict=True)}
 
 
 def lap_figures_png(result: LapResult, dpi: int = 110) -> dict[str, bytes]:
@@ -864,7 +1015,7 @@ def lap_figures_png(result: LapResult, dpi: int = 110) -> dict[str, bytes]:
     dict of str -> bytes
         File name (``<figure>.png``) -> PNG contents. [-]
     """
-    return {f"{name}.png": figure_png(fn(result), dpi) for name, (fn, _) in LAP_FIGURES.items()}
+    return lap_figures(result, "png", dpi)
 
 
 # --------------------------------------------------------------------------------------------
@@ -930,11 +1081,11 @@ def track_curvature_figure(track) -> Figure:
     matplotlib.figure.Figure
         The figure. [-]
     """
-    fig = _figure(7.0, 3.2)
+    fig = _figure(7.0, 3.2, left=0.75, right=0.6, bottom=0.5, top=0.3)
     ax = fig.add_subplot(1, 1, 1)
     draw_track_curvature(ax, track)
     noise = getattr(track, "noise_m", float("nan"))
     how = "given" if getattr(track, "noise_given", False) else "estimated"
-    ax.set_title(_plain(f"{track.name}: curvature; position noise {noise * 1000:.0f} mm "
-                        f"({how})"), fontsize=9)
+    _title(ax, _plain(f"{track.name}: curvature; position noise {noise * 1000:.0f} mm "
+                      f"({how})"), 9)
     return fig

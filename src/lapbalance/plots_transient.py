@@ -14,7 +14,16 @@ from collections.abc import Sequence
 import numpy as np
 from matplotlib.figure import Figure
 
-from lapbalance.plots import PALETTE, SEQUENTIAL, SERIES, _figure, _plain, _styled, figure_png
+from lapbalance.plots import (
+    PALETTE,
+    SEQUENTIAL,
+    SERIES,
+    _figure,
+    _plain,
+    _styled,
+    _suptitle,
+    figure_png,
+)
 
 
 def _runs_colours(n: int):
@@ -26,7 +35,7 @@ def histories_figure(sweep, car_name: str = "") -> Figure:
     """Time histories of every run at one radius: yaw-rate ratio r/r_ref, sideslip change,
     lateral acceleration and rear usage after the lift, one line per initial a_y0.
     """
-    fig = _figure(9.0, 6.2)
+    fig = _figure(9.0, 6.2, left=0.8, bottom=0.5, top=0.4, rows=2, cols=2)
     axs = fig.subplots(2, 2, sharex=True)
     cols = _runs_colours(len(sweep.runs))
     for run, c in zip(sweep.runs, cols, strict=True):
@@ -52,8 +61,8 @@ def histories_figure(sweep, car_name: str = "") -> Figure:
         ax.set_xlabel("time after the lift [s]")
     if sweep.runs:
         axs[0, 0].legend(title="a_y0 [m/s²]", ncol=2, fontsize=7, title_fontsize=7)
-    fig.suptitle(_plain(f"{car_name} — power-off in a turn, R = {sweep.radius_m:g} m "
-                        "(constant-radius method, wheel held)"))
+    _suptitle(fig, _plain(f"{car_name} — power-off in a turn, R = {sweep.radius_m:g} m "
+                          "(constant-radius method, wheel held)"), 12.0)
     return fig
 
 
@@ -61,7 +70,7 @@ def histories_figure(sweep, car_name: str = "") -> Figure:
 def figures_figure(sweeps: Sequence, car_name: str = "") -> Figure:
     """The run figures against the initial lateral acceleration a_y0, one line per radius
     (the way ISO 9816 results are read); spins marked with a cross."""
-    fig = _figure(9.0, 6.2)
+    fig = _figure(9.0, 6.2, left=0.8, bottom=0.5, top=0.4, rows=2, cols=2)
     axs = fig.subplots(2, 2, sharex=True)
     panels = [("yaw_rate_ratio", "yaw-rate ratio at t0+1 s [-]", 1.0),
               ("sideslip_change_deg", "sideslip change at t0+1 s [deg]", 0.0),
@@ -89,8 +98,8 @@ def figures_figure(sweeps: Sequence, car_name: str = "") -> Figure:
     for ax in axs[1]:
         ax.set_xlabel("initial lateral acceleration a_y0 [m/s²]")
     axs[0, 0].legend()
-    fig.suptitle(_plain(f"{car_name} — lift-off figures against a_y0 (X = spin; dotted = "
-                        "steady limit)"))
+    _suptitle(fig, _plain(f"{car_name} — lift-off figures against a_y0 (X = spin; dotted = "
+                          "steady limit)"), 12.0)
     return fig
 
 

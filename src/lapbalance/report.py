@@ -13,6 +13,8 @@ import base64
 import datetime as _dt
 import html
 import math
+import re
+import secrets
 from collections.abc import Sequence
 from pathlib import Path
 
@@ -148,10 +150,37 @@ def _table(header: Sequence[str], rows: Sequence[Sequence[str]],
     return "\n".join(out)
 
 
-def _img(png: bytes, alt: str, caption: str) -> str:
-    data = base64.b64encode(png).decode("ascii")
+def _img(png, alt: str, caption: str) -> str:
+    """``<figure>`` of a PNG: its bytes, or a placeholder of :class:`_Figures`."""
+    data = png if isinstance(png, str) else base64.b64encode(png).decode("ascii")
     return (f'<figure><img alt="{_e(alt)}" src="data:image/png;base64,{data}">'
             f"<figcaption>{_e(caption)}</figcaption></figure>")
+
+
+class _Figures:
+    """The figures of one document: recorded while the HTML is written, with a placeholder
+    in their place, then drawn together (:func:`lapbalance.plots.render_figures`, on every
+    core) and filled in. The placeholder carries a random key, so no input text can match it.
+    """
+
+    def __init__(self, dpi: int, processes: int | None = None):
+        self.dpi = dpi
+        self.processes = processes
+        self.jobs: list[tuple] = []
+        self._key = secrets.token_hex(12)
+
+    def add(self, fn, *args) -> str:
+        """Record figure ``fn(*args)``; returns its placeholder. [-]"""
+        self.jobs.append((fn, args))
+        return f"@@figure-{self._key}-{len(self.jobs) - 1}@@"
+
+    def fill(self, doc: str) -> str:
+        """``doc`` with every placeholder replaced by its base64 PNG. [-]"""
+        if not self.jobs:
+            return doc
+        pngs = plots.render_figures(self.jobs, "png", self.dpi, self.processes)
+        data = [base64.b64encode(p).decode("ascii") for p in pngs]
+        return re.sub(f"@@figure-{self._key}-([0-9]+)@@", lambda m: data[int(m.group(1))], doc)
 
 
 def _labels(results: Sequence[LapResult], labels: Sequence[str] | None) -> list[str]:
@@ -308,7 +337,7 @@ def _verdict_cell(c: dict) -> tuple[str, str]:
     return _e(v), cls
 
 
-def _corner_section(result: LapResult, dpi: int = 100, disp=None) -> str:
+def _corner_section(result: LapResult, figs: _Figures, disp=None) -> str:
     from lapbalance.units import METRIC
 
     d = disp or METRIC
@@ -346,7 +375,7 @@ def _corner_section(result: LapResult, dpi: int = 100, disp=None) -> str:
               "limit (&lt; 0: the rear saturates); balance = u_r − u_f at the slowest point "
               "(&gt; 0 oversteer-leaning); worst shift = largest change of the balance index "
               "on lift-off at the lap's own state.</p>")
-    return (table + "\n" + legend + "\n" + _verdict_legend() + "\n" + _response(result, dpi)
+    return (table + "\n" + legend + "\n" + _verdict_legend() + "\n" + _response(result, figs)
             + "\n" + _worst_steps(result, d) + "\n" + _runs_section(result, d))
 
 
@@ -418,11 +447,11 @@ def _compare_runs_section(results: Sequence[LapResult], labels: Sequence[str], d
             + _table(head, rows) + f'\n<p class="note">{_RUNS_NOTE}</p>')
 
 
-def _response(result: LapResult, dpi: int) -> str:
+def _response(result: LapResult, figs: _Figures) -> str:
     curve = corner_response(result)
     if curve is None or curve.columns["ay_initial_mps2"].size == 0:
         return ""
-    png = plots.figure_png(plots.liftoff_response_figure(curve, result.car.name), dpi)
+    png = figs.add(plots.liftoff_response_figure, curve, result.car.name)
     return ("<h3>Lift-off response of the tightest corner</h3>\n"
             + _img(png, f"lift-off response: corner {curve.corner_id}",
                    f"Corner {curve.corner_id}: steady turns at its apex radius "
@@ -467,15 +496,15 @@ def _worst_steps(result: LapResult, d=None) -> str:
                      text_cols=(0, 2), cell_classes=classes))
 
 
-def _figures(result: LapResult, dpi: int) -> str:
+def _figures(result: LapResult, figs: _Figures) -> str:
     out = []
     for name, (fn, caption) in plots.LAP_FIGURES.items():
-        png = plots.figure_png(fn(result), dpi)
+        png = figs.add(fn, result)
         out.append(_img(png, f"{name.replace('_', ' ')}: {result.car.name}", caption))
     return "\n".join(out)
 
 
-def _comparison_section(results: Sequence[LapResult], labels: Sequence[str], dpi: int,
+def _comparison_section(results: Sequence[LapResult], labels: Sequence[str], figs: _Figures,
                         disp=None) -> str:
     from lapbalance.units import METRIC
 
@@ -542,11 +571,11 @@ def _comparison_section(results: Sequence[LapResult], labels: Sequence[str], dpi
         parts += ["<h3>Corners</h3>", _table(head, crow, text_cols=(0,) + vcols,
                                              cell_classes=ccls)]
     parts.append(_compare_runs_section(results, labels, d))
-    parts.append(_img(plots.figure_png(plots.overlay_figure(results, labels), dpi),
+    parts.append(_img(figs.add(plots.overlay_figure, results, labels),
                       "speed and balance overlay", "Speed and balance index of every "
                       "variant over distance."))
     for r, lab in zip(results[1:], labels[1:], strict=True):
-        parts.append(_img(plots.figure_png(plots.delta_figure(base, r, [labels[0], lab]), dpi),
+        parts.append(_img(figs.add(plots.delta_figure, base, r, [labels[0], lab]),
                           f"time delta {lab}", f"Time delta of {lab} against {labels[0]} "
                           "over distance, and where on the track it grows (red) or shrinks "
                           "(blue)."))
@@ -559,7 +588,8 @@ def _delta(x, base):
 
 def build_report(results: Sequence[LapResult] | LapResult, labels: Sequence[str] | None = None,
                  dpi: int = 100, generated: str | None = None, *, units: str = "metric",
-                 provenance: dict | None = None, correlation=None) -> str:
+                 provenance: dict | None = None, correlation=None,
+                 processes: int | None = None) -> str:
     """Build the HTML report of one lap or of several variants.
 
     Parameters
@@ -581,6 +611,9 @@ def build_report(results: Sequence[LapResult] | LapResult, labels: Sequence[str]
     correlation : Correlation, optional
         A correlation with a logged lap (:func:`lapbalance.correlate.correlate`); adds the
         section of :func:`correlation_section`. [-]
+    processes : int, optional
+        Processes that draw the figures (default: one per core, up to four; 1 draws them in
+        this process). The document is the same for any number. [-]
 
     Returns
     -------
@@ -623,28 +656,29 @@ def build_report(results: Sequence[LapResult] | LapResult, labels: Sequence[str]
     nav.append("</ul></nav>")
     body = [f"<h1>{_e(title)}</h1>", f'<p class="meta">{_e(meta)}</p>',
             f'<div class="caution" role="note">{_e(CAUTION)}</div>', "\n".join(nav)]
+    figs = _Figures(dpi, processes)
     if len(results) > 1:
-        body.append(_comparison_section(results, labels, dpi, disp))
+        body.append(_comparison_section(results, labels, figs, disp))
     for j, (r, lab) in enumerate(zip(results, labels, strict=True)):
         body += [f'<h2 id="lap-{j + 1}">{_e(lab)}</h2>', "<h3>Summary</h3>",
                  _summary_section(r, disp)]
         if len(results) == 1:
             body.append(_setup_section([r], [lab]))
         body += ["<h3>Corners and lift-off check</h3>",
-                 _corner_section(r, dpi, disp), "<h3>Figures</h3>", _figures(r, dpi)]
+                 _corner_section(r, figs, disp), "<h3>Figures</h3>", _figures(r, figs)]
     if correlation is not None:
-        body.append(correlation_section(correlation, dpi))
+        body.append(correlation_section(correlation, dpi, _figs=figs))
     body.append('<h2 id="assumptions">Assumptions and limits</h2>')
     body.append('<ul class="assumptions">' + "".join(f"<li>{_e(a)}</li>" for a in ASSUMPTIONS)
                 + "</ul>")
     body.append(_provenance_section(provenance))
     body.append(f"<footer>{_e(CAUTION)}</footer>")
-    return ("<!DOCTYPE html>\n"
-            '<html lang="en">\n<head>\n<meta charset="utf-8">\n'
-            '<meta name="viewport" content="width=device-width, initial-scale=1">\n'
-            f'<meta name="generator" content="lapbalance {_e(__version__)}">\n'
-            f"<title>{_e(title)}</title>\n<style>{_css()}</style>\n</head>\n<body>\n"
-            + "\n".join(body) + "\n</body>\n</html>\n")
+    return figs.fill("<!DOCTYPE html>\n"
+                     '<html lang="en">\n<head>\n<meta charset="utf-8">\n'
+                     '<meta name="viewport" content="width=device-width, initial-scale=1">\n'
+                     f'<meta name="generator" content="lapbalance {_e(__version__)}">\n'
+                     f"<title>{_e(title)}</title>\n<style>{_css()}</style>\n</head>\n"
+                     "<body>\n" + "\n".join(body) + "\n</body>\n</html>\n")
 
 
 def write_report(results: Sequence[LapResult] | LapResult, path: str | Path, force: bool = False,
@@ -684,7 +718,7 @@ def write_report(results: Sequence[LapResult] | LapResult, path: str | Path, for
 
 
 
-def correlation_section(corr, dpi: int = 100) -> str:
+def correlation_section(corr, dpi: int = 100, *, _figs: _Figures | None = None) -> str:
     """HTML section of a correlation with a logged lap (self-contained fragment).
 
     Parameters
@@ -747,8 +781,10 @@ def correlation_section(corr, dpi: int = 100) -> str:
                      f"{f.weights['straight']:g}); residual RMS {f.residual_rms_kph:.2f} km/h; "
                      "confidence from s²(JᵀJ)⁻¹. Every other car value is taken as right, so "
                      "an error elsewhere shows up as a biased factor.</p>")
-    parts.append(_img(plots.figure_png(correlation_figure(corr), dpi), "correlation with the "
+    figs = _figs if _figs is not None else _Figures(dpi, processes=1)
+    parts.append(_img(figs.add(correlation_figure, corr), "correlation with the "
                       "log", "Speed over distance (log, model, fitted model), time delta "
                       "log − model (rising where the model gains on the car), and model − log "
                       "speed per corner and straight."))
-    return "\n".join(parts)
+    doc = "\n".join(parts)
+    return doc if _figs is not None else figs.fill(doc)

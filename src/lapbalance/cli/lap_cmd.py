@@ -315,11 +315,7 @@ def lap_command(car_file, track_file, out_dir, overrides, as_json, force, step_m
                 from lapbalance import plots as _plots
 
                 extra.update(_plots.lap_figures(result, fmt=plot_format,
-                                                map_channel=map_channel))
-                if curve is not None:
-                    fig = _plots.liftoff_response_figure(curve, result.car.name)
-                    extra[f"liftoff_response.{plot_format}"] = _plots.figure_bytes(
-                        fig, plot_format)
+                                                map_channel=map_channel, curve=curve))
             write_lap_files(result, folder.staging, extra)
     if as_json:
         out = lap_json(result)
