@@ -10,7 +10,13 @@ import pytest
 
 from lapbalance import forkpool
 
-pytestmark = pytest.mark.skipif(not forkpool.can_fork(), reason="needs fork()")
+
+@pytest.fixture(autouse=True)
+def _fork_possible():
+    # checked when each test runs: a test earlier in the session may have started numba's
+    # thread pool (a parallel kernel), after which this process must not fork
+    if not forkpool.can_fork():
+        pytest.skip("fork is not safe in this process (not Linux, or numba's threads run)")
 
 
 def _square(i, pause=0.0):
@@ -70,3 +76,14 @@ def test_default_processes_follow_cores_and_task_count():
     assert forkpool.default_processes(1) == 1
     assert 1 <= forkpool.default_processes(100) <= min(forkpool.cores(), forkpool.MAX_PROCESSES)
     assert forkpool.default_processes(4, min_per_process=2) <= 2
+
+
+def test_no_copies_once_numba_threads_started(monkeypatch):
+    class _Started:
+        _is_initialized = True
+
+    monkeypatch.setitem(__import__("sys").modules, "numba.np.ufunc.parallel", _Started)
+    assert not forkpool.can_fork()
+    out = forkpool.run([_square(i) for i in range(6)], processes=3)
+    assert {pid for _, pid in out} == {os.getpid()}  # all ran here
+    assert [v for v, _ in out] == [i * i for i in range(6)]

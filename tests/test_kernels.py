@@ -99,8 +99,8 @@ def test_warm_started_corner_limits_equal_independent_searches():
     p, gears, trpm, tnm = car_parameters(car)
     vcap = car.powertrain.top_speed_rev_limited()
     k, g, b = tr.curvature_1pm, tr.grade_rad, tr.bank_rad
-    warm = K.corner_limits(k, g, b, vcap, p, 1e-3, 1)
-    chunked = K.corner_limits(k, g, b, vcap, p, 1e-3, 7)
+    warm = K.corner_limits_serial(k, g, b, vcap, p, 1e-3, 1)
+    chunked = K.corner_limits_serial(k, g, b, vcap, p, 1e-3, 7)
     out = np.empty(K.NOUT)
     for i in range(0, len(k), 25):
         cold = K.corner_limit(k[i], g[i], b[i], 0.0, 0.0, vcap, p, out, 1e-3)

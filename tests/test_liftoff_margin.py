@@ -266,10 +266,10 @@ def test_margin_kernel_compiled_equals_python():
     k = np.full(40, 1 / 90.0)
     k[20:] = 1 / 140.0
     z = np.zeros(40)
-    vlim = K.corner_limits(k, z, z, 90.0, p, 1e-3, 1)
+    vlim = K.corner_limits_serial(k, z, z, 90.0, p, 1e-3, 1)
     checked = np.ones(40)
     checked[5] = 0.0
-    a = K.liftoff_margins(k, z, z, vlim, checked, p, gears, 5e-4, 2)
+    a = K.liftoff_margins_serial(k, z, z, vlim, checked, p, gears, 5e-4, 2)
     b = K.liftoff_margins.py_func(k, z, z, vlim, checked, p, gears, 5e-4, 2)
     np.testing.assert_allclose(a, b, rtol=1e-12, atol=1e-12)
     assert np.all(np.isnan(a[5])) and np.isfinite(a[6]).all()
@@ -281,8 +281,8 @@ def test_warm_started_margins_equal_a_cold_search():
     p, gears, trpm, tnm = car_parameters(car)
     k = np.linspace(1 / 200.0, 1 / 60.0, 60)
     z = np.zeros(60)
-    vlim = K.corner_limits(k, z, z, 90.0, p, 1e-3, 1)
-    warm = K.liftoff_margins(k, z, z, vlim, np.ones(60), p, gears, 5e-4, 1)
+    vlim = K.corner_limits_serial(k, z, z, 90.0, p, 1e-3, 1)
+    warm = K.liftoff_margins_serial(k, z, z, vlim, np.ones(60), p, gears, 5e-4, 1)
     out = np.empty(K.NOUT)
     for i in range(0, 60, 7):
         vs, _ = K.liftoff_safe_speed(k[i], 0.0, 0.0, vlim[i], 0.0, 0, p, gears,

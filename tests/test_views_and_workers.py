@@ -92,9 +92,16 @@ def test_a_lap_leaves_the_parameter_arrays_reference_counts_alone():
     assert [sys.getrefcount(x) for x in arrays] == counts
 
 
-@pytest.mark.parametrize("car_name", ["gt_coupe.toml", "single_seater_mapped.toml"])
-def test_serial_twins_give_the_parallel_kernels_numbers_bit_for_bit(car_name):
-    car = load_car(ROOT / "examples" / car_name)
+_TWINS_SCRIPT = textwrap.dedent("""
+    import math, sys
+    import numpy as np
+    sys.path.insert(0, {root!r})
+    from lapbalance import kernels as K
+    from lapbalance import lap as L
+    from lapbalance.car import load_car
+    from tests.helpers import wavy_circuit
+
+    car = load_car({car!r})
     tr = wavy_circuit(2000.0, 1.0, seed=11)
     p, gears, trpm, tnm = L.car_parameters(car)
     kappa = np.ascontiguousarray(tr.curvature_1pm)
@@ -103,19 +110,31 @@ def test_serial_twins_give_the_parallel_kernels_numbers_bit_for_bit(car_name):
     a = K.corner_limits(kappa, z, z, vcap, p, L.SPEED_TOL, 8)
     b = K.corner_limits_serial(kappa, z, z, vcap, p, L.SPEED_TOL, 8)
     np.testing.assert_array_equal(a, b)
-    v = K.speed_passes(kappa, z, z, a, 1.0, 0.0, math.nan, p, gears, trpm, tnm,
-                       L.FORCE_TOL)
-    fa = K.final_pass(v, kappa, z, z, 1.0, math.nan, vcap, p, gears, trpm, tnm,
-                      L.FORCE_TOL, L.LIFTOFF_AY_THRESHOLD)
-    fb = K.final_pass_serial(v, kappa, z, z, 1.0, math.nan, vcap, p, gears, trpm, tnm,
-                             L.FORCE_TOL, L.LIFTOFF_AY_THRESHOLD)
+    v = K.speed_passes(kappa, z, z, a, 1.0, 0.0, math.nan, p, gears, trpm, tnm, L.FORCE_TOL)
+    args = (v, kappa, z, z, 1.0, math.nan, vcap, p, gears, trpm, tnm, L.FORCE_TOL,
+            L.LIFTOFF_AY_THRESHOLD)
+    fa = K.final_pass(*args)
+    fb = K.final_pass_serial(*args)
     np.testing.assert_array_equal(fa, fb)
     checked = np.ascontiguousarray(fa[:, K.NOUT + 6])
     ma = K.liftoff_margins(kappa, z, z, a, checked, p, gears, L.MARGIN_TOL, 8)
-    mb = K.liftoff_margins_serial(kappa, z, z, a, checked, p, gears, L.MARGIN_TOL,
-                                  8)
+    mb = K.liftoff_margins_serial(kappa, z, z, a, checked, p, gears, L.MARGIN_TOL, 8)
     np.testing.assert_array_equal(ma, mb)
     assert np.isfinite(ma[:, K.M_LAMBDA]).sum() > 10  # the check ran somewhere
+    print("same")
+""")
+
+
+@pytest.mark.parametrize("car_name", ["gt_coupe.toml", "single_seater_mapped.toml"])
+def test_serial_twins_give_the_parallel_kernels_numbers_bit_for_bit(car_name, tmp_path):
+    # in a fresh process: the parallel kernels start numba's thread pool, after which the
+    # test process could no longer fork (forkpool, sweep workers)
+    script = tmp_path / "twins.py"
+    script.write_text(_TWINS_SCRIPT.format(root=str(ROOT), car=str(ROOT / "examples" / car_name)))
+    r = subprocess.run([sys.executable, str(script)], capture_output=True, text=True,
+                       timeout=900, cwd=tmp_path)
+    assert r.returncode == 0, r.stderr[-3000:]
+    assert r.stdout.strip().splitlines()[-1] == "same"
 
 
 _FORK_SCRIPT = textwrap.dedent("""

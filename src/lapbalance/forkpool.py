@@ -12,9 +12,9 @@ not returned (it failed, was killed, or did not answer in time) is run again in 
 process, so the results never depend on the copies: an error is raised there as it would be
 without them.
 
-Copies are made only where ``fork`` exists (Linux and other POSIX systems; not Windows). The
-copies run nothing but the tasks (figure drawing with matplotlib), never a numba kernel or a
-lock of another thread, so forking while numba's idle worker threads exist is safe here.
+Copies are made only where :func:`can_fork` says a fork is safe (Linux, one Python thread,
+numba's thread pool not started); elsewhere every task runs in the calling process. The copies
+run nothing but the tasks (figure drawing with matplotlib).
 """
 
 from __future__ import annotations
@@ -22,7 +22,6 @@ from __future__ import annotations
 import multiprocessing
 import os
 import sys
-import warnings
 from collections.abc import Callable, Sequence
 
 #: Longest wait [s] for a copy's results after the calling process has run out of tasks.
@@ -41,8 +40,21 @@ def cores() -> int:
 
 
 def can_fork() -> bool:
-    """True where tasks can run in forked copies of the process. [-]"""
-    return sys.platform != "win32" and "fork" in multiprocessing.get_all_start_methods()
+    """True when this process may fork copies of itself [-]: on Linux, with no other Python
+    thread running and numba's thread pool not started. (GNU OpenMP, one of numba's
+    threading layers, aborts a child forked after the parent used it; the lap solver starts
+    that pool only for long laps on machines with many cores, see
+    :func:`lapbalance.lap.solver_threads`. Other systems' fork is not safe with every GUI or
+    system framework a plotting library may have loaded.) Sweep workers use the same test."""
+    import threading
+
+    if not sys.platform.startswith("linux") or "fork" not in \
+            multiprocessing.get_all_start_methods():
+        return False
+    if threading.active_count() > 1:
+        return False
+    par = sys.modules.get("numba.np.ufunc.parallel")
+    return par is None or getattr(par, "_is_initialized", True) is False
 
 
 def default_processes(n_tasks: int, min_per_process: int = 2) -> int:
@@ -102,17 +114,12 @@ def run(tasks: Sequence[Callable[[], object]], processes: int | None = None) -> 
     counter = ctx.RawValue("l", 0)
     lock = ctx.Lock()
     copies = []
-    with warnings.catch_warnings():
-        # Python 3.12+ warns about fork() while other threads (numba's idle workers) exist;
-        # the copies run only the tasks (see the module docstring)
-        warnings.filterwarnings("ignore", message=r".*use of fork\(\) may lead to deadlocks",
-                                category=DeprecationWarning)
-        for _ in range(procs - 1):
-            recv, send = ctx.Pipe(duplex=False)
-            p = ctx.Process(target=_copy_main, args=(tasks, counter, lock, send), daemon=True)
-            p.start()
-            send.close()
-            copies.append((p, recv))
+    for _ in range(procs - 1):
+        recv, send = ctx.Pipe(duplex=False)
+        p = ctx.Process(target=_copy_main, args=(tasks, counter, lock, send), daemon=True)
+        p.start()
+        send.close()
+        copies.append((p, recv))
     results: dict[int, object] = {}
     try:
         while (i := _claim(counter, lock)) < n:

@@ -671,19 +671,11 @@ def _sweep_run(points, done, log, header, base_id, progress, cluster, workers, r
 
 def fork_is_safe() -> bool:
     """True when sweep workers may be forked from this process: on Linux, with no other
-    Python thread running and numba's thread pool not started (GNU OpenMP, one of numba's
-    threading layers, aborts a forked child once the parent has used it). The lap solver
-    starts that pool only for long laps on machines with many cores
-    (:func:`lapbalance.lap.solver_threads`); otherwise workers come from a fork server."""
-    import multiprocessing as mp
-    import threading
+    Python thread running and numba's thread pool not started
+    (:func:`lapbalance.forkpool.can_fork`); otherwise workers come from a fork server."""
+    from lapbalance.forkpool import can_fork
 
-    if not sys.platform.startswith("linux") or "fork" not in mp.get_all_start_methods():
-        return False
-    if threading.active_count() > 1:
-        return False
-    par = sys.modules.get("numba.np.ufunc.parallel")
-    return par is None or getattr(par, "_is_initialized", True) is False
+    return can_fork()
 
 
 def _run_pool(workers, raw, source, track, todo, options, record) -> None:
