@@ -26,6 +26,9 @@ Rows (``--only`` takes a comma-separated subset of the keys in brackets):
 * [cli] ``lapbalance lap`` whole process with a warm cache (wall and CPU time).
 * [demo] ``lapbalance demo`` whole process with a warm cache (wall and CPU time).
 
+Every row runs in a fresh process (as a user's command would: a row that sets numba's thread
+count starts its thread pool, and a process that has done so no longer forks sweep workers).
+
 The machine may be shared: compare ratios measured in one run, and the instruction-free
 counts (evaluations per step), rather than absolute times across runs.
 """
@@ -307,31 +310,28 @@ def main():
     ap.add_argument("--repeats", type=int, default=15)
     ap.add_argument("--points", type=int, default=200, help="points of the [sweep] row")
     ap.add_argument("--json", help="also write the figures to this JSON file")
+    ap.add_argument("--child", help=argparse.SUPPRESS)  # one row, in this process
     args = ap.parse_args()
+    if args.child:
+        res = {}
+        _row(args.child, res, args)
+        print(json.dumps(res))
+        return
     only = [s.strip() for s in args.only.split(",") if s.strip()]
+    for key in only:
+        if key not in ROWS:
+            raise SystemExit(f"unknown row {key!r}; choose from {', '.join(ROWS)}")
     res: dict = {"cores": os.cpu_count(), "load_average_1min": os.getloadavg()[0]}
     for key in only:
+        # every row in a fresh process: a row that sets numba's thread count starts its
+        # thread pool, after which a sweep could not fork its workers as a user's sweep does
         t0 = time.perf_counter()
-        if key == "lap":
-            row_lap(res, args.repeats)
-        elif key == "evals":
-            row_evals(res)
-        elif key == "map":
-            row_map(res, args.repeats)
-        elif key == "threads":
-            row_threads(res, args.repeats)
-        elif key == "sweep":
-            row_sweep(res, args.points)
-        elif key == "dask":
-            row_dask(res)
-        elif key == "cold":
-            row_cold(res)
-        elif key == "cli":
-            row_cli(res)
-        elif key == "demo":
-            row_demo(res)
-        else:
-            raise SystemExit(f"unknown row {key!r}; choose from {', '.join(ROWS)}")
+        r = subprocess.run([sys.executable, str(Path(__file__).resolve()), "--child", key,
+                            "--repeats", str(args.repeats), "--points", str(args.points)],
+                           capture_output=True, text=True, env=ENV, cwd=ROOT)
+        if r.returncode != 0:
+            raise SystemExit(f"row {key} failed:\n{r.stderr[-3000:]}")
+        res.update(json.loads(r.stdout.strip().splitlines()[-1]))
         print(f"[{key} done in {time.perf_counter() - t0:.1f} s]", file=sys.stderr)
     res["load_average_1min_end"] = os.getloadavg()[0]
     width = max(len(k) for k in res)
@@ -339,6 +339,17 @@ def main():
         print(f"{k:{width}s}  {v:.3f}" if isinstance(v, float) else f"{k:{width}s}  {v}")
     if args.json:
         Path(args.json).write_text(json.dumps(res, indent=1) + "\n")
+
+
+def _row(key, res, args):
+    """Run row ``key`` in this process, filling ``res``."""
+    rows = {"lap": lambda: row_lap(res, args.repeats), "evals": lambda: row_evals(res),
+            "map": lambda: row_map(res, args.repeats),
+            "threads": lambda: row_threads(res, args.repeats),
+            "sweep": lambda: row_sweep(res, args.points), "dask": lambda: row_dask(res),
+            "cold": lambda: row_cold(res), "cli": lambda: row_cli(res),
+            "demo": lambda: row_demo(res)}
+    rows[key]()
 
 
 if __name__ == "__main__":
