@@ -205,17 +205,34 @@ def columns_csv_text(columns: Mapping[str, Sequence], float_fmt: str = "{:.6g}",
     """Render a mapping of equal-length columns as CSV text (non-finite floats as ``nan``)."""
     names = list(columns)
     n = len(columns[names[0]]) if names else 0
+    fmt = float_fmt.format
+    special = re.compile(r'[,"\r\n]')
+    # floats formatted this way never need quoting unless the format or the NaN text does
+    floats_plain = not special.search(fmt(-1234567.891) + fmt(float("inf")) + nan)
     cols = []
+    plain = len(names) > 1 and not any(special.search(v) for v in names)
     for name in names:
         col = columns[name]
+        dtype = getattr(col, "dtype", None)
+        if dtype is not None and dtype.kind == "f" and getattr(col, "ndim", 0) == 1:
+            # the common case, a float channel: one conversion to Python floats, no per-value
+            # type checks (the same text as below)
+            cols.append([fmt(f) if f == f else nan for f in col.tolist()])
+            plain = plain and floats_plain
+            continue
         out = []
         for v in col:
             if isinstance(v, float) or hasattr(v, "dtype") and getattr(v.dtype, "kind", "") == "f":
                 f = float(v)
-                out.append(float_fmt.format(f) if f == f else nan)
+                out.append(fmt(f) if f == f else nan)
             else:
                 out.append(str(v))
+        plain = plain and not any(special.search(v) for v in out)
         cols.append(out)
+    if plain:
+        # nothing to quote (and more than one column, so no row is a lone empty cell): the
+        # text csv.writer would write, joined directly
+        return "\n".join([",".join(names), *(",".join(r) for r in zip(*cols))]) + "\n"
     rows = ([c[i] for c in cols] for i in range(n))
     return csv_text(names, rows)
 
