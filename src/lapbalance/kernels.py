@@ -1498,10 +1498,18 @@ def lift_state(v, kappa, grade, bank, coast, p, gears, out):
     return state_warm(v, kappa, grade, bank, -fo, 0.0, p, out)
 
 
+@njit(cache=True, error_model="numpy")
+def lift_usage(v, kappa, grade, bank, coast, p, gears, out):
+    """Lean :func:`lift_state` for the margin searches: the same lift, evaluated by
+    :func:`state_usage` (usages, a_x, downforce, status and ride heights only)."""
+    fo = 0.0 if coast != 0 else overrun_force(v, p, gears)
+    return state_usage(v, kappa, grade, bank, -fo, 0.0, p, out)
+
+
 @njit(cache=True, inline="always")
 def _g_lift(v, kappa, grade, bank, coast, p, gears, out):
     """Rear usage excess u_r - 1 after a lift at v [m/s]; BIG when an axle unloads."""
-    st = lift_state(v, kappa, grade, bank, coast, p, gears, out)
+    st = lift_usage(v, kappa, grade, bank, coast, p, gears, out)
     if st != 0:
         return BIG
     return out[O_UR] - 1.0
