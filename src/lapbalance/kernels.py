@@ -1194,6 +1194,19 @@ def max_decel_control(v, kappa, grade, bank, p, out, ftol, hint=math.nan):
                              out, ftol)
 
 
+@njit(cache=True, inline="always", error_model="numpy")
+def _extrapolate(h1, h2, h3):
+    """Next value of a smooth sequence from its last three (h1 newest; NaN = missing):
+    quadratic when three are known and the quadratic term is small, else linear, else h1."""
+    if math.isnan(h2):
+        return h1
+    lin = 2.0 * h1 - h2
+    if math.isnan(h3):
+        return lin
+    quad = 3.0 * h1 - 3.0 * h2 + h3
+    return quad if abs(quad - lin) < 0.5 * abs(h1 - h2) else lin
+
+
 @njit(cache=True, error_model="numpy")
 def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, tnm, ftol):
     """Forward (acceleration) and backward (braking) passes; returns the speed trace [m/s].
@@ -1211,8 +1224,9 @@ def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, t
     m = p[P_MASS]
     vf = np.empty(n)
     vf[0] = vlim[0] if math.isnan(v_start) else min(v_start, vlim[0])
-    hint = math.nan  # the last drive search's result [N] and the one before it
+    hint = math.nan  # the last drive search's result [N] and the two before it
     hint2 = math.nan
+    hint3 = math.nan
     last = -10  # step of the last search
     slope = math.nan  # d(usage)/dF at the last search's result [1/N]
     for i in range(n - 1):
@@ -1228,7 +1242,7 @@ def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, t
                 continue
         if last == i - 1 and not math.isnan(hint):
             # warm start: extrapolate the neighbouring searches, with small search steps
-            guess = hint if math.isnan(hint2) else 2.0 * hint - hint2
+            guess = _extrapolate(hint, hint2, hint3)
             d = 0.5 * abs(hint - hint2) if not math.isnan(hint2) else 0.005 * m * G
             d = d if d > 4.0 * ftol else 4.0 * ftol
             fs = _resistance_nomap(vi, kappa[i], grade[i], bank[i], p)
@@ -1245,11 +1259,13 @@ def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, t
             if math.isnan(F):
                 F = _max_accel_feng(vi, kappa[i], grade[i], bank[i], feng, p, out,
                                     ftol, guess, d, d)
+            hint3 = hint2
             hint2 = hint
         else:
             F = _max_accel_feng(vi, kappa[i], grade[i], bank[i], feng, p, out,
                                 ftol, math.nan, 0.005 * m * G, 0.02 * m * G)
             hint2 = math.nan
+            hint3 = math.nan
         if math.isnan(slope):
             slope = 1.0 / (p[P_MUXR] * (m * G + abs(out[O_DOWNF])))  # about 1 / grip
         hint = F
@@ -1262,6 +1278,7 @@ def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, t
     vb[n - 1] = vlim[n - 1] if math.isnan(v_end) else min(v_end, vlim[n - 1])
     hint = math.nan
     hint2 = math.nan
+    hint3 = math.nan
     last = n + 10
     slope = math.nan
     for i in range(n - 2, -1, -1):
@@ -1279,7 +1296,7 @@ def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, t
         # v² = vnext² - 2 a_x(v, F) ds; a bracketed search over F on the grip boundary, warm-
         # started from the neighbouring steps' forces
         if last == i + 1 and not math.isnan(hint):
-            guess = hint if math.isnan(hint2) else 2.0 * hint - hint2
+            guess = _extrapolate(hint, hint2, hint3)
             d = 0.5 * abs(hint - hint2) if not math.isnan(hint2) else 0.005 * m * G
             d = d if d > 4.0 * ftol else 4.0 * ftol
             back = d
@@ -1303,6 +1320,7 @@ def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, t
                              back, step, -1.0, f_stop, p, out, ftol)
             slope = -1.0 / (p[P_MUXF] * (m * G + abs(out[O_DOWNF])))
         if not math.isnan(F):
+            hint3 = hint2 if last == i + 1 else math.nan
             hint2 = hint if last == i + 1 else math.nan
             hint = F
             last = i
