@@ -397,9 +397,9 @@ def _init_worker(raw, source, track, options, threads, parent_pid=None):
             pass
 
 
-def _pool_task(point):
-    return run_point(_WORKER["raw"], _WORKER["source"], _WORKER["track"], point,
-                     _WORKER["options"])
+def _pool_task(points):
+    return [run_point(_WORKER["raw"], _WORKER["source"], _WORKER["track"], point,
+                      _WORKER["options"]) for point in points]
 
 
 # --------------------------------------------------------------------------------------------
@@ -701,15 +701,19 @@ def _run_pool(workers, raw, source, track, todo, options, record) -> None:
     ex = ProcessPoolExecutor(max_workers=min(workers, len(todo)), mp_context=ctx,
                              initializer=_init_worker,
                              initargs=(raw, source, track, options, 1, os.getpid()))
-    pending = iter(todo)
+    # a few points per task (guided batches, as for Dask): one round trip through the pool
+    # costs this process about a millisecond, a lap not much more, and this process shares
+    # the cores with the workers
+    pending = iter(_guided_batches(todo, workers))
     running = set()
     try:
-        for p in itertools.islice(pending, 2 * workers):
-            running.add(ex.submit(_pool_task, p))
+        for b in itertools.islice(pending, 2 * workers):
+            running.add(ex.submit(_pool_task, b))
         while running:
             finished, running = wait(running, return_when=FIRST_COMPLETED)
             for f in finished:
-                record(f.result())
+                for row in f.result():
+                    record(row)
                 nxt = next(pending, None)
                 if nxt is not None:
                     running.add(ex.submit(_pool_task, nxt))

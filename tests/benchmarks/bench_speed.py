@@ -18,7 +18,9 @@ Rows (``--only`` takes a comma-separated subset of the keys in brackets):
 * [map] the aero-map car (examples/single_seater_mapped.toml) against the same car with
   constant coefficients (examples/single_seater.toml, whose static values the map matches).
 * [threads] 2 numba threads against 1 on the single wavy lap (same process, alternating).
-* [sweep] a sweep with 2 local workers against 1 worker (in-process), laps per second.
+* [sweep] a sweep with 2 local workers against 1 worker (in-process), laps per second;
+  beside it the machine's own 2-process scaling (two busy loops in two processes against
+  one), the ceiling of the ratio on a shared machine.
 * [dask] 200 points through a local 2-process Dask cluster (1 thread each) against the
   local 2-worker pool (cluster start-up excluded, pool start-up included).
 * [cold] the first-ever ``lapbalance lap`` with an empty numba cache: CPU time of the
@@ -240,6 +242,34 @@ def row_sweep(res, points):
     res["sweep_2_over_1"] = rate2 / rate1
     res["sweep_same_lap_times"] = all(a["lap_time_s"] == b["lap_time_s"]
                                       for a, b in zip(r1, r2, strict=True))
+    res["machine_2_over_1"] = _machine_scaling()
+
+
+def _busy(n=4_000_000):
+    s = 0
+    for i in range(n):
+        s += i * i
+    return s
+
+
+def _machine_scaling():
+    """The ceiling of any 2-process speed-up on this machine right now: two pure-Python busy
+    loops in two forked processes against the same two in one (a shared machine's second
+    core is not always a whole core)."""
+    import multiprocessing as mp
+
+    t0 = time.perf_counter()
+    _busy()
+    _busy()
+    serial = time.perf_counter() - t0
+    ctx = mp.get_context("fork")
+    ps = [ctx.Process(target=_busy) for _ in range(2)]
+    t0 = time.perf_counter()
+    for p in ps:
+        p.start()
+    for p in ps:
+        p.join()
+    return serial / (time.perf_counter() - t0)
 
 
 def row_dask(res, points=200):
