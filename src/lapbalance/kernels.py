@@ -756,7 +756,7 @@ def _brake_speed(vnext, ds, kappa, grade, bank, F, p, out, evaluate):
         r2 = (r - r0) / (v * v) if v > 1.0 else r2
         v2 = top / (1.0 - 2.0 * ds * r2 / m)
         vn = math.sqrt(v2) if v2 > 0.0 else 0.0
-        if abs(vn - v) <= 1e-10 * (1.0 + v):
+        if abs(vn - v) <= 1e-8 * (1.0 + v):
             break
         v = vn
     return v, st
