@@ -99,3 +99,29 @@ def test_cell_search_equals_bisection_on_uneven_grids(gaps, seed):
             ref = int(np.searchsorted(grid, x, side="right")) - 1
             assert i == ref
             assert t == (x - grid[i]) / (grid[i + 1] - grid[i])
+
+
+def test_in_cell_update_equals_a_fresh_lookup():
+    # Source: algebra of the bilinear patch (value + f_x dx + f_y dy + f_xy dx dy is exact
+    # inside one cell): the ride-height iteration updates the areas this way instead of a
+    # second lookup, so it must agree with the lookup to rounding.
+    car = load_car(ROOT / "examples" / "single_seater_mapped.toml")
+    p, gears, trpm, tnm = car_parameters(car)
+    rng = np.random.default_rng(5)
+    checked = 0
+    for _ in range(300):
+        x, y = rng.uniform(0.005, 0.055), rng.uniform(0.025, 0.095)
+        a = K.map_eval(p, x, y)
+        xlo, xhi, ylo, yhi = a[12:16]
+        if not (xlo < x < xhi and ylo < y < yhi):
+            continue
+        x2 = rng.uniform(xlo, xhi)
+        y2 = rng.uniform(ylo, yhi)
+        dx, dy = x2 - x, y2 - y
+        b = K.map_eval(p, x2, y2)
+        for k, (gx, gy, gxy) in enumerate(((3, 4, 9), (5, 6, 10), (7, 8, 11))):
+            pred = a[k] + a[gx] * dx + a[gy] * dy + a[gxy] * dx * dy
+            assert pred == pytest.approx(b[k], rel=1e-12, abs=1e-14)
+        assert a[3] + a[9] * dy == pytest.approx(b[3], rel=1e-10, abs=1e-12)  # d/dx moves
+        checked += 1
+    assert checked > 100

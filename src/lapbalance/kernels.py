@@ -125,7 +125,9 @@ O_CLAR = 34
 O_CDA = 35
 O_STATUS = 36
 O_MAPOUT = 37
-NOUT = 38
+O_SPEED = 38  # speed of the evaluation [m/s]
+O_CONTROL = 39  # net control force of the evaluation, drive minus brake [N]
+NOUT = 40
 
 # ---- limit codes ----------------------------------------------------------------------------
 LIM_NONE = 0
@@ -171,8 +173,12 @@ def map_lookup(p, k, x, y):
 @njit(cache=True, error_model="numpy")
 def map_eval(p, x, y):
     """All three map tables at ride heights (x front, y rear) [m] with one cell search:
-    (front area, rear area, drag area [m2], d front/dx, d front/dy, d rear/dx, d rear/dy
-    [m]); gradients zero outside the grid. The map is packed in ``p`` (:data:`MAP_NX`)."""
+    (front area, rear area, drag area [m2]; d front/dx, d front/dy, d rear/dx, d rear/dy,
+    d drag/dx, d drag/dy [m]; the cross derivatives d²/dxdy of front, rear, drag [1]; the
+    cell's bounds x_lo, x_hi, y_lo, y_hi [m]). Gradients are zero outside the grid (the
+    lookup is clamped); within a cell the bilinear value at (x + dx, y + dy) is exactly
+    value + d/dx dx + d/dy dy + d²/dxdy dx dy. The map is packed in ``p`` (:data:`MAP_NX`).
+    """
     nx = int(p[MAP_NX])
     ny = int(p[MAP_NY])
     ox = MAP_DATA
@@ -204,19 +210,41 @@ def map_eval(p, x, y):
     rv = w00 * r00 + w10 * r10 + w01 * r01 + w11 * r11
     dv = (w00 * p[od + k00] + w10 * p[od + k10] + w01 * p[od + k01]
           + w11 * p[od + k11])
+    d00 = p[od + k00]
+    d10 = p[od + k10]
+    d01 = p[od + k01]
+    d11 = p[od + k11]
     fx = 0.0
     fy = 0.0
     rx = 0.0
     ry = 0.0
-    if p[ox] < x < p[ox + nx - 1]:
-        hx = p[ox + i + 1] - p[ox + i]
+    dx = 0.0
+    dy = 0.0
+    fxy = 0.0
+    rxy = 0.0
+    dxy = 0.0
+    xlo = p[ox + i]
+    xhi = p[ox + i + 1]
+    ylo = p[oy + j]
+    yhi = p[oy + j + 1]
+    inx = p[ox] < x < p[ox + nx - 1]
+    iny = p[oy] < y < p[oy + ny - 1]
+    if inx:
+        hx = xhi - xlo
         fx = ((1 - ty) * (f10 - f00) + ty * (f11 - f01)) / hx
         rx = ((1 - ty) * (r10 - r00) + ty * (r11 - r01)) / hx
-    if p[oy] < y < p[oy + ny - 1]:
-        hy = p[oy + j + 1] - p[oy + j]
+        dx = ((1 - ty) * (d10 - d00) + ty * (d11 - d01)) / hx
+    if iny:
+        hy = yhi - ylo
         fy = ((1 - tx) * (f01 - f00) + tx * (f11 - f10)) / hy
         ry = ((1 - tx) * (r01 - r00) + tx * (r11 - r10)) / hy
-    return fv, rv, dv, fx, fy, rx, ry
+        dy = ((1 - tx) * (d01 - d00) + tx * (d11 - d10)) / hy
+    if inx and iny:
+        hxy = (xhi - xlo) * (yhi - ylo)
+        fxy = (f11 - f10 - f01 + f00) / hxy
+        rxy = (r11 - r10 - r01 + r00) / hxy
+        dxy = (d11 - d10 - d01 + d00) / hxy
+    return fv, rv, dv, fx, fy, rx, ry, dx, dy, fxy, rxy, dxy, xlo, xhi, ylo, yhi
 
 
 @njit(cache=True, error_model="numpy")
@@ -236,6 +264,8 @@ def _state_once(v, kappa, grade, bank, f_drive, f_brake, p, claf, clar, cda, out
     res = axle_loads(m, g_n, a, b, L, h, p[P_TF], p[P_TR], p[P_ZF], p[P_ZR], p[P_KF], a_y,
                      aero_f, aero_r, x)
     out[O_AX] = (x - drag - (m * G * math.sin(grade) if grade != 0.0 else 0.0)) / m
+    out[O_SPEED] = v
+    out[O_CONTROL] = f_drive - f_brake
     out[O_AY] = a_y
     out[O_DRAG] = drag
     out[O_DOWNF] = aero_f + aero_r
@@ -355,11 +385,18 @@ def _ride_heights(g_n, q, xs, ax_mode, p, rhf, rhr, tol):
     kf = p[P_HEAVEF]
     kr = p[P_HEAVER]
     c = 0.0 if ax_mode != 0.0 else h / L * crr * q
+    e = q * h / L if ax_mode != 0.0 else 0.0  # axle-load change per drag area [N/m2]
     claf = 0.0
     clar = 0.0
     cda = 0.0
+    af_f = af_r = ar_f = ar_r = ad_f = ad_r = fxy = rxy = dxy = 0.0
+    xlo = xhi = ylo = yhi = 0.0
+    fresh = False  # the areas at (rhf, rhr) already known (an exact in-cell update)
     for _ in range(30):
-        claf, clar, cda, af_f, af_r, ar_f, ar_r = map_eval(p, rhf, rhr)
+        if not fresh:
+            (claf, clar, cda, af_f, af_r, ar_f, ar_r, ad_f, ad_r, fxy, rxy, dxy, xlo, xhi,
+             ylo, yhi) = map_eval(p, rhf, rhr)
+        fresh = False
         if ax_mode != 0.0:
             x = xs + q * cda
         else:
@@ -370,10 +407,12 @@ def _ride_heights(g_n, q, xs, ax_mode, p, rhf, rhr, tol):
         rr = rhr - p[P_RHR0] + (fzr - fz_ref_r) / kr
         if abs(rf) + abs(rr) < tol:
             break
-        j00 = 1.0 + (q * af_f + c * (af_f + ar_f)) / kf
-        j01 = (q * af_r + c * (af_r + ar_r)) / kf
-        j10 = (q * ar_f - c * (af_f + ar_f)) / kr
-        j11 = 1.0 + (q * ar_r - c * (af_r + ar_r)) / kr
+        # Jacobian of the residuals; with a target a_x (ax_mode) the drag moves the load
+        # transfer too (e per unit drag area)
+        j00 = 1.0 + (q * af_f + c * (af_f + ar_f) - e * ad_f) / kf
+        j01 = (q * af_r + c * (af_r + ar_r) - e * ad_r) / kf
+        j10 = (q * ar_f - c * (af_f + ar_f) + e * ad_f) / kr
+        j11 = 1.0 + (q * ar_r - c * (af_r + ar_r) + e * ad_r) / kr
         det = j00 * j11 - j01 * j10
         if abs(det) > 1e-6:
             dxf = -(j11 * rf - j01 * rr) / det
@@ -386,6 +425,20 @@ def _ride_heights(g_n, q, xs, ax_mode, p, rhf, rhr, tol):
         if big > lim:
             dxf *= lim / big
             dxr *= lim / big
+        if xlo < rhf + dxf < xhi and ylo < rhr + dxr < yhi and fxy == fxy and \
+                xlo < rhf < xhi and ylo < rhr < yhi:
+            # still inside the same cell: the bilinear map's value and gradient there are
+            # exact updates of these (no second lookup)
+            claf += af_f * dxf + af_r * dxr + fxy * dxf * dxr
+            clar += ar_f * dxf + ar_r * dxr + rxy * dxf * dxr
+            cda += ad_f * dxf + ad_r * dxr + dxy * dxf * dxr
+            af_f += fxy * dxr
+            af_r += fxy * dxf
+            ar_f += rxy * dxr
+            ar_r += rxy * dxf
+            ad_f += dxy * dxr
+            ad_r += dxy * dxf
+            fresh = True
         rhf += dxf
         rhr += dxr
     return rhf, rhr, claf, clar, cda
@@ -458,6 +511,8 @@ def _usage_once(v, kappa, grade, bank, f_drive, f_brake, p, claf, clar, cda, out
     res = axle_loads(m, g_n, a, b, L, h, p[P_TF], p[P_TR], p[P_ZF], p[P_ZR], p[P_KF], a_y,
                      aero_f, aero_r, x)
     out[O_AX] = (x - drag - (m * G * math.sin(grade) if grade != 0.0 else 0.0)) / m
+    out[O_SPEED] = v
+    out[O_CONTROL] = f_drive - f_brake
     out[O_DOWNF] = aero_f + aero_r
     status = res[15]
     if status != 0:
@@ -1270,7 +1325,11 @@ def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, t
             slope = 1.0 / (p[P_MUXR] * (m * G + abs(out[O_DOWNF])))  # about 1 / grip
         hint = F
         last = i
-        ax = ax_of_control(vi, kappa[i], grade[i], bank[i], F, p, out)
+        if p[P_USEMAP] != 0.0 and out[O_CONTROL] == F and out[O_SPEED] == vi and \
+                out[O_STATUS] == 0.0:
+            ax = out[O_AX]  # the search's last probe was this force at this step
+        else:
+            ax = ax_of_control(vi, kappa[i], grade[i], bank[i], F, p, out)
         v2 = vi * vi + 2.0 * ax * ds
         vn = math.sqrt(v2) if v2 > 0.0 else 0.0
         vf[i + 1] = vn if vn < vlim[i + 1] else vlim[i + 1]
