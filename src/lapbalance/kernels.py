@@ -1563,7 +1563,7 @@ M_AYLIM = 6  # lateral acceleration at the limit speed [m/s²]
 NMARGIN = 7
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def lift_state(v, kappa, grade, bank, coast, p, gears, out):
     """State after a lift at speed v [m/s]: drive replaced by the engine's overrun force in
     the gear of that speed (``coast`` = 0.0) or by nothing (``coast`` = 1.0), no brakes
@@ -1583,7 +1583,7 @@ def lift_usage(v, kappa, grade, bank, coast, p, gears, out):
     return state_usage(v, kappa, grade, bank, -fo, 0.0, p, out)
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True, inline="always", error_model="numpy")
 def _g_lift(v, kappa, grade, bank, coast, p, gears, out):
     """Rear usage excess u_r - 1 after a lift at v [m/s]; BIG when an axle unloads."""
     st = lift_usage(v, kappa, grade, bank, coast, p, gears, out)
@@ -1592,7 +1592,7 @@ def _g_lift(v, kappa, grade, bank, coast, p, gears, out):
     return out[O_UR] - 1.0
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _refine_lift(x_ok, g_ok, x_bad, g_bad, kappa, grade, bank, coast, p, gears,
                  out, xtol):
     """Illinois search (as :func:`_refine`) for the speed [m/s] where the rear usage after a
@@ -1635,7 +1635,7 @@ def _refine_lift(x_ok, g_ok, x_bad, g_bad, kappa, grade, bank, coast, p, gears,
     return lo
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def liftoff_safe_speed(kappa, grade, bank, vlim, guess, coast, p, gears, out,
                        tol):
     """Highest speed [m/s] at or below the corner limit ``vlim`` at which a lift keeps the
@@ -1695,14 +1695,14 @@ def liftoff_safe_speed(kappa, grade, bank, vlim, guess, coast, p, gears, out,
                         tol), u_top
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True, inline="always", error_model="numpy")
 def _signed_ay(v, kappa, grade, bank):
     """Lateral acceleration [m/s²] the tyres supply, positive toward the corner's inside."""
     a_c, a_y, g_n = road_accelerations(v, kappa, grade, bank)
     return a_y if kappa >= 0.0 else -a_y
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True, inline="always", error_model="numpy")
 def margin_of(vsafe, vlim, kappa, grade, bank):
     """a_y_safe / a_y_limit, clamped to [0, 1]."""
     if vsafe >= vlim:
@@ -1714,7 +1714,7 @@ def margin_of(vsafe, vlim, kappa, grade, bank):
     return 0.0 if r < 0.0 else (1.0 if r > 1.0 else r)
 
 
-@njit(cache=True, parallel=True)
+@njit(cache=True, parallel=True, error_model="numpy")
 def liftoff_margins(kappa, grade, bank, vlim, checked, p, gears, tol, nchunks):
     """Lift-off margin at every checked step (``checked`` > 0), columns ``M_*``.
 
@@ -1733,7 +1733,7 @@ def liftoff_margins(kappa, grade, bank, vlim, checked, p, gears, tol, nchunks):
     return res
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def liftoff_margins_serial(kappa, grade, bank, vlim, checked, p, gears, tol,
                            nchunks):
     """:func:`liftoff_margins` on the calling thread (the same chunks in turn)."""
@@ -1746,7 +1746,7 @@ def liftoff_margins_serial(kappa, grade, bank, vlim, checked, p, gears, tol,
     return res
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _liftoff_margins_chunk(kappa, grade, bank, vlim, checked, p, gears, tol,
                            start, stop, res):
     """Lift-off margins of steps start..stop-1 into ``res``, each warm-started from the
@@ -1780,7 +1780,7 @@ def _liftoff_margins_chunk(kappa, grade, bank, vlim, checked, p, gears, tol,
     keep_alive(own)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def liftoff_response(kappa, grade, bank, speeds, p, gears):
     """States on throttle (steady speed), after a lift with engine overrun and coasting at
     each speed [m/s] on one step (curvature [1/m], grade, bank [rad]).

@@ -49,7 +49,7 @@ ROLLOVER = 3
 _G = G0
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def road_accelerations(v, curvature, grade, bank):
     """Accelerations in the road frame on a graded, banked road.
 
@@ -81,7 +81,7 @@ def road_accelerations(v, curvature, grade, bank):
     return a_c, a_y, g_n
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def longitudinal_loads(m, g_n, a, b, L, h, aero_front, aero_rear, x_ground):
     """Axle loads and their parts for net ground force ``x_ground`` [N].
 
@@ -97,7 +97,7 @@ def longitudinal_loads(m, g_n, a, b, L, h, aero_front, aero_rear, x_ground):
     return static_f, static_r, gt, static_f + aero_front - gt, static_r + aero_rear + gt
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def lateral_transfer(m, a_y, a, b, L, h, t_f, t_r, z_f, z_r, k_f, fz_f, fz_r):
     """Per-axle lateral load transfer with wheel lift [N].
 
@@ -149,7 +149,7 @@ def lateral_transfer(m, a_y, a, b, L, h, t_f, t_r, z_f, z_r, k_f, fz_f, fz_r):
     return dff, dfr, lift_f, lift_r, OK
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def axle_loads(m, g_n, a, b, L, h, t_f, t_r, z_f, z_r, k_f, a_y, aero_front, aero_rear,
                x_ground):
     """Axle loads with all parts, wheel loads and lift flags [N].

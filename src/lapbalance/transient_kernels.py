@@ -133,7 +133,7 @@ SS_PAST_PEAK = 2  # converged on the falling side of a tyre curve (not a steady 
 SS_UNLOADED = 3
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def drive_force(t, q):
     """Drive force at time t [s] after the lift [N]: linear ramp from Q_F0 to Q_F1."""
     if t <= 0.0:
@@ -144,7 +144,7 @@ def drive_force(t, q):
     return q[Q_F0] + (q[Q_F1] - q[Q_F0]) * t / T
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def lateral_force_ss(alpha, fz, fz_static, c_static, c_exp, shape, cap_y, fx, cap_x):
     """Steady-state axle lateral force [N] at slip angle ``alpha`` [rad].
 
@@ -165,7 +165,7 @@ def lateral_force_ss(alpha, fz, fz_static, c_static, c_exp, shape, cap_y, fx, ca
     return e * cap_y * math.sin(shape * math.atan(B * alpha))
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def peak_slip(fz, fz_static, c_static, c_exp, shape, cap_y):
     """Slip angle [rad] at the peak of :func:`lateral_force_ss` (B alpha = tan(pi/(2C)))."""
     if cap_y <= 0.0 or fz <= 0.0:
@@ -174,14 +174,14 @@ def peak_slip(fz, fz_static, c_static, c_exp, shape, cap_y):
     return math.tan(0.5 * math.pi / shape) / B
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _usage(fx, fy, cx, cy):
     if cx <= 0.0 or cy <= 0.0:
         return 1e9
     return math.sqrt((fx / cx) ** 2 + (fy / cy) ** 2)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def deriv(t, y, q, p, out, dy, aux):
     """Time derivative ``dy`` of the state ``y`` at time ``t`` [s] after the lift.
 
@@ -191,14 +191,14 @@ def deriv(t, y, q, p, out, dy, aux):
     return _deriv(t, y, q, p, out, dy, aux, True)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _deriv_lean(t, y, q, p, out, dy, aux):
     """:func:`deriv` without the outputs only the recorded steps need (the RK4 inner
     stages); one compiled copy called three times per step, not inlined three times."""
     return _deriv(t, y, q, p, out, dy, aux, False)
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True, inline="always", error_model="numpy")
 def _deriv(t, y, q, p, out, dy, aux, full):
     """:func:`deriv`; with ``full`` False only the forces of the aux outputs are filled."""
     m = p[P_MASS]
@@ -291,7 +291,7 @@ def _deriv(t, y, q, p, out, dy, aux, full):
     return st
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def integrate(y0, q, p, dt, n_steps, stop_beta, v_stop, hist):
     """Fixed-step classical Runge-Kutta (RK4) from t = 0 for ``n_steps`` steps of ``dt`` [s].
 
@@ -337,7 +337,7 @@ def integrate(y0, q, p, dt, n_steps, stop_beta, v_stop, hist):
     return RUN_OK, n_steps + 1
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _steady_residual(x, speed, radius, q, p, out, dy, aux, y, res):
     """Residual of the steady turn for unknowns x = (steer, sideslip, drive, F_yf, F_yr)."""
     q[Q_DELTA] = x[0]
@@ -406,7 +406,7 @@ def solve_small(A, b):
     return True
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def steady_turn(speed, radius, x0, q, p, x):
     """Steady circular run at ``speed`` [m/s] on ``radius`` [m] (left turn, ISO 8855).
 

@@ -38,7 +38,7 @@ import numpy as np
 from numba import njit, vectorize
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def tyre_capacity(fz, mu0, k, fz0):
     """Peak force capacity of one tyre [N] at vertical load ``fz`` [N].
 
@@ -67,7 +67,7 @@ def tyre_capacity(fz, mu0, k, fz0):
     return mu0 * fz * (1.0 - k * (fz - fz0) / fz0)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def load_factor(fz, one_plus_k, k_over_fz0, fz_peak):
     """mu(Fz)·Fz / mu0 [N] with the constants of :func:`tyre_capacity` precomputed.
 
@@ -81,7 +81,7 @@ def load_factor(fz, one_plus_k, k_over_fz0, fz_peak):
     return fz * (one_plus_k - k_over_fz0 * fz)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def friction_coefficient(fz, mu0, k, fz0):
     """Effective friction coefficient capacity/Fz [-] at load ``fz`` [N]."""
     if fz <= 0.0:
@@ -89,13 +89,13 @@ def friction_coefficient(fz, mu0, k, fz0):
     return tyre_capacity(fz, mu0, k, fz0) / fz
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def axle_capacity(fz_outer, fz_inner, mu0, k, fz0):
     """Axle force capacity [N]: the sum of its two tyres' capacities at their loads [N]."""
     return tyre_capacity(fz_outer, mu0, k, fz0) + tyre_capacity(fz_inner, mu0, k, fz0)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def usage(fx, fy, cap_x, cap_y):
     """Friction-ellipse usage [-] of an axle with demands fx, fy [N] and capacities [N].
 
@@ -108,7 +108,7 @@ def usage(fx, fy, cap_x, cap_y):
     return math.sqrt((fx / cap_x) ** 2 + (fy / cap_y) ** 2)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def available_longitudinal(fy, cap_x, cap_y):
     """Longitudinal force [N] an axle can still carry with lateral demand fy [N] (ellipse)."""
     if cap_y <= 0.0:
