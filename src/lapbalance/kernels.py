@@ -627,7 +627,7 @@ def usage_control(v, kappa, grade, bank, F, p, out):
     return state_usage(v, kappa, grade, bank, 0.0, -F, p, out)
 
 
-@njit(cache=True, inline="always", error_model="numpy")
+@njit(cache=True, error_model="numpy")
 def max_usage(out):
     u = out[O_UF]
     if out[O_UR] > u:
@@ -713,7 +713,7 @@ def overrun_force(v, p, gears):
     return p[P_OVERRUN] * gears[g] * p[P_FINAL] / p[P_RW]
 
 
-@njit(cache=True, inline="always", error_model="numpy")
+@njit(cache=True, error_model="numpy")
 def _resistance_nomap(v, kappa, grade, bank, p):
     """Drag + rolling resistance + grade force [N] without an aero map (independent of the
     control force, since the total normal load does not depend on it)."""
