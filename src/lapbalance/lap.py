@@ -450,7 +450,7 @@ def simulate_lap(car: Car, track, *, start_speed_kph: float | None = None,
     with _threads(threads) as par:
         mres = (_liftoff_margins_parallel if par else _liftoff_margins_kernel)(
             kappa, grade, bank, vlim, np.ascontiguousarray(res[:, _k.NOUT + 6]), p, gears,
-                                                           MARGIN_TOL, nchunks)
+            MARGIN_TOL, nchunks)
     ch = _channels(car, track, v, vlim, res, time)
     _margin_channels(ch, vlim, mres)
     if np.any(ch["floor_contact"] > 0):

@@ -49,6 +49,7 @@ import numpy as np
 
 from lapbalance.car import SCHEMA, Car, apply_overrides, build_car, load_car
 from lapbalance.errors import InfeasibleError, InputError, clip, did_you_mean
+from lapbalance.forkpool import can_fork as fork_is_safe  # one fork test for all copies
 from lapbalance.outputs import (
     OutputFolder,
     csv_text,
@@ -669,15 +670,6 @@ def _sweep_run(points, done, log, header, base_id, progress, cluster, workers, r
     return [done[point_key(p)] for p in points]
 
 
-def fork_is_safe() -> bool:
-    """True when sweep workers may be forked from this process: on Linux, with no other
-    Python thread running and numba's thread pool not started
-    (:func:`lapbalance.forkpool.can_fork`); otherwise workers come from a fork server."""
-    from lapbalance.forkpool import can_fork
-
-    return can_fork()
-
-
 def _run_pool(workers, raw, source, track, todo, options, record) -> None:
     import multiprocessing as mp
     from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
@@ -723,7 +715,7 @@ def _run_pool(workers, raw, source, track, todo, options, record) -> None:
         ex.shutdown(wait=True, cancel_futures=True)
 
 
-#: Most sweep points one Dask task runs.
+#: Most sweep points one pool or Dask task runs.
 _DASK_BATCH_MAX = 16
 
 
