@@ -916,30 +916,33 @@ def _window_search(kind, x0, slope, v, ds, kappa, grade, bank, p, out, xtol,
     ``x_stop`` (kind 1: the engine force) a feasible g is accepted. Kinds as
     :func:`_illinois`.
 
-    Returns (x, slope, ok); ok False after 4 probes without success or on an unloaded axle
-    (the caller then runs its bracketing search).
+    Returns (x, slope, ok, g) with g the usage excess at x; ok False after 4 probes without
+    success or on an unloaded axle (the caller then runs its bracketing search).
     """
     x = x0
     have_ok = False
     have_bad = False
     xo = 0.0
+    go = 0.0
     xb = 0.0
     xp = math.nan
     gp = math.nan
+    g = math.nan
     for _ in range(4):
         g = _g_kind(kind, x, v, ds, kappa, grade, bank, p, out)
         if g >= 0.5 * BIG:
-            return x, slope, False
+            return x, slope, False, g
         if g <= 0.0:
             if g > -2e-5 or x == x_stop:
-                return x, slope, True
+                return x, slope, True, g
             have_ok = True
             xo = x
+            go = g
         else:
             have_bad = True
             xb = x
         if have_ok and have_bad and abs(xb - xo) <= xtol:
-            return xo, slope, True
+            return xo, slope, True, go
         if not math.isnan(xp) and x != xp:
             s = (g - gp) / (x - xp)
             if s * slope > 0.0:
@@ -957,9 +960,9 @@ def _window_search(kind, x0, slope, v, ds, kappa, grade, bank, p, out, xtol,
             xn = 0.5 * (xo + xb)
         xn = x_lo if xn < x_lo else (x_hi if xn > x_hi else xn)
         if xn == x:
-            return x, slope, False
+            return x, slope, False, g
         x = xn
-    return x, slope, False
+    return x, slope, False, g
 
 
 @njit(cache=True, error_model="numpy")
@@ -1073,9 +1076,50 @@ def corner_limits_serial(kappa, grade, bank, vcap, p, tol, nchunks):
     return vlim
 
 
+#: Largest change of grade or bank [rad] between neighbouring steps for which the corner-limit
+#: search still starts from the neighbour's answer (0.002 rad: a 0.2 % grade change per step).
+NEAR_ROAD_RAD = 2e-3
+
+
+@njit(cache=True, inline="always", error_model="numpy")
+def _lnln_predict(x, x1, f1, x2, f2, x3, f3):
+    """Predicted ln v_lim at x = ln|curvature| from up to three earlier pairs (x_j, ln v_j)
+    of the same corner (x1, f1 newest; NaN f = missing).
+
+    On a road of one grade and bank the steady limit depends on the curvature alone: without
+    aero v ∝ |curvature|^-1/2 exactly, and aero bends that power law slowly, so a
+    low-order polynomial in these logarithms extrapolates it far better than one in distance.
+    The quadratic through three pairs is used while its Lagrange weights stay small (the
+    pairs not bunched against the target), else the line through two, else the power law
+    -1/2 from the newest.
+    """
+    if not math.isnan(f3):
+        d12 = x1 - x2
+        d13 = x1 - x3
+        d23 = x2 - x3
+        if d12 != 0.0 and d13 != 0.0 and d23 != 0.0:
+            w1 = (x - x2) * (x - x3) / (d12 * d13)
+            w2 = -(x - x1) * (x - x3) / (d12 * d23)
+            w3 = (x - x1) * (x - x2) / (d13 * d23)
+            if abs(w1) + abs(w2) + abs(w3) < 8.0:
+                return w1 * f1 + w2 * f2 + w3 * f3
+    if not math.isnan(f2):
+        d12 = x1 - x2
+        if d12 != 0.0 and abs(x - x1) < 3.5 * abs(d12):
+            return f1 + (f1 - f2) * (x - x1) / d12
+    return f1 - 0.5 * (x - x1)
+
+
 @njit(cache=True, error_model="numpy")
 def _corner_limits_chunk(kappa, grade, bank, vcap, p, tol, start, stop, vlim):
-    """Corner limits of steps start..stop-1 into ``vlim``, each warm-started from the last."""
+    """Corner limits of steps start..stop-1 into ``vlim``, each warm-started from the last.
+
+    Along a corner of one grade and bank the first probe comes from the limits already found
+    (:func:`_lnln_predict`, each corrected to its root by the slope of the usage), aimed a
+    half window below the boundary, so most steps take one evaluation; the secant search of
+    :func:`_window_search` corrects a miss. Where the curvature rises past a step held at
+    ``vcap``, one evaluation at the cap settles the step while the car holds it.
+    """
     own = np.full(NOUT, np.nan)
     out = borrowed(own)  # no reference counting in the searches (lapbalance.views)
     p = borrowed(p)
@@ -1083,59 +1127,99 @@ def _corner_limits_chunk(kappa, grade, bank, vcap, p, tol, start, stop, vlim):
     prev_k = 0.0
     prev_g = math.nan
     prev_b = math.nan
-    slope = math.nan  # d(usage)/dv at the neighbour's limit [s/m]
+    elast = math.nan  # v d(usage)/dv at the neighbour's limit [-] (2 without aero)
     k_band = 0.0  # curvature of the last check for an infeasible band below the limit
     since = 0
-    v2 = math.nan  # the limits two and three steps back (smooth curvature: extrapolate)
-    v3 = math.nan
+    # (ln|curvature|, ln v_root) of the last three limits of this corner, newest first
+    hx1 = math.nan
+    hx2 = math.nan
+    hx3 = math.nan
+    hf1 = math.nan
+    hf2 = math.nan
+    hf3 = math.nan
     for i in range(start, stop):
         k = kappa[i]
         same = grade[i] == prev_g and bank[i] == prev_b and prev_v > 0.0
+        # a measured road changes grade and bank a little at every step: the neighbour's
+        # limit still predicts this one (but bounds it only on the very same road)
+        near = same or (prev_v > 0.0 and abs(grade[i] - prev_g) <= NEAR_ROAD_RAD and
+                        abs(bank[i] - prev_b) <= NEAR_ROAD_RAD)
         lo_known = 0.0
         guess = prev_v
-        if same:
-            if abs(k) <= abs(prev_k):
-                if prev_v >= vcap:
-                    vlim[i] = vcap
-                    prev_k = k
-                    continue
-                lo_known = prev_v
+        if same and abs(k) <= abs(prev_k):
+            if prev_v >= vcap:
+                vlim[i] = vcap
+                prev_k = k
+                continue
+            lo_known = prev_v
+        if near:
             if k != 0.0 and prev_k != 0.0:
                 r = math.sqrt(abs(prev_k) / abs(k))
                 r = 0.8 if r < 0.8 else (1.25 if r > 1.25 else r)
                 guess = prev_v * r
+        if not near or k * prev_k <= 0.0:
+            hf1 = math.nan  # a new corner (or road): no history
         vl = -1.0
         since += 1
-        if same and prev_v < vcap and k != 0.0 and (k * prev_k > 0.0 or bank[i] == 0.0) \
-                and prev_k != 0.0 and \
-                not math.isnan(slope):
+        # an infeasible band below the limit needs a sloped or banked road (on a flat one
+        # the usage rises with speed): check less often on the flat
+        kfac = 1.25 if grade[i] == 0.0 and bank[i] == 0.0 else 1.05
+        if near and prev_v >= vcap:
+            # the curvature rose (or the road changed) past a step feasible at the cap:
+            # is this one too?
+            band_ok = True
+            if abs(k) > kfac * k_band or since > 32:
+                band_ok = _g_speed(0.5 * vcap, k, grade[i], bank[i], p, out) <= 0.0
+                k_band = abs(k)
+                since = 0
+            if band_ok and _g_speed(vcap, k, grade[i], bank[i], p, out) <= 0.0:
+                vl = vcap
+        elif near and k != 0.0 and (k * prev_k > 0.0 or bank[i] == 0.0) \
+                and prev_k != 0.0 and not math.isnan(elast):
             # the neighbour's limit, scaled, with its slope: a secant step or two; below
             # a rising curvature, look for an infeasible band now and then
             band_ok = True
-            if lo_known == 0.0 and (abs(k) > 1.05 * k_band or since > 32):
-                band_ok = _g_speed(0.5 * guess, kappa[i], grade[i], bank[i], p, out) <= 0.0
+            if lo_known == 0.0 and (abs(k) > kfac * k_band or since > 32):
+                band_ok = _g_speed(0.5 * guess, k, grade[i], bank[i], p, out) <= 0.0
                 k_band = abs(k)
                 since = 0
             if band_ok:
-                if not math.isnan(v3):
-                    ge = 3.0 * prev_v - 3.0 * v2 + v3
+                xk = math.log(abs(k))
+                if not math.isnan(hf1):
+                    vr = math.exp(_lnln_predict(xk, hx1, hf1, hx2, hf2, hx3, hf3))
+                    ge = vr * (1.0 - 1e-5 / elast)  # aim half the acceptance window inside
                     if abs(ge - guess) < 0.05 * guess:
                         guess = ge
-                x, s2, ok = _window_search(0.0, guess, slope, 0.0, 0.0, k, grade[i], bank[i],
-                                           p, out, tol, V_MIN, vcap, -1.0)
+                slope = elast / guess  # the elasticity carries over better than the slope
+                x, s2, ok, gx = _window_search(0.0, guess, slope, 0.0, 0.0, k, grade[i],
+                                               bank[i], p, out, tol, V_MIN, vcap, -1.0)
                 if ok and x < vcap and x >= lo_known:
                     vl = x
-                    slope = s2
+                    elast = s2 * x
+                    xr = x - gx / s2  # the root, a Newton step from the accepted probe
+                    hx3 = hx2
+                    hf3 = hf2
+                    hx2 = hx1
+                    hf2 = hf1
+                    if math.isnan(hf1):
+                        hf2 = math.nan
+                        hf3 = math.nan
+                    hx1 = xk
+                    hf1 = math.log(xr if xr > x else x)
         if vl < 0.0:
             vl = corner_limit(k, grade[i], bank[i], guess, lo_known, vcap, p,
                               out, tol)
-            slope = 1.5 / vl if vl > V_MIN else math.nan
+            elast = 1.5 if vl > V_MIN else math.nan
             k_band = abs(k)
             since = 0
-            v2 = math.nan
-            prev_v = math.nan
-        v3 = v2
-        v2 = prev_v
+            hf1 = math.nan
+            if V_MIN < vl < vcap:
+                hx1 = math.log(abs(k))
+                hf1 = math.log(vl)
+                hf2 = math.nan
+                hf3 = math.nan
+        if vl >= vcap:
+            hf1 = math.nan
         vlim[i] = vl
         prev_v = vl
         prev_k = k
@@ -1303,7 +1387,7 @@ def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, t
             fs = _resistance_nomap(vi, kappa[i], grade[i], bank[i], p)
             F = math.nan
             if guess < feng and fs < feng and not math.isnan(slope):
-                x, s2, ok = _window_search(1.0, guess, slope, vi, 0.0, kappa[i], grade[i],
+                x, s2, ok, _ = _window_search(1.0, guess, slope, vi, 0.0, kappa[i], grade[i],
                                            bank[i], p, out, ftol, fs, feng, feng)
                 if ok:
                     F = x
@@ -1369,7 +1453,7 @@ def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, t
         f_stop = -5.0 * m * G - 5.0 * qc * (abs(p[P_CLAF]) + abs(p[P_CLAR]) + 1.0)
         F = math.nan
         if not math.isnan(guess) and not math.isnan(slope) and f_stop < guess < f_ok:
-            x, s2, ok = _window_search(2.0, guess, slope, vnext, ds, kappa[i], grade[i], bank[i],
+            x, s2, ok, _ = _window_search(2.0, guess, slope, vnext, ds, kappa[i], grade[i], bank[i],
                                        p, out, ftol, f_stop, f_ok, f_stop)
             if ok:
                 F = x
