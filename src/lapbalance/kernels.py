@@ -812,6 +812,12 @@ def _brake_speed(vnext, ds, kappa, grade, bank, F, p, out, evaluate):
         v2 = top / (1.0 - 2.0 * ds * r2 / m)
         vn = math.sqrt(v2) if v2 > 0.0 else 0.0
         if abs(vn - v) <= 1e-8 * (1.0 + v):
+            # converged: take the update, whose speed meets the step's kinematics
+            # v² = vnext² - 2 a_x ds with the resistance just evaluated; the evaluated
+            # speed misses it by up to about v·1e-8 (1 + v)/ds in a_x, enough to tip a
+            # braking step at the limit over it in the final pass, while the usage at the
+            # two speeds differs by far less than BRAKE_MARGIN
+            v = vn
             break
         v = vn
     return v, st
@@ -1334,16 +1340,23 @@ def max_decel_control(v, kappa, grade, bank, p, out, ftol, hint=math.nan):
 
 
 @njit(cache=True, inline="always", error_model="numpy")
-def _extrapolate(h1, h2, h3):
-    """Next value of a smooth sequence from its last three (h1 newest; NaN = missing):
-    quadratic when three are known and the quadratic term is small, else linear, else h1."""
+def _extrapolate(h1, h2, h3, h4):
+    """Next value of a smooth sequence from its last four (h1 newest; NaN = missing): the
+    cubic when four are known, else the quadratic, else linear, else h1; each higher order
+    only while its added term stays small against the last difference (a kink, e.g. the
+    start of a braking zone, falls back to the lower order)."""
     if math.isnan(h2):
         return h1
     lin = 2.0 * h1 - h2
     if math.isnan(h3):
         return lin
     quad = 3.0 * h1 - 3.0 * h2 + h3
-    return quad if abs(quad - lin) < 0.5 * abs(h1 - h2) else lin
+    if abs(quad - lin) >= 0.5 * abs(h1 - h2):
+        return lin
+    if math.isnan(h4):
+        return quad
+    cub = 4.0 * h1 - 6.0 * h2 + 4.0 * h3 - h4
+    return cub if abs(cub - quad) < 0.5 * abs(h1 - h2) else quad
 
 
 @njit(cache=True, error_model="numpy")
@@ -1363,52 +1376,67 @@ def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, t
     m = p[P_MASS]
     vf = np.empty(n)
     vf[0] = vlim[0] if math.isnan(v_start) else min(v_start, vlim[0])
-    hint = math.nan  # the last drive search's result [N] and the two before it
+    hint = math.nan  # the last drive search's boundary force [N] and the three before it
     hint2 = math.nan
     hint3 = math.nan
+    hint4 = math.nan
     last = -10  # step of the last search
     slope = math.nan  # d(usage)/dF at the last search's result [1/N]
+    ax_last = math.nan  # a_x the last search gave [m/s²]
+    eng_last = False  # the last search gave the engine's force
     for i in range(n - 1):
         vi = vf[i]
         vt = vlim[i + 1]
         feng = engine_force(vi, p, gears, trpm, tnm)  # once per step
         # can the car reach the next step's limit? one evaluation settles most steps
         need = (vt * vt - vi * vi) / (2.0 * ds)
-        if need < 50.0:
+        # (not while the last step's search gave less than this: the search settles it)
+        if need < 50.0 and not (last == i - 1 and need > ax_last):
             fn = control_for_ax_lean(vi, kappa[i], grade[i], bank[i], need, p, out)
             if out[O_STATUS] == 0.0 and max_usage(out) <= 1.0 and fn <= feng:
                 vf[i + 1] = vt
                 continue
         if last == i - 1 and not math.isnan(hint):
             # warm start: extrapolate the neighbouring searches, with small search steps
-            guess = _extrapolate(hint, hint2, hint3)
+            guess = _extrapolate(hint, hint2, hint3, hint4)
             d = 0.5 * abs(hint - hint2) if not math.isnan(hint2) else 0.005 * m * G
             d = d if d > 4.0 * ftol else 4.0 * ftol
             fs = _resistance_nomap(vi, kappa[i], grade[i], bank[i], p)
             F = math.nan
-            if guess < feng and fs < feng and not math.isnan(slope):
-                x, s2, ok, _ = _window_search(1.0, guess, slope, vi, 0.0, kappa[i], grade[i],
-                                           bank[i], p, out, ftol, fs, feng, feng)
+            root = math.nan  # the boundary force, a Newton step from the accepted probe
+            # after a step at the engine's force, first try this step's (one evaluation)
+            search = guess < feng and fs < feng and not eng_last
+            if search and not math.isnan(slope):
+                aim = guess - 1e-5 / slope  # half the acceptance window inside
+                x, s2, ok, gx = _window_search(1.0, aim if aim > fs else guess, slope, vi,
+                                               0.0, kappa[i], grade[i], bank[i], p, out, ftol,
+                                               fs, feng, feng)
                 if ok:
                     F = x
                     slope = s2
-            if math.isnan(F) and guess < feng and fs < feng:
+                    if gx > -2e-5 and x < feng:
+                        root = x - gx / s2
+            if math.isnan(F) and search:
                 F = _search_kind(1.0, vi, 0.0, kappa[i], grade[i], bank[i], fs, math.nan, guess,
                                  d, d, 1.0, feng, p, out, ftol)
             if math.isnan(F):
                 F = _max_accel_feng(vi, kappa[i], grade[i], bank[i], feng, p, out,
                                     ftol, guess, d, d)
+            hint4 = hint3
             hint3 = hint2
             hint2 = hint
         else:
+            root = math.nan
             F = _max_accel_feng(vi, kappa[i], grade[i], bank[i], feng, p, out,
                                 ftol, math.nan, 0.005 * m * G, 0.02 * m * G)
             hint2 = math.nan
             hint3 = math.nan
+            hint4 = math.nan
         if math.isnan(slope):
             slope = 1.0 / (p[P_MUXR] * (m * G + abs(out[O_DOWNF])))  # about 1 / grip
-        hint = F
+        hint = F if math.isnan(root) else root
         last = i
+        eng_last = F >= feng
         if p[P_USEMAP] != 0.0 and out[O_CONTROL] == F and out[O_SPEED] == vi and \
                 out[O_STATUS] == 0.0:
             ax = out[O_AX]  # the search's last probe was this force at this step
@@ -1417,11 +1445,13 @@ def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, t
         v2 = vi * vi + 2.0 * ax * ds
         vn = math.sqrt(v2) if v2 > 0.0 else 0.0
         vf[i + 1] = vn if vn < vlim[i + 1] else vlim[i + 1]
+        ax_last = ax
     vb = np.empty(n)
     vb[n - 1] = vlim[n - 1] if math.isnan(v_end) else min(v_end, vlim[n - 1])
     hint = math.nan
     hint2 = math.nan
     hint3 = math.nan
+    hint4 = math.nan
     last = n + 10
     slope = math.nan
     for i in range(n - 2, -1, -1):
@@ -1439,7 +1469,7 @@ def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, t
         # v² = vnext² - 2 a_x(v, F) ds; a bracketed search over F on the grip boundary, warm-
         # started from the neighbouring steps' forces
         if last == i + 1 and not math.isnan(hint):
-            guess = _extrapolate(hint, hint2, hint3)
+            guess = _extrapolate(hint, hint2, hint3, hint4)
             d = 0.5 * abs(hint - hint2) if not math.isnan(hint2) else 0.005 * m * G
             d = d if d > 4.0 * ftol else 4.0 * ftol
             back = d
@@ -1452,20 +1482,26 @@ def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, t
         qc = p[P_RHO] * cap * cap
         f_stop = -5.0 * m * G - 5.0 * qc * (abs(p[P_CLAF]) + abs(p[P_CLAR]) + 1.0)
         F = math.nan
+        root = math.nan
         if not math.isnan(guess) and not math.isnan(slope) and f_stop < guess < f_ok:
-            x, s2, ok, _ = _window_search(2.0, guess, slope, vnext, ds, kappa[i], grade[i], bank[i],
-                                       p, out, ftol, f_stop, f_ok, f_stop)
+            aim = guess - 1e-5 / slope  # half the acceptance window inside (slope < 0)
+            x, s2, ok, gx = _window_search(2.0, aim if aim < f_ok else guess, slope, vnext, ds,
+                                           kappa[i], grade[i], bank[i], p, out, ftol, f_stop,
+                                           f_ok, f_stop)
             if ok:
                 F = x
                 slope = s2
+                if gx > -2e-5 and x > f_stop:
+                    root = x - gx / s2
         if math.isnan(F):
             F = _search_kind(2.0, vnext, ds, kappa[i], grade[i], bank[i], f_ok, math.nan, guess,
                              back, step, -1.0, f_stop, p, out, ftol)
             slope = -1.0 / (p[P_MUXF] * (m * G + abs(out[O_DOWNF])))
         if not math.isnan(F):
+            hint4 = hint3 if last == i + 1 else math.nan
             hint3 = hint2 if last == i + 1 else math.nan
             hint2 = hint if last == i + 1 else math.nan
-            hint = F
+            hint = F if math.isnan(root) else root
             last = i
             vi, st = _brake_speed(vnext, ds, kappa[i], grade[i], bank[i], F, p,
                                   out, 0.0)
