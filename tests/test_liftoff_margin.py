@@ -1,6 +1,7 @@
 """Lift-off margin: closed form, the tall-car scenario, monotonic properties, parity, ranking."""
 
 import math
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -419,3 +420,40 @@ def test_compare_reports_margin_and_its_delta_per_corner():
     summ = {r["car"]: r for r in res.summary}
     assert summ["cg"]["liftoff_margin_delta"] == 0.0
     assert summ["ground"]["liftoff_margin_delta"] < -0.03
+
+
+@pytest.mark.parametrize("car_file", ["gt_coupe.toml", "single_seater.toml",
+                                      "single_seater_mapped.toml"])
+def test_warm_margins_on_a_varying_curvature_lap_equal_cold_searches(car_file):
+    # Source: definition, as above, on a circuit whose curvature varies at every step (the
+    # warm start predicts each safe speed from the neighbours' in ln|curvature|): at every
+    # checked step the safe speed agrees with a search from scratch to two tolerances, the
+    # lift there keeps the rear (u_r <= 1) and one tolerance above it does not.
+    from lapbalance.car import load_car
+    from tests.helpers import wavy_circuit
+
+    car = load_car(Path(__file__).resolve().parents[1] / "examples" / car_file)
+    p, gears, trpm, tnm = car_parameters(car)
+    tr = wavy_circuit(2000.0, 1.0, seed=3)
+    k = np.ascontiguousarray(tr.curvature_1pm)
+    z = np.zeros(len(k))
+    vlim = K.corner_limits_serial(k, z, z, 90.0, p, 1e-3, 1)
+    checked = (vlim < 90.0).astype(float)
+    warm = K.liftoff_margins_serial(k, z, z, vlim, checked, p, gears, 5e-4, 3)
+    out = np.empty(K.NOUT)
+    unsafe = 0
+    for i in np.flatnonzero(checked):
+        for coast, col in ((0.0, K.M_VSAFE), (1.0, K.M_VSAFE_COAST)):
+            vs = warm[i, col]
+            cold, _ = K.liftoff_safe_speed(k[i], 0.0, 0.0, vlim[i], 0.0, coast, p, gears,
+                                           out, 5e-4)
+            assert vs == pytest.approx(cold, abs=1e-3), (i, coast)
+            if vs <= 0.0:
+                continue
+            K.lift_state(vs, k[i], 0.0, 0.0, coast, p, gears, out)
+            assert out[K.O_UR] <= 1.0 + 1e-12
+            if vs < vlim[i]:
+                unsafe += 1
+                K.lift_state(vs + 5e-4, k[i], 0.0, 0.0, coast, p, gears, out)
+                assert out[K.O_UR] > 1.0 - 2e-5
+    assert unsafe > 50

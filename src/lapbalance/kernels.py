@@ -1771,6 +1771,14 @@ def liftoff_safe_speed(kappa, grade, bank, vlim, guess, coast, p, gears, out,
     u_top = g_top + 1.0
     if g_top <= 0.0:
         return vlim, u_top
+    return _safe_speed_below(kappa, grade, bank, vlim, g_top, guess, coast, p, gears, out,
+                             tol), u_top
+
+
+@njit(cache=True, error_model="numpy")
+def _safe_speed_below(kappa, grade, bank, vlim, g_top, guess, coast, p, gears, out, tol):
+    """The search of :func:`liftoff_safe_speed` below a limit ``vlim`` [m/s] where the lift
+    is unsafe (rear usage excess ``g_top`` > 0 there); returns v_safe [m/s]."""
     hi = vlim
     ghi = g_top
     lo = vlim
@@ -1794,8 +1802,8 @@ def liftoff_safe_speed(kappa, grade, bank, vlim, guess, coast, p, gears, out,
                 lo = x
                 glo = gx
                 step *= 2.0
-            return (_refine_lift(lo, glo, hi, ghi, kappa, grade, bank, coast, p, gears, out,
-                                 tol), u_top)
+            return _refine_lift(lo, glo, hi, ghi, kappa, grade, bank, coast, p, gears, out,
+                                tol)
         hi = guess
         ghi = g_g
         lo = guess
@@ -1808,11 +1816,70 @@ def liftoff_safe_speed(kappa, grade, bank, vlim, guess, coast, p, gears, out,
         if glo <= 0.0:
             break
         if lo <= V_MIN:
-            return 0.0, u_top
+            return 0.0
         hi = lo
         ghi = glo
-    return _refine_lift(lo, glo, hi, ghi, kappa, grade, bank, coast, p, gears, out,
-                        tol), u_top
+    return _refine_lift(lo, glo, hi, ghi, kappa, grade, bank, coast, p, gears, out, tol)
+
+
+@njit(cache=True, error_model="numpy")
+def _safe_speed_warm(kappa, grade, bank, vlim, pred, elast, coast, p, gears, out, tol):
+    """:func:`liftoff_safe_speed` with a predicted crossing ``pred`` [m/s] (a root, NaN =
+    none) and the elasticity ``elast`` = v dg/dv [-] of the rear usage excess there, both
+    from the neighbouring steps.
+
+    Secant steps from the prediction, aimed half the acceptance window inside (usage within
+    1e-5 of 1 or a bracket of ``tol``), settle most unsafe steps in one or two evaluations
+    after the one at the limit; a miss falls back to the bracketing search.
+    Returns (v_safe, u_r at the limit, g at v_safe (NaN when no root was found near the
+    prediction), the elasticity there).
+    """
+    g_top = _g_lift(vlim, kappa, grade, bank, coast, p, gears, out)
+    u_top = g_top + 1.0
+    if g_top <= 0.0:
+        return vlim, u_top, math.nan, elast
+    guess = pred
+    if V_MIN < pred < vlim and elast > 0.0:
+        xs = math.nan  # the highest safe probe and its excess
+        gs = 0.0
+        xu = vlim  # the lowest unsafe one
+        gu = g_top
+        slope = elast / pred
+        xp = math.nan
+        gp = 0.0
+        x = pred * (1.0 - 0.5e-5 / elast)
+        for _ in range(3):
+            gx = _g_lift(x, kappa, grade, bank, coast, p, gears, out)
+            if gx >= 0.5 * BIG:
+                break
+            if gx <= 0.0:
+                if gx > -1e-5:
+                    return x, u_top, gx, slope * x
+                if math.isnan(xs) or x > xs:
+                    xs = x
+                    gs = gx
+            elif x < xu:
+                xu = x
+                gu = gx
+            if not math.isnan(xs) and xu - xs <= tol:
+                return xs, u_top, gs, slope * xs
+            if not math.isnan(xp) and x != xp:
+                sl = (gx - gp) / (x - xp)
+                if sl > 0.0:
+                    slope = sl
+            xp = x
+            gp = gx
+            xn = x - (gx + 0.5e-5) / slope
+            lo = xs if not math.isnan(xs) else V_MIN
+            if xn <= lo or xn >= xu:
+                xn = 0.5 * (lo + xu) if not math.isnan(xs) else 0.5 * (x + lo)
+            x = xn
+        if not math.isnan(xs):
+            return (_refine_lift(xs, gs, xu, gu, kappa, grade, bank, coast, p, gears, out,
+                                 tol), u_top, math.nan, elast)
+        guess = xu if xu < vlim else pred
+    return (_safe_speed_below(kappa, grade, bank, vlim, g_top, guess, coast, p, gears, out,
+                              tol), u_top, math.nan, elast)
 
 
 @njit(cache=True, inline="always", error_model="numpy")
@@ -1866,30 +1933,80 @@ def liftoff_margins_serial(kappa, grade, bank, vlim, checked, p, gears, tol,
     return res
 
 
+@njit(cache=True, inline="always", error_model="numpy")
+def _push(h, x, f):
+    """Prepend the pair (x, f) to a history ``h`` = [x1, f1, x2, f2, x3, f3] (newest first)."""
+    h[4] = h[2]
+    h[5] = h[3]
+    h[2] = h[0]
+    h[3] = h[1]
+    h[0] = x
+    h[1] = f
+
+
+@njit(cache=True, error_model="numpy")
+def _margin_search(k, grade, bank, vl, h, e, adjacent, ratio, coast, p, gears, out, tol):
+    """One step's safe speed after a lift (``coast`` as :func:`lift_state`), predicted from
+    the history ``h`` of (ln|curvature|, ln v_safe) of the neighbouring steps when there is
+    one (else from ``ratio`` v_safe / v_lim of an ``adjacent`` last step); updates ``h`` and
+    returns (v_safe, u_r at the limit, elasticity)."""
+    xk = math.log(abs(k)) if k != 0.0 else math.nan
+    if adjacent and not math.isnan(h[1]) and not math.isnan(xk):
+        pred = math.exp(_lnln_predict(xk, h[0], h[1], h[2], h[3], h[4], h[5]))
+    elif adjacent:
+        pred = ratio * vl
+    else:
+        pred = math.nan
+    if not adjacent:
+        h[1] = math.nan
+    vs, ut, gs, e2 = _safe_speed_warm(k, grade, bank, vl, pred, e, coast, p, gears, out, tol)
+    if vs >= vl or math.isnan(xk):
+        h[1] = math.nan  # safe at the limit: no crossing to follow
+    elif not math.isnan(gs):
+        if math.isnan(h[1]):
+            h[3] = math.nan
+            h[5] = math.nan
+        _push(h, xk, math.log(vs * (1.0 - gs / e2)))  # the root, a Newton step from v_safe
+        e = e2
+    else:
+        h[1] = math.nan
+        _push(h, xk, math.log(vs) if vs > 0.0 else math.nan)
+        h[3] = math.nan
+        h[5] = math.nan
+    return vs, ut, e
+
+
 @njit(cache=True, error_model="numpy")
 def _liftoff_margins_chunk(kappa, grade, bank, vlim, checked, p, gears, tol,
                            start, stop, res):
     """Lift-off margins of steps start..stop-1 into ``res``, each warm-started from the
-    previous checked step."""
+    previous checked step (:func:`_margin_search`)."""
     own = np.full(NOUT, np.nan)
     out = borrowed(own)  # no reference counting in the searches (lapbalance.views)
     p = borrowed(p)
     gears = borrowed(gears)
+    own_h = np.full(12, np.nan)  # the two histories (lift with overrun, coasting)
+    h_on = borrowed(own_h[:6])
+    h_co = borrowed(own_h[6:])
     prev = -10
     r_on = 1.0
     r_co = 1.0
+    e_on = 2.0  # elasticity of the rear usage after a lift (2 without aero)
+    e_co = 2.0
+    prev_k = 0.0
     for i in range(start, stop):
         if checked[i] <= 0.0 or vlim[i] <= V_MIN:
             continue
         k = kappa[i]
         vl = vlim[i]
-        g_on = r_on * vl if prev == i - 1 else 0.0
-        g_co = r_co * vl if prev == i - 1 else 0.0
-        vs, ut = liftoff_safe_speed(k, grade[i], bank[i], vl, g_on, 0.0, p, gears, out, tol)
+        adj = prev == i - 1 and k * prev_k > 0.0
+        vs, ut, e_on = _margin_search(k, grade[i], bank[i], vl, h_on, e_on, adj, r_on, 0.0,
+                                      p, gears, out, tol)
         res[i, M_LAMBDA] = margin_of(vs, vl, k, grade[i], bank[i])
         res[i, M_VSAFE] = vs
         res[i, M_RESERVE] = 1.0 - (ut if ut < 2.0 else 2.0)
-        vc, uc = liftoff_safe_speed(k, grade[i], bank[i], vl, g_co, 1.0, p, gears, out, tol)
+        vc, uc, e_co = _margin_search(k, grade[i], bank[i], vl, h_co, e_co, adj, r_co, 1.0,
+                                      p, gears, out, tol)
         res[i, M_LAMBDA_COAST] = margin_of(vc, vl, k, grade[i], bank[i])
         res[i, M_VSAFE_COAST] = vc
         res[i, M_RESERVE_COAST] = 1.0 - (uc if uc < 2.0 else 2.0)
@@ -1897,7 +2014,9 @@ def _liftoff_margins_chunk(kappa, grade, bank, vlim, checked, p, gears, tol,
         r_on = vs / vl
         r_co = vc / vl
         prev = i
+        prev_k = k
     keep_alive(own)
+    keep_alive(own_h)
 
 
 @njit(cache=True, error_model="numpy")
