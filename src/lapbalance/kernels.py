@@ -495,7 +495,7 @@ def _warm_rh(out, p):
 @njit(cache=True, error_model="numpy")
 def _usage_once(v, kappa, grade, bank, f_drive, f_brake, p, claf, clar, cda, out):
     """Lean :func:`_state_once` for the searches: the same arithmetic, but only a_x,
-    downforce, the two usages and the status are written to ``out``."""
+    downforce, the front axle load, the two usages and the status are written to ``out``."""
     m = p[P_MASS]
     L = p[P_L]
     a = p[P_A]
@@ -514,6 +514,7 @@ def _usage_once(v, kappa, grade, bank, f_drive, f_brake, p, claf, clar, cda, out
     out[O_SPEED] = v
     out[O_CONTROL] = f_drive - f_brake
     out[O_DOWNF] = aero_f + aero_r
+    out[O_FZF] = res[7]
     status = res[15]
     if status != 0:
         out[O_UF] = BIG
@@ -553,8 +554,8 @@ def _usage_once(v, kappa, grade, bank, f_drive, f_brake, p, claf, clar, cda, out
 
 @njit(cache=True, error_model="numpy")
 def state_usage(v, kappa, grade, bank, f_drive, f_brake, p, out):
-    """Lean :func:`state` for the searches: writes only a_x, downforce, the usages, the
-    status and (mapped cars) the ride heights to ``out``; returns the status. A mapped car's
+    """Lean :func:`state` for the searches: writes only a_x, downforce, the front axle load,
+    the usages, the status and (mapped cars) the ride heights to ``out``; returns the status. A mapped car's
     ride heights start from those ``out`` holds (the last evaluation), when inside the map.
     """
     if p[P_USEMAP] == 0.0:
@@ -1199,8 +1200,10 @@ def _corner_limits_chunk(kappa, grade, bank, vcap, p, tol, start, stop, vlim):
                 slope = elast / guess  # the elasticity carries over better than the slope
                 x, s2, ok, gx = _window_search(0.0, guess, slope, 0.0, 0.0, k, grade[i],
                                                bank[i], p, out, tol, V_MIN, vcap, -1.0)
-                if ok and x < vcap and x >= lo_known:
-                    vl = x
+                if ok and x < vcap and x >= lo_known * (1.0 - 1e-4):
+                    # below a known-feasible lo_known (a probe aimed inside the window on an
+                    # arc of one radius): lo_known lies between it and the boundary
+                    vl = x if x >= lo_known else lo_known
                     elast = s2 * x
                     xr = x - gx / s2  # the root, a Newton step from the accepted probe
                     hx3 = hx2
@@ -1653,14 +1656,15 @@ def _final_step(i, v, kappa, grade, bank, ds, closed_tail, vcap, p, gears, trpm,
     res[i, c + 7] = fo
     if holds:
         b_on = ur - uf
-        state_warm(vi, kappa[i], grade[i], bank[i], -fo, 0.0, p, tmp)
+        # the lean state holds all these (the same numbers as the full one)
+        state_usage(vi, kappa[i], grade[i], bank[i], -fo, 0.0, p, tmp)
         res[i, c + 8] = (tmp[O_UR] - tmp[O_UF]) - b_on  # dB
         res[i, c + 9] = tmp[O_FZF] - out[O_FZF]  # front-load shift
         res[i, c + 10] = tmp[O_UF]
         res[i, c + 11] = tmp[O_UR]
         res[i, c + 12] = tmp[O_AX]
         res[i, c + 13] = tmp[O_STATUS]
-        state_warm(vi, kappa[i], grade[i], bank[i], 0.0, 0.0, p, tmp)
+        state_usage(vi, kappa[i], grade[i], bank[i], 0.0, 0.0, p, tmp)
         res[i, c + 14] = (tmp[O_UR] - tmp[O_UF]) - b_on
         res[i, c + 15] = tmp[O_FZF] - out[O_FZF]
         res[i, c + 16] = tmp[O_UF]

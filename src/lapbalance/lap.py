@@ -10,6 +10,7 @@ lap closes on itself. Each step's a_x comes from the force balance applied there
 from __future__ import annotations
 
 import contextlib
+import functools
 import math
 import os
 import warnings
@@ -321,12 +322,18 @@ def solver_threads(n_steps: int) -> int:
     """Numba threads a lap of ``n_steps`` steps uses: 1 unless it is long
     (:data:`PARALLEL_MIN_STEPS`) and the machine has :data:`PARALLEL_MIN_CORES` cores; then the
     numba thread count, which sweep workers set to 1 (so N workers use N cores)."""
-    import numba
-
-    cores = os.cpu_count() or 1
+    cores = _cores()
     if n_steps < PARALLEL_MIN_STEPS or cores < PARALLEL_MIN_CORES:
         return 1
+    import numba
+
     return min(numba.get_num_threads(), cores)
+
+
+@functools.cache
+def _cores() -> int:
+    """The machine's CPU count (asked once: the call reads /sys, 20 µs a lap)."""
+    return os.cpu_count() or 1
 
 
 @contextlib.contextmanager
