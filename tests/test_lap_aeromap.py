@@ -125,3 +125,20 @@ def test_in_cell_update_equals_a_fresh_lookup():
         assert a[3] + a[9] * dy == pytest.approx(b[3], rel=1e-10, abs=1e-12)  # d/dx moves
         checked += 1
     assert checked > 100
+
+
+@settings(max_examples=200, deadline=None)
+@given(rhf=st.floats(-0.05, 0.2), rhr=st.floats(-0.05, 0.25), v=st.floats(5.0, 90.0),
+       grade=st.floats(-0.1, 0.1))
+def test_resistance_bound_holds_at_any_ride_heights(rhf, rhr, v, grade):
+    # Source: definition (the clamped bilinear map is a convex combination of its table
+    # entries, so its areas never exceed the largest entry); the speed passes skip a search
+    # only where this bound of the steady force is below the engine's force.
+    car = load_car(ROOT / "examples" / "single_seater_mapped.toml")
+    p, gears, trpm, tnm = car_parameters(car)
+    claf, clar, cda = K.map_eval(p, rhf, rhr)[:3]
+    assert cda <= p[K.P_CDAMAX] + 1e-15 and claf + clar <= p[K.P_CLAMAX] + 1e-15
+    m, q = p[K.P_MASS], 0.5 * p[K.P_RHO] * v * v
+    steady = q * cda + p[K.P_CRR] * (m * 9.80665 * np.cos(grade) + q * (claf + clar)) \
+        + m * 9.80665 * np.sin(grade)
+    assert steady <= K._resistance_bound(v, 0.0, grade, 0.0, p) * (1 + 1e-12) + 1e-9

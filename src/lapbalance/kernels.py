@@ -76,7 +76,11 @@ P_RHR0 = 40
 # precomputed tyre constants per axle: 1 + k, k / Fz0, peak load (lateral; longitudinal)
 P_TYF = 41  # front: 1+ky, ky/fz0, fz_peak_y, 1+kx, kx/fz0, fz_peak_x
 P_TYR = 47  # rear: same layout
-P_NPARAM = 53
+# the largest drag area and total downforce area [m2] the car reaches (its constants, or a
+# map's largest table entries: the clamped bilinear map never exceeds them), for bounds
+P_CDAMAX = 53
+P_CLAMAX = 54
+P_NPARAM = 55
 # the aero map (if any) packed after the scalars, so that every call carries one array for
 # the car (each array argument costs its share of every call): grid sizes, then the front
 # ride-height grid [m], the rear one [m], the front, rear and drag area tables [m2]
@@ -722,6 +726,20 @@ def _resistance_nomap(v, kappa, grade, bank, p):
     q = 0.5 * p[P_RHO] * v * v
     a_c, a_y, g_n = road_accelerations(v, kappa, grade, bank)
     f = q * p[P_CDA] + p[P_CRR] * (m * g_n + q * (p[P_CLAF] + p[P_CLAR]))
+    if grade != 0.0:
+        f += m * G * math.sin(grade)
+    return f
+
+
+@njit(cache=True, error_model="numpy")
+def _resistance_bound(v, kappa, grade, bank, p):
+    """An upper bound [N] of drag + rolling resistance + grade force at any ride heights:
+    :func:`_resistance_nomap` with the largest areas (``P_CDAMAX``, ``P_CLAMAX``); exact
+    without a map."""
+    m = p[P_MASS]
+    q = 0.5 * p[P_RHO] * v * v
+    a_c, a_y, g_n = road_accelerations(v, kappa, grade, bank)
+    f = q * p[P_CDAMAX] + p[P_CRR] * (m * g_n + q * p[P_CLAMAX])
     if grade != 0.0:
         f += m * G * math.sin(grade)
     return f
@@ -1393,6 +1411,14 @@ def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, t
         feng = engine_force(vi, p, gears, trpm, tnm)  # once per step
         # can the car reach the next step's limit? one evaluation settles most steps
         need = (vt * vt - vi * vi) / (2.0 * ds)
+        if need <= 0.0 and vi >= vlim[i] and \
+                _resistance_bound(vi, kappa[i], grade[i], bank[i], p) <= feng:
+            # at this step's limit the car holds its speed (the limit is a feasible steady
+            # state, and the engine gives the steady force, whatever the ride heights): the
+            # most it can accelerate is at least 0, so its trace reaches the lower next
+            # limit, no evaluation needed
+            vf[i + 1] = vt
+            continue
         # (not while the last step's search gave less than this: the search settles it)
         if need < 50.0 and not (last == i - 1 and need > ax_last):
             fn = control_for_ax_lean(vi, kappa[i], grade[i], bank[i], need, p, out)

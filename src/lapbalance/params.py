@@ -89,6 +89,8 @@ def car_parameters(car: Car) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.nda
     p[_k.P_RHR0] = rh_r if rh_r is not None else math.nan
     p[_k.P_HEAVEF] = su.heave_rate_front
     p[_k.P_HEAVER] = su.heave_rate_rear
+    p[_k.P_CDAMAX] = ae.drag_area
+    p[_k.P_CLAMAX] = ae.front_area_cg + ae.rear_area_cg
     amap = ae.aero_map
     if amap is not None:
         p[_k.P_USEMAP] = 1.0
@@ -96,6 +98,10 @@ def car_parameters(car: Car) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.nda
         my = np.asarray(amap.fine_rh_rear_m, dtype=float)
         tables = [np.asarray(t, dtype=float).reshape(mx.size, my.size) for t in
                   (amap.fine_front_area_cg, amap.fine_rear_area_cg, amap.fine_drag_area)]
+        # the clamped bilinear map stays within its table entries
+        p[_k.P_CDAMAX] = max(float(tables[2].max()), ae.drag_area)
+        p[_k.P_CLAMAX] = max(float((tables[0] + tables[1]).max()),
+                             ae.front_area_cg + ae.rear_area_cg)
         p = np.concatenate([p[:_k.MAP_NX], [float(mx.size), float(my.size)], mx, my,
                             *[t.ravel() for t in tables], _bin_table(mx), _bin_table(my)])
     gears = np.asarray(pt.gear_ratios, dtype=float)
