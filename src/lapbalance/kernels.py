@@ -803,50 +803,14 @@ BRAKE_MARGIN = 1e-7
 
 
 @njit(cache=True, error_model="numpy")
-def _brake_speed(vnext, ds, kappa, grade, bank, F, p, out, evaluate):
-    """Speed [m/s] at a step of length ``ds`` [m] from which the control F [N], applied at
-    that speed, reaches ``vnext`` [m/s] at the next step (the implicit braking step).
-
-    Without a map drag, rolling resistance and grade force are R0 + R2 v² exactly, so the
-    speed is closed-form; with one, the closed form is iterated with the resistance of the
-    last evaluation (the ride heights move it). With ``evaluate`` 1.0 (always with a map)
-    ``out`` holds the lean state at the returned speed and the status is returned, else 0.
-    """
-    m = p[P_MASS]
-    r0 = _resistance_nomap(0.0, kappa, grade, bank, p)
-    vr = vnext if vnext > 1.0 else 1.0
-    r2 = (_resistance_nomap(vr, kappa, grade, bank, p) - r0) / (vr * vr)
-    top = vnext * vnext - 2.0 * ds * (F - r0) / m
-    v2 = top / (1.0 - 2.0 * ds * r2 / m)
-    v = math.sqrt(v2) if v2 > 0.0 else 0.0
-    if p[P_USEMAP] == 0.0:
-        if evaluate != 0.0:
-            return v, usage_control(v, kappa, grade, bank, F, p, out)
-        return v, 0
-    st = 0
-    for _ in range(8):
-        st = usage_control(v, kappa, grade, bank, F, p, out)
-        r = F - m * out[O_AX]
-        r2 = (r - r0) / (v * v) if v > 1.0 else r2
-        v2 = top / (1.0 - 2.0 * ds * r2 / m)
-        vn = math.sqrt(v2) if v2 > 0.0 else 0.0
-        if abs(vn - v) <= 1e-8 * (1.0 + v):
-            # converged: take the update, whose speed meets the step's kinematics
-            # v² = vnext² - 2 a_x ds with the resistance just evaluated; the evaluated
-            # speed misses it by up to about v·1e-8 (1 + v)/ds in a_x, enough to tip a
-            # braking step at the limit over it in the final pass, while the usage at the
-            # two speeds differs by far less than BRAKE_MARGIN
-            v = vn
-            break
-        v = vn
-    return v, st
-
-
-@njit(cache=True, error_model="numpy")
-def _g_brake(vnext, ds, kappa, grade, bank, F, p, out):
-    """Usage excess (plus :data:`BRAKE_MARGIN`) of the implicit braking step with control F."""
-    v, st = _brake_speed(vnext, ds, kappa, grade, bank, F, p, out, 1.0)
-    if st != 0:
+def _g_brake(vnext, ds, kappa, grade, bank, x, p, out):
+    """Usage excess (plus :data:`BRAKE_MARGIN`) of the implicit braking step from speed
+    ``x`` [m/s] at this step to ``vnext`` [m/s] at the next, ``ds`` [m] on: the control that
+    gives a_x = (vnext² - x²)/(2 ds), applied at x (one lean evaluation, whose ride heights
+    a mapped car solves with that a_x); BIG when an axle unloads."""
+    a = (vnext * vnext - x * x) / (2.0 * ds)
+    control_for_ax_lean(x, kappa, grade, bank, a, p, out)
+    if out[O_STATUS] != 0.0:
         return BIG
     return max_usage(out) - 1.0 + BRAKE_MARGIN
 
@@ -863,8 +827,8 @@ def _g_kind(kind, x, v, ds, kappa, grade, bank, p, out):
 @njit(cache=True, error_model="numpy")
 def _illinois(kind, x_ok, g_ok, x_bad, g_bad, v, ds, kappa, grade, bank, p, out,
               xtol):
-    """:func:`_refine` for every kind; kind 2: x is the control [N] of an implicit braking
-    step reaching speed ``v`` [m/s] at the end of a step of ``ds`` [m]."""
+    """:func:`_refine` for every kind; kind 2: x is the speed [m/s] of an implicit braking
+    step reaching speed ``v`` [m/s] at the end of a step of ``ds`` [m] (:func:`_g_brake`)."""
     lo = x_ok
     hi = x_bad
     glo = g_ok
@@ -1494,48 +1458,51 @@ def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, t
         if last != i + 1 and _brakes_from(cap, vnext, ds, kappa[i], grade[i], bank[i], p, out):
             vb[i] = cap  # the start of a braking zone: the forward trace brakes in time
             continue
-        # implicit step: the force is applied at this step's own speed v, which follows from
-        # v² = vnext² - 2 a_x(v, F) ds; a bracketed search over F on the grip boundary, warm-
-        # started from the neighbouring steps' forces
+        # implicit step: the control is applied at this step's own speed v and takes the car
+        # from v to vnext over ds, a_x = (vnext² - v²)/(2 ds): a search over v for the
+        # highest speed whose control both axles carry (with BRAKE_MARGIN), not above the
+        # forward trace, warm-started from the neighbouring steps' decelerations
+        v2n = vnext * vnext
+        xtol = ftol * ds / (m * (vnext if vnext > 1.0 else 1.0))  # ftol as a speed [m/s]
         if last == i + 1 and not math.isnan(hint):
-            guess = _extrapolate(hint, hint2, hint3, hint4)
-            d = 0.5 * abs(hint - hint2) if not math.isnan(hint2) else 0.005 * m * G
-            d = d if d > 4.0 * ftol else 4.0 * ftol
-            back = d
-            step = d
+            ag = _extrapolate(hint, hint2, hint3, hint4)
+            v2g = v2n - 2.0 * ds * ag
+            guess = math.sqrt(v2g) if v2g > v2n else math.nan
+            d = 0.5 * abs(hint - hint2) if not math.isnan(hint2) else 0.005 * G
+            dv = d * ds / (vnext if vnext > 1.0 else 1.0)
+            dv = dv if dv > 4.0 * xtol else 4.0 * xtol
+            back = dv
+            step = dv
         else:
             guess = math.nan
-            back = 0.005 * m * G
-            step = 0.02 * m * G
-        f_ok = _resistance_nomap(vnext, kappa[i], grade[i], bank[i], p)  # about steady
-        qc = p[P_RHO] * cap * cap
-        f_stop = -5.0 * m * G - 5.0 * qc * (abs(p[P_CLAF]) + abs(p[P_CLAR]) + 1.0)
-        F = math.nan
+            back = 0.005 * G * ds / (vnext if vnext > 1.0 else 1.0)
+            step = 0.2 * G * ds / (vnext if vnext > 1.0 else 1.0)
+        X = math.nan
         root = math.nan
-        if not math.isnan(guess) and not math.isnan(slope) and f_stop < guess < f_ok:
-            aim = guess - 1e-5 / slope  # half the acceptance window inside (slope < 0)
-            x, s2, ok, gx = _window_search(2.0, aim if aim < f_ok else guess, slope, vnext, ds,
-                                           kappa[i], grade[i], bank[i], p, out, ftol, f_stop,
-                                           f_ok, f_stop)
+        if not math.isnan(guess) and not math.isnan(slope) and vnext < guess < cap:
+            aim = guess - 1e-5 / slope  # half the acceptance window inside
+            x, s2, ok, gx = _window_search(2.0, aim if aim > vnext else guess, slope, vnext,
+                                           ds, kappa[i], grade[i], bank[i], p, out, xtol,
+                                           vnext, cap, cap)
             if ok:
-                F = x
+                X = x
                 slope = s2
-                if gx > -2e-5 and x > f_stop:
+                if gx > -2e-5 and x < cap:
                     root = x - gx / s2
-        if math.isnan(F):
-            F = _search_kind(2.0, vnext, ds, kappa[i], grade[i], bank[i], f_ok, math.nan, guess,
-                             back, step, -1.0, f_stop, p, out, ftol)
-            slope = -1.0 / (p[P_MUXF] * (m * G + abs(out[O_DOWNF])))
-        if not math.isnan(F):
+        if math.isnan(X):
+            X = _search_kind(2.0, vnext, ds, kappa[i], grade[i], bank[i], vnext, math.nan,
+                             guess, back, step, 1.0, cap, p, out, xtol)
+            # d(usage)/dv: about (v/ds) / (the front axle's grip per unit mass)
+            slope = vnext / (ds * p[P_MUXF] * (G + abs(out[O_DOWNF]) / m))
+        if not math.isnan(X):
             hint4 = hint3 if last == i + 1 else math.nan
             hint3 = hint2 if last == i + 1 else math.nan
             hint2 = hint if last == i + 1 else math.nan
-            hint = F if math.isnan(root) else root
+            xr = X if math.isnan(root) else root
+            hint = (v2n - xr * xr) / (2.0 * ds)  # the boundary's a_x [m/s²]
             last = i
-            vi, st = _brake_speed(vnext, ds, kappa[i], grade[i], bank[i], F, p,
-                                  out, 0.0)
-            if vi < cap and vi >= vnext:
-                vb[i] = vi
+            if vnext <= X <= cap:
+                vb[i] = X
                 continue
         else:
             hint = math.nan
