@@ -7,8 +7,11 @@ Declarative data only: :mod:`lapbalance.car` reads files against it and builds t
 
 from __future__ import annotations
 
+import functools
 import math
+from collections.abc import Mapping
 from dataclasses import dataclass
+from types import MappingProxyType
 from typing import Any
 
 from lapbalance import aero as _aero
@@ -249,12 +252,15 @@ SCHEMA["tyres.front"] = _TYRE_KEYS
 SCHEMA["tyres.rear"] = _TYRE_KEYS
 
 
-def _key_index(section: str) -> dict[str, Key]:
+@functools.cache
+def _key_index(section: str) -> Mapping[str, Key]:
+    """Every spelling of a section's keys -> its :class:`Key` (read-only; built once per
+    section: a sweep builds a car per point, and each build looks sections up ~60 times)."""
     out = {}
     for k in SCHEMA.get(section, ()):
         for n in k.names():
             out[n] = k
-    return out
+    return MappingProxyType(out)
 
 
 def schema_markdown() -> str:

@@ -31,7 +31,6 @@ Library code never prints: pass ``progress(done, total, row)`` to follow the swe
 
 from __future__ import annotations
 
-import copy
 import csv
 import hashlib
 import io
@@ -281,7 +280,9 @@ def sweep_points(vary: Mapping[str, Sequence[float]], method: str = "grid",
 
 
 def _car_at(raw: dict, source: str, point: Mapping[str, float]) -> Car:
-    flat = copy.deepcopy(raw)
+    # a shallow copy: overrides replace entries, and the build converts values into new
+    # objects, so the caller's mapping is never changed (a deep copy was a third of the cost)
+    flat = dict(raw)
     apply_overrides(flat, dict(point))
     folder = Path(source).parent if source and not source.startswith("<") else Path(".")
     return build_car(flat, source, folder)
