@@ -57,6 +57,19 @@ def test_one_value_sweep_equals_a_single_run(car, track):
     assert set(RESULT_COLUMNS) <= set(row)
 
 
+def test_points_leave_the_callers_car_unchanged(car, track):
+    # Source: definition (each point's car is built from a copy of the keys; an override
+    # must not reach the caller's car or the next point).
+    import copy
+
+    before = copy.deepcopy(car.raw)
+    rows = sweep(car, track, {"powertrain.final_drive": [3.2, 3.9]})
+    assert car.raw == before
+    assert rows[0]["lap_time_s"] != rows[1]["lap_time_s"]
+    (again,) = sweep(car, track, {"powertrain.final_drive": [3.2]})
+    assert again["lap_time_s"] == rows[0]["lap_time_s"]
+
+
 def test_grid_order_and_values(serial):
     assert [(r["aero.downforce_area_m2"], r["brakes.bias_front"]) for r in serial] == [
         (1.2, 0.55), (1.2, 0.65), (2.0, 0.55), (2.0, 0.65)]
