@@ -1,7 +1,7 @@
 """First run: compile the solver kernels explicitly, with progress, when numba's cache is cold.
 
 The kernels (:mod:`lapbalance.kernels`) are compiled by numba on first use and cached on disk
-(``__pycache__`` beside the module, or ``NUMBA_CACHE_DIR``); compiling takes about 40 s on two
+(``__pycache__`` beside the module, or ``NUMBA_CACHE_DIR``); compiling takes 20-40 s on two
 cores, and without a word the first command would look hung. :func:`cache_is_cold` checks
 cheaply whether the cache holds a current entry for each entry-point kernel: it reads each
 kernel's cache index (a few hundred bytes) and compares its source stamp, as numba does when
@@ -32,7 +32,7 @@ ENTRY_KERNELS = ("corner_limits_serial", "speed_passes", "final_pass_serial",
 TRANSIENT_KERNELS = ("integrate", "steady_turn")
 
 #: What the user is told (one wording for every command).
-MESSAGE = "preparing the solver, first run only (about 40 s; later runs start at once)"
+MESSAGE = "preparing the solver, first run only (about half a minute; later runs start at once)"
 
 _TINY_CAR = {
     "name": "warm-up car",
