@@ -559,8 +559,9 @@ def _usage_once(v, kappa, grade, bank, f_drive, f_brake, p, claf, clar, cda, out
 @njit(cache=True, error_model="numpy")
 def state_usage(v, kappa, grade, bank, f_drive, f_brake, p, out):
     """Lean :func:`state` for the searches: writes only a_x, downforce, the front axle load,
-    the usages, the status and (mapped cars) the ride heights to ``out``; returns the status. A mapped car's
-    ride heights start from those ``out`` holds (the last evaluation), when inside the map.
+    the usages, the status and (mapped cars) the ride heights to ``out``; returns the status.
+    A mapped car's ride heights start from those ``out`` holds (the last evaluation), when
+    inside the map.
     """
     if p[P_USEMAP] == 0.0:
         return _usage_once(v, kappa, grade, bank, f_drive, f_brake, p, p[P_CLAF], p[P_CLAR],

@@ -14,7 +14,8 @@ Rows (``--only`` takes a comma-separated subset of the keys in brackets):
   (``NUMBA_DISABLE_JIT=1``, in a subprocess) on the same 5 km circuit with the
   load-and-usage model wrapped by counters (the full ``_state_once`` and, where it exists,
   the lean ``_usage_once``), per solver phase (corner limits, speed passes, final pass with
-  its two lift-off evaluations where the check applies); aero-map lookups counted too.
+  its two lift-off evaluations where the check applies, lift-off margins); aero-map lookups
+  counted too.
 * [map] the aero-map car (examples/single_seater_mapped.toml) against the same car with
   constant coefficients (examples/single_seater.toml, whose static values the map matches).
 * [threads] 2 numba threads against 1 on the single wavy lap (same process, alternating).
@@ -148,6 +149,7 @@ def phase(mod, name, tag):
 for mod, name, tag in ((L, "_corner_limits_kernel", "corner_limits"),
                        (L, "_speed_passes_kernel", "speed_passes"),
                        (L, "_final_pass_kernel", "final_pass"),
+                       (L, "_liftoff_margins_kernel", "liftoff_margins"),
                        ):
     if hasattr(mod, name):
         phase(mod, name, tag)
@@ -174,7 +176,7 @@ def row_evals(res):
         res[f"evals_per_step_{tag}"] = (full + lean) / n
         res[f"evals_full_per_step_{tag}"] = full / n
         res[f"evals_lean_per_step_{tag}"] = lean / n
-        for ph in ("corner_limits", "speed_passes", "final_pass"):
+        for ph in ("corner_limits", "speed_passes", "final_pass", "liftoff_margins"):
             res[f"evals_{ph}_per_step_{tag}"] = c.get(ph, 0) / n
         if "mapped" in car:
             res[f"map_lookups_per_step_{tag}"] = c.get("map_eval", 0) / n
