@@ -365,6 +365,45 @@ def check_start_speed(start_speed_kph: float | None) -> None:
                          "(0 = standing start)", "start_speed_kph")
 
 
+#: A closed lap's trace must arrive at its start speed to this [m/s] (relative, per m/s of
+#: speed): then the closing step's a_x matches its speed change to about 1e-7 m/s².
+CLOSE_TOL = 1e-9
+
+
+def _closed_trace(kappa, grade, bank, vlim, ds, p, gears, trpm, tnm) -> np.ndarray:
+    """Speed trace [m/s] of a closed lap whose arrays start at its slowest step and repeat it
+    at the end: periodic, the speed it arrives with equals the speed it starts with.
+
+    A lap normally starts at its slowest step's corner limit, and arrives there at it (the
+    limit caps the speed, the backward pass brakes into it). A car that never reaches that
+    limit (power-limited all round, e.g. a banked bowl taken flat) arrives slower than it
+    started; then the start speed is the fixed point of arrival(start), found by the secant
+    method (a lap forgets most of its start speed, so two or three laps settle it).
+    """
+    n = len(kappa) - 1
+    x = float(vlim[0])
+
+    def run(v0):
+        tr = _speed_passes_kernel(kappa, grade, bank, vlim, ds, v0, v0, p, gears, trpm, tnm,
+                                  FORCE_TOL)
+        return tr, float(tr[n] - tr[0])
+
+    tr, h = run(x)
+    if h >= -CLOSE_TOL * max(x, 1.0):
+        return tr
+    x_prev, h_prev = x, h
+    x = float(tr[n])
+    for _ in range(40):
+        tr, h = run(x)
+        if abs(h) <= CLOSE_TOL * max(x, 1.0):
+            return tr
+        xn = x - h * (x - x_prev) / (h - h_prev) if h != h_prev else x + h
+        if not 0.0 < xn <= float(vlim[0]):
+            xn = x + h  # plain fixed-point step
+        x_prev, h_prev, x = x, h, xn
+    return tr
+
+
 def simulate_lap(car: Car, track, *, start_speed_kph: float | None = None,
                  liftoff_ay_threshold: float = LIFTOFF_AY_THRESHOLD,
                  assess_liftoff: bool = True) -> LapResult:
@@ -425,8 +464,8 @@ def simulate_lap(car: Car, track, *, start_speed_kph: float | None = None,
         start = int(np.argmin(vlim))
         order = np.concatenate([np.arange(start, n), np.arange(0, start)])
         ext = np.concatenate([order, order[:1]])
-        vtrace = _speed_passes_kernel(kappa[ext], grade[ext], bank[ext], vlim[ext], ds,
-                                      math.nan, float(vlim[start]), p, gears, trpm, tnm, FORCE_TOL)
+        vtrace = _closed_trace(kappa[ext], grade[ext], bank[ext], vlim[ext], ds, p, gears,
+                               trpm, tnm)
         v = np.empty(n)
         v[order] = vtrace[:n]
         closed_tail_speed = None
