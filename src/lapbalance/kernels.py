@@ -784,20 +784,6 @@ def _g_speed(v, kappa, grade, bank, p, out):
     return max_usage(out) - 1.0
 
 
-@njit(cache=True, error_model="numpy")
-def _refine(kind, x_ok, g_ok, x_bad, g_bad, v, kappa, grade, bank, p, out, xtol):
-    """Illinois (modified regula falsi) search for the feasibility boundary.
-
-    ``kind`` 0: x is the speed [m/s] (steady state); 1: x is the control force [N] at speed
-    ``v``. Kinds are floats (0.0, 1.0, 2.0): an integer constant would make numba compile
-    one version per kind (a literal type each), tripling these searches' compile time.
-    Requires g(x_ok) <= 0 < g(x_bad); returns a feasible x within ``xtol`` of the boundary
-    (or whose usage is within 2e-5 of 1). Falls back to bisection while g(x_bad) is
-    not finite (an unloaded axle).
-    """
-    return _illinois(kind, x_ok, g_ok, x_bad, g_bad, v, 0.0, kappa, grade, bank, p, out, xtol)
-
-
 #: Usage margin [-] a braking step keeps below 1 so that the force the final pass
 #: recomputes from the speed change (rounding apart) is feasible too.
 BRAKE_MARGIN = 1e-7
@@ -828,8 +814,17 @@ def _g_kind(kind, x, v, ds, kappa, grade, bank, p, out):
 @njit(cache=True, error_model="numpy")
 def _illinois(kind, x_ok, g_ok, x_bad, g_bad, v, ds, kappa, grade, bank, p, out,
               xtol):
-    """:func:`_refine` for every kind; kind 2: x is the speed [m/s] of an implicit braking
-    step reaching speed ``v`` [m/s] at the end of a step of ``ds`` [m] (:func:`_g_brake`)."""
+    """Illinois (modified regula falsi) search for the feasibility boundary.
+
+    ``kind`` 0: x is the speed [m/s] (steady state); 1: x is the control force [N] at speed
+    ``v``; 2: x is the speed [m/s] of an implicit braking step reaching speed ``v`` [m/s] at
+    the end of a step of ``ds`` [m] (:func:`_g_brake`; ``ds`` is unused by the others).
+    Kinds are floats (0.0, 1.0, 2.0): an integer constant would make numba compile one
+    version per kind (a literal type each), tripling these searches' compile time.
+    Requires g(x_ok) <= 0 < g(x_bad); returns a feasible x within ``xtol`` of the boundary
+    (or whose usage is within 2e-5 of 1). Falls back to bisection while g(x_bad) is not
+    finite (an unloaded axle).
+    """
     lo = x_ok
     hi = x_bad
     glo = g_ok
@@ -876,7 +871,7 @@ def largest_feasible_control(v, kappa, grade, bank, f_ok, f_bad, p, out, tol):
     g_bad = _g_control(v, kappa, grade, bank, f_bad, p, out)
     if g_bad <= 0.0:
         return f_bad
-    return _refine(1.0, f_ok, g_ok, f_bad, g_bad, v, kappa, grade, bank, p, out, tol)
+    return _illinois(1.0, f_ok, g_ok, f_bad, g_bad, v, 0.0, kappa, grade, bank, p, out, tol)
 
 
 @njit(cache=True, error_model="numpy")
@@ -976,7 +971,7 @@ def corner_limit(kappa, grade, bank, guess, lo_known, vcap, p, out, tol):
             lo, glo, hi, ghi = _bracket_up(lo, glo, s, vcap, kappa, grade, bank, p, out)
             if ghi <= 0.0:
                 return vcap
-            return _refine(0.0, lo, glo, hi, ghi, 0.0, kappa, grade, bank, p, out,
+            return _illinois(0.0, lo, glo, hi, ghi, 0.0, 0.0, kappa, grade, bank, p, out,
                            tol)
     found = False
     lo = 0.0
@@ -1032,7 +1027,7 @@ def corner_limit(kappa, grade, bank, guess, lo_known, vcap, p, out, tol):
                 return vcap
             lo = hi
             glo = ghi
-    return _refine(0.0, lo, glo, hi, ghi, 0.0, kappa, grade, bank, p, out, tol)
+    return _illinois(0.0, lo, glo, hi, ghi, 0.0, 0.0, kappa, grade, bank, p, out, tol)
 
 
 @njit(cache=True, parallel=True, error_model="numpy")
@@ -1221,22 +1216,15 @@ def _corner_limits_chunk(kappa, grade, bank, vcap, p, tol, start, stop, vlim):
 
 
 @njit(cache=True, error_model="numpy")
-def _search_from_hint(v, kappa, grade, bank, f_ok, g_ok, hint, direction, f_stop, p, out, ftol):
-    """Boundary of the feasible control interval beyond a feasible ``f_ok`` [N] in
-    ``direction`` (+1 more drive, -1 more braking), starting near ``hint`` and not past
-    ``f_stop`` (returned when everything up to it is feasible)."""
-    m = p[P_MASS]
-    return _search_kind(1.0, v, 0.0, kappa, grade, bank, f_ok, g_ok, hint, 0.005 * m * G,
-                        0.02 * m * G, direction, f_stop, p, out, ftol)
-
-
-@njit(cache=True, error_model="numpy")
 def _search_kind(kind, v, ds, kappa, grade, bank, f_ok, g_ok, hint, back, step, direction,
                  f_stop, p, out, ftol):
-    """:func:`_search_from_hint` for control kinds 1 and 2 (see :func:`_illinois`), with the
-    first step back from an infeasible hint ``back`` [N] and the first step on ``step`` [N]
-    (both doubling). ``g_ok`` NaN: not evaluated yet (it is, if needed; NaN is returned when
-    ``f_ok`` then proves infeasible)."""
+    """Boundary of the feasible interval beyond a feasible ``f_ok`` in ``direction`` (+1
+    more drive or a higher braking speed, -1 more braking), starting near ``hint`` and not
+    past ``f_stop`` (returned when everything up to it is feasible), for kinds 1 and 2 (see
+    :func:`_illinois`), with the first step back from an infeasible hint ``back`` and the
+    first step on ``step`` (both doubling; [N], or [m/s] for kind 2). ``g_ok`` NaN: not
+    evaluated yet (it is, if needed; NaN is returned when ``f_ok`` then proves infeasible).
+    """
     if not math.isnan(hint) and (hint - f_ok) * direction > 0.0 and \
             (f_stop - hint) * direction > 0.0:
         g_h = _g_kind(kind, hint, v, ds, kappa, grade, bank, p, out)
@@ -1307,7 +1295,7 @@ def _max_accel_feng(v, kappa, grade, bank, feng, p, out, ftol, hint, back, step)
     gs = max_usage(out) - 1.0
     if feng <= fs:
         # the engine cannot hold speed and less drive is infeasible: least extra drive
-        return _refine(1.0, fs, gs, feng, 1.0, v, kappa, grade, bank, p, out, ftol)
+        return _illinois(1.0, fs, gs, feng, 1.0, v, 0.0, kappa, grade, bank, p, out, ftol)
     return _search_kind(1.0, v, 0.0, kappa, grade, bank, fs, gs, hint, back, step, 1.0, feng, p,
                         out, ftol)
 
@@ -1321,8 +1309,9 @@ def max_decel_control(v, kappa, grade, bank, p, out, ftol, hint=math.nan):
         return fs
     gs = max_usage(out) - 1.0
     f_stop = -4.0 * p[P_MASS] * G - 4.0 * abs(out[O_DOWNF])
-    return _search_from_hint(v, kappa, grade, bank, fs, gs, hint, -1.0, f_stop, p,
-                             out, ftol)
+    m = p[P_MASS]
+    return _search_kind(1.0, v, 0.0, kappa, grade, bank, fs, gs, hint, 0.005 * m * G,
+                        0.02 * m * G, -1.0, f_stop, p, out, ftol)
 
 
 @njit(cache=True, inline="always", error_model="numpy")
@@ -1456,7 +1445,7 @@ def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, t
             vb[i] = vlim[i]
             continue
         cap = vf[i]  # the forward trace: no braking speed above it matters
-        if last != i + 1 and _brakes_from(cap, vnext, ds, kappa[i], grade[i], bank[i], p, out):
+        if last != i + 1 and _g_brake(vnext, ds, kappa[i], grade[i], bank[i], cap, p, out) <= 0.0:
             vb[i] = cap  # the start of a braking zone: the forward trace brakes in time
             continue
         # implicit step: the control is applied at this step's own speed v and takes the car
@@ -1510,14 +1499,14 @@ def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, t
             last = n + 10
         # the braking curve lies above the forward trace: brake from the forward trace if
         # the car can, else from the fastest speed below it it can brake from (bisection)
-        if _brakes_from(cap, vnext, ds, kappa[i], grade[i], bank[i], p, out):
+        if _g_brake(vnext, ds, kappa[i], grade[i], bank[i], cap, p, out) <= 0.0:
             vb[i] = cap
             continue
         lo = vnext
         hi = cap
         for _ in range(40):
             mid = 0.5 * (lo + hi)
-            if _brakes_from(mid, vnext, ds, kappa[i], grade[i], bank[i], p, out):
+            if _g_brake(vnext, ds, kappa[i], grade[i], bank[i], mid, p, out) <= 0.0:
                 lo = mid
             else:
                 hi = mid
@@ -1527,15 +1516,6 @@ def speed_passes(kappa, grade, bank, vlim, ds, v_start, v_end, p, gears, trpm, t
         v[i] = vf[i] if vf[i] < vb[i] else vb[i]
     keep_alive(own)
     return v
-
-
-@njit(cache=True, error_model="numpy")
-def _brakes_from(v, vnext, ds, kappa, grade, bank, p, out):
-    """True when the step from speed v [m/s] to ``vnext`` over ``ds`` [m] is feasible with
-    the usage margin of the braking search (the force the final pass will apply)."""
-    a_req = (vnext * vnext - v * v) / (2.0 * ds)
-    control_for_ax_lean(v, kappa, grade, bank, a_req, p, out)
-    return out[O_STATUS] == 0.0 and max_usage(out) <= 1.0 - BRAKE_MARGIN
 
 
 NCH = 40  # channels written by final_pass per step
@@ -1693,18 +1673,13 @@ def lift_state(v, kappa, grade, bank, coast, p, gears, out):
     return state_warm(v, kappa, grade, bank, -fo, 0.0, p, out)
 
 
-@njit(cache=True, error_model="numpy")
-def lift_usage(v, kappa, grade, bank, coast, p, gears, out):
-    """Lean :func:`lift_state` for the margin searches: the same lift, evaluated by
-    :func:`state_usage` (usages, a_x, downforce, status and ride heights only)."""
-    fo = 0.0 if coast != 0 else overrun_force(v, p, gears)
-    return state_usage(v, kappa, grade, bank, -fo, 0.0, p, out)
-
-
 @njit(cache=True, inline="always", error_model="numpy")
 def _g_lift(v, kappa, grade, bank, coast, p, gears, out):
-    """Rear usage excess u_r - 1 after a lift at v [m/s]; BIG when an axle unloads."""
-    st = lift_usage(v, kappa, grade, bank, coast, p, gears, out)
+    """Rear usage excess u_r - 1 after a lift at v [m/s] (the lift of :func:`lift_state`,
+    evaluated lean by :func:`state_usage` for the margin searches); BIG when an axle
+    unloads."""
+    fo = 0.0 if coast != 0 else overrun_force(v, p, gears)
+    st = state_usage(v, kappa, grade, bank, -fo, 0.0, p, out)
     if st != 0:
         return BIG
     return out[O_UR] - 1.0
@@ -1713,7 +1688,7 @@ def _g_lift(v, kappa, grade, bank, coast, p, gears, out):
 @njit(cache=True, error_model="numpy")
 def _refine_lift(x_ok, g_ok, x_bad, g_bad, kappa, grade, bank, coast, p, gears,
                  out, xtol):
-    """Illinois search (as :func:`_refine`) for the speed [m/s] where the rear usage after a
+    """Illinois search (as :func:`_illinois`) for the speed [m/s] where the rear usage after a
     lift crosses 1, between a safe ``x_ok`` and an unsafe ``x_bad`` (either order)."""
     lo = x_ok
     hi = x_bad
