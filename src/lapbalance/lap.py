@@ -399,7 +399,7 @@ def _closed_trace(kappa, grade, bank, vlim, ds, p, gears, trpm, tnm) -> np.ndarr
             return tr
         xn = x - h * (x - x_prev) / (h - h_prev) if h != h_prev else x + h
         if not 0.0 < xn <= float(vlim[0]):
-            xn = x + h  # plain fixed-point step
+            xn = min(max(x + h, 0.0), float(vlim[0]))  # plain fixed-point step
         x_prev, h_prev, x = x, h, xn
     return tr
 
