@@ -719,31 +719,31 @@ def overrun_force(v, p, gears):
     return p[P_OVERRUN] * gears[g] * p[P_FINAL] / p[P_RW]
 
 
+@njit(cache=True, inline="always", error_model="numpy")
+def _road_load(v, kappa, grade, bank, p, cda, cla):
+    """Drag + rolling resistance + grade force [N] with drag area ``cda`` and total downforce
+    area ``cla`` [m2]."""
+    m = p[P_MASS]
+    q = 0.5 * p[P_RHO] * v * v
+    a_c, a_y, g_n = road_accelerations(v, kappa, grade, bank)
+    f = q * cda + p[P_CRR] * (m * g_n + q * cla)
+    if grade != 0.0:
+        f += m * G * math.sin(grade)
+    return f
+
+
 @njit(cache=True, error_model="numpy")
 def _resistance_nomap(v, kappa, grade, bank, p):
     """Drag + rolling resistance + grade force [N] without an aero map (independent of the
     control force, since the total normal load does not depend on it)."""
-    m = p[P_MASS]
-    q = 0.5 * p[P_RHO] * v * v
-    a_c, a_y, g_n = road_accelerations(v, kappa, grade, bank)
-    f = q * p[P_CDA] + p[P_CRR] * (m * g_n + q * (p[P_CLAF] + p[P_CLAR]))
-    if grade != 0.0:
-        f += m * G * math.sin(grade)
-    return f
+    return _road_load(v, kappa, grade, bank, p, p[P_CDA], p[P_CLAF] + p[P_CLAR])
 
 
 @njit(cache=True, error_model="numpy")
 def _resistance_bound(v, kappa, grade, bank, p):
     """An upper bound [N] of drag + rolling resistance + grade force at any ride heights:
-    :func:`_resistance_nomap` with the largest areas (``P_CDAMAX``, ``P_CLAMAX``); exact
-    without a map."""
-    m = p[P_MASS]
-    q = 0.5 * p[P_RHO] * v * v
-    a_c, a_y, g_n = road_accelerations(v, kappa, grade, bank)
-    f = q * p[P_CDAMAX] + p[P_CRR] * (m * g_n + q * p[P_CLAMAX])
-    if grade != 0.0:
-        f += m * G * math.sin(grade)
-    return f
+    the road load at the largest areas (``P_CDAMAX``, ``P_CLAMAX``); exact without a map."""
+    return _road_load(v, kappa, grade, bank, p, p[P_CDAMAX], p[P_CLAMAX])
 
 
 @njit(cache=True, error_model="numpy")
@@ -1095,6 +1095,21 @@ def _lnln_predict(x, x1, f1, x2, f2, x3, f3):
     return f1 - 0.5 * (x - x1)
 
 
+@njit(cache=True, inline="always", error_model="numpy")
+def _push(h, x, f):
+    """Prepend the pair (x, f) to a history ``h`` = [x1, f1, x2, f2, x3, f3] (newest first,
+    for :func:`_lnln_predict`); a history reset (``h[1]`` NaN) starts anew with this pair."""
+    if math.isnan(h[1]):
+        h[3] = math.nan
+        h[5] = math.nan
+    h[4] = h[2]
+    h[5] = h[3]
+    h[2] = h[0]
+    h[3] = h[1]
+    h[0] = x
+    h[1] = f
+
+
 @njit(cache=True, error_model="numpy")
 def _corner_limits_chunk(kappa, grade, bank, vcap, p, tol, start, stop, vlim):
     """Corner limits of steps start..stop-1 into ``vlim``, each warm-started from the last.
@@ -1116,12 +1131,8 @@ def _corner_limits_chunk(kappa, grade, bank, vcap, p, tol, start, stop, vlim):
     k_band = 0.0  # curvature of the last check for an infeasible band below the limit
     since = 0
     # (ln|curvature|, ln v_root) of the last three limits of this corner, newest first
-    hx1 = math.nan
-    hx2 = math.nan
-    hx3 = math.nan
-    hf1 = math.nan
-    hf2 = math.nan
-    hf3 = math.nan
+    own_h = np.full(6, np.nan)
+    h = borrowed(own_h)
     for i in range(start, stop):
         k = kappa[i]
         same = grade[i] == prev_g and bank[i] == prev_b and prev_v > 0.0
@@ -1143,7 +1154,7 @@ def _corner_limits_chunk(kappa, grade, bank, vcap, p, tol, start, stop, vlim):
                 r = 0.8 if r < 0.8 else (1.25 if r > 1.25 else r)
                 guess = prev_v * r
         if not near or k * prev_k <= 0.0:
-            hf1 = math.nan  # a new corner (or road): no history
+            h[1] = math.nan  # a new corner (or road): no history
         vl = -1.0
         since += 1
         # an infeasible band below the limit needs a sloped or banked road (on a flat one
@@ -1170,8 +1181,8 @@ def _corner_limits_chunk(kappa, grade, bank, vcap, p, tol, start, stop, vlim):
                 since = 0
             if band_ok:
                 xk = math.log(abs(k))
-                if not math.isnan(hf1):
-                    vr = math.exp(_lnln_predict(xk, hx1, hf1, hx2, hf2, hx3, hf3))
+                if not math.isnan(h[1]):
+                    vr = math.exp(_lnln_predict(xk, h[0], h[1], h[2], h[3], h[4], h[5]))
                     ge = vr * (1.0 - 1e-5 / elast)  # aim half the acceptance window inside
                     if abs(ge - guess) < 0.05 * guess:
                         guess = ge
@@ -1184,35 +1195,25 @@ def _corner_limits_chunk(kappa, grade, bank, vcap, p, tol, start, stop, vlim):
                     vl = x if x >= lo_known else lo_known
                     elast = s2 * x
                     xr = x - gx / s2  # the root, a Newton step from the accepted probe
-                    hx3 = hx2
-                    hf3 = hf2
-                    hx2 = hx1
-                    hf2 = hf1
-                    if math.isnan(hf1):
-                        hf2 = math.nan
-                        hf3 = math.nan
-                    hx1 = xk
-                    hf1 = math.log(xr if xr > x else x)
+                    _push(h, xk, math.log(xr if xr > x else x))
         if vl < 0.0:
             vl = corner_limit(k, grade[i], bank[i], guess, lo_known, vcap, p,
                               out, tol)
             elast = 1.5 if vl > V_MIN else math.nan
             k_band = abs(k)
             since = 0
-            hf1 = math.nan
+            h[1] = math.nan
             if V_MIN < vl < vcap:
-                hx1 = math.log(abs(k))
-                hf1 = math.log(vl)
-                hf2 = math.nan
-                hf3 = math.nan
+                _push(h, math.log(abs(k)), math.log(vl))  # restarts the history
         if vl >= vcap:
-            hf1 = math.nan
+            h[1] = math.nan
         vlim[i] = vl
         prev_v = vl
         prev_k = k
         prev_g = grade[i]
         prev_b = bank[i]
     keep_alive(own)
+    keep_alive(own_h)
 
 
 @njit(cache=True, error_model="numpy")
@@ -1906,17 +1907,6 @@ def liftoff_margins_serial(kappa, grade, bank, vlim, checked, p, gears, tol,
     return res
 
 
-@njit(cache=True, inline="always", error_model="numpy")
-def _push(h, x, f):
-    """Prepend the pair (x, f) to a history ``h`` = [x1, f1, x2, f2, x3, f3] (newest first)."""
-    h[4] = h[2]
-    h[5] = h[3]
-    h[2] = h[0]
-    h[3] = h[1]
-    h[0] = x
-    h[1] = f
-
-
 @njit(cache=True, error_model="numpy")
 def _margin_search(k, grade, bank, vl, h, e, adjacent, ratio, coast, p, gears, out, tol):
     """One step's safe speed after a lift (``coast`` as :func:`lift_state`), predicted from
@@ -1936,16 +1926,11 @@ def _margin_search(k, grade, bank, vl, h, e, adjacent, ratio, coast, p, gears, o
     if vs >= vl or math.isnan(xk):
         h[1] = math.nan  # safe at the limit: no crossing to follow
     elif not math.isnan(gs):
-        if math.isnan(h[1]):
-            h[3] = math.nan
-            h[5] = math.nan
         _push(h, xk, math.log(vs * (1.0 - gs / e2)))  # the root, a Newton step from v_safe
         e = e2
     else:
-        h[1] = math.nan
+        h[1] = math.nan  # found by bracketing, not a root: restart from it
         _push(h, xk, math.log(vs) if vs > 0.0 else math.nan)
-        h[3] = math.nan
-        h[5] = math.nan
     return vs, ut, e
 
 
